@@ -1,0 +1,7 @@
+package main
+
+var (
+	runLimits  = notYet("limits")
+	runPlan    = notYet("plan")
+	runCertify = notYet("certify")
+)

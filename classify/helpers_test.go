@@ -1,0 +1,17 @@
+package classify
+
+import (
+	"testing"
+	"time"
+)
+
+func mustTime(t *testing.T, s string) time.Time {
+	t.Helper()
+	v, err := time.Parse(time.RFC3339, s)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return v
+}
+
+func minutes(n int) time.Duration { return time.Duration(n) * time.Minute }

@@ -141,7 +141,7 @@ func MakePlan(t Target) (Plan, error) {
 	}
 	p := Plan{
 		Edition: t.Edition, State: t.State, AreaM2: t.AreaM2, Locations: n,
-		FlowLPM: t.FlowLPM, LimitsPerM3: map[string]*float64{}, Notes: warn,
+		FlowLPM: t.FlowLPM, LimitsPerM3: map[string]*float64{}, Notes: append([]string{}, warn...),
 		MinSamplesPerLocation: 1,
 	}
 	if t.Grade != "" {

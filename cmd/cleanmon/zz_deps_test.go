@@ -11,6 +11,6 @@ import (
 	_ "go.etcd.io/bbolt"
 	_ "go.yaml.in/yaml/v3"
 	_ "golang.org/x/time/rate"
-	_ "gonum.org/v1/gonum/stat/distuv"
 	_ "gonum.org/v1/gonum/stat"
+	_ "gonum.org/v1/gonum/stat/distuv"
 )

@@ -1,7 +1,0 @@
-package main
-
-var (
-	runLimits  = notYet("limits")
-	runPlan    = notYet("plan")
-	runCertify = notYet("certify")
-)

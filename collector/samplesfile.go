@@ -65,13 +65,15 @@ func ReadSamples(r io.Reader, opt SampleFileOptions) ([]classify.Sample, error) 
 	cr.TrimLeadingSpace = true
 	cr.ReuseRecord = true
 
-	header, err := cr.Read()
+	rec0, err := cr.Read()
 	if err == io.EOF {
 		return nil, fail(0, "", "the file is empty: it needs a header row and at least one sample")
 	}
 	if err != nil {
 		return nil, csvFail(opt.Name, err)
 	}
+	// The reader reuses its record slice: keep a copy of the header.
+	header := append([]string(nil), rec0...)
 	hline, _ := cr.FieldPos(0)
 	col := map[string]int{}
 	sizeCol := make([]int, len(opt.Sizes))

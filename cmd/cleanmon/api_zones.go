@@ -1,0 +1,185 @@
+package main
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"net/http"
+	"strings"
+	"time"
+
+	"github.com/go-chi/chi/v5"
+
+	"cleanmon/alerts"
+	"cleanmon/classify"
+	"cleanmon/store"
+)
+
+// zoneJSON is the zone object of DESIGN.md §4.
+type zoneJSON struct {
+	ID             string           `json:"id"`
+	Name           string           `json:"name"`
+	Class          *float64         `json:"class"`
+	Grade          *string          `json:"grade"`
+	Edition        *string          `json:"edition"`
+	OperatingState string           `json:"operating_state"`
+	StateChange    *stateChangeJSON `json:"operating_state_change"`
+	// LimitsState is the operating state whose limits apply (in
+	// maintenance, the state the zone ran in before).
+	LimitsState  string              `json:"limits_state"`
+	State        string              `json:"state"`
+	LimitsPerM3  map[string]*float64 `json:"limits_per_m3"`
+	AlertPerM3   map[string]*float64 `json:"alert_levels_per_m3"`
+	ActionPerM3  map[string]*float64 `json:"action_levels_per_m3"`
+	Locations    []locationJSON      `json:"locations"`
+	ActiveAlarms []struct{}          `json:"active_alarms"`
+	Window       string              `json:"window"`
+	StaleAfter   string              `json:"stale_after"`
+	Notes        []string            `json:"notes"`
+	EvaluatedAt  time.Time           `json:"evaluated_at"`
+}
+
+type stateChangeJSON struct {
+	By     string    `json:"by"`
+	Reason string    `json:"reason"`
+	Since  time.Time `json:"since"`
+}
+
+type locationJSON struct {
+	ID                 string             `json:"id"`
+	Name               string             `json:"name,omitempty"`
+	Counter            string             `json:"counter"`
+	ConcentrationPerM3 map[string]float64 `json:"concentration_per_m3"`
+	Time               *time.Time         `json:"time"`
+	Status             string             `json:"status,omitempty"`
+	MeanPerM3          map[string]float64 `json:"mean_per_m3"`
+	Samples            int                `json:"samples"`
+	Fresh              bool               `json:"fresh"`
+	State              string             `json:"state"`
+}
+
+func zoneObject(v alerts.ZoneView) zoneJSON {
+	z := zoneJSON{
+		ID: v.ID, Name: v.Name, Class: v.Class, OperatingState: v.OperatingState,
+		LimitsState: v.LimitsState, State: string(v.State),
+		LimitsPerM3: map[string]*float64{}, AlertPerM3: map[string]*float64{}, ActionPerM3: map[string]*float64{},
+		Locations: []locationJSON{}, ActiveAlarms: []struct{}{},
+		Window: v.Window.String(), StaleAfter: v.StaleAfter.String(),
+		Notes: v.Notes, EvaluatedAt: v.At.UTC(),
+	}
+	if z.Notes == nil {
+		z.Notes = []string{}
+	}
+	if v.Grade != "" {
+		g := v.Grade
+		z.Grade = &g
+	}
+	if v.Edition != "" {
+		e := v.Edition
+		z.Edition = &e
+	}
+	if !v.StateSince.IsZero() {
+		z.StateChange = &stateChangeJSON{By: v.StateBy, Reason: v.StateReason, Since: v.StateSince.UTC()}
+	}
+	for _, l := range v.Limits {
+		k := classify.FormatSize(l.SizeUM)
+		z.LimitsPerM3[k], z.AlertPerM3[k], z.ActionPerM3[k] = l.Limit, l.Alert, l.Action
+	}
+	for _, l := range v.Locations {
+		lj := locationJSON{
+			ID: l.ID, Name: l.Name, Counter: l.Counter, ConcentrationPerM3: l.PerM3, Status: l.Status,
+			MeanPerM3: l.MeanPerM3, Samples: l.Samples, Fresh: l.Fresh, State: string(l.State),
+		}
+		if !l.Time.IsZero() {
+			t := l.Time.UTC()
+			lj.Time = &t
+		}
+		z.Locations = append(z.Locations, lj)
+	}
+	return z
+}
+
+// listZones is GET /api/v1/zones.
+func (s *server) listZones(w http.ResponseWriter, r *http.Request) {
+	views := s.zones.Zones()
+	out := make([]zoneJSON, len(views))
+	for i, v := range views {
+		out[i] = zoneObject(v)
+	}
+	writeJSON(w, http.StatusOK, out)
+}
+
+// getZone is GET /api/v1/zones/{zone}.
+func (s *server) getZone(w http.ResponseWriter, r *http.Request) {
+	v, ok := s.zones.Zone(chi.URLParam(r, "zone"))
+	if !ok {
+		writeError(w, http.StatusNotFound, fmt.Sprintf("unknown zone %q", chi.URLParam(r, "zone")))
+		return
+	}
+	writeJSON(w, http.StatusOK, zoneObject(v))
+}
+
+// stateRequest is the body of PUT /api/v1/zones/{zone}/state.
+type stateRequest struct {
+	State  string `json:"state"`
+	By     string `json:"by"`
+	Reason string `json:"reason"`
+}
+
+// putZoneState is PUT /api/v1/zones/{zone}/state: the change is on record
+// in the store before the zone shows it.
+func (s *server) putZoneState(w http.ResponseWriter, r *http.Request) {
+	id := chi.URLParam(r, "zone")
+	if _, ok := s.zones.Zone(id); !ok {
+		writeError(w, http.StatusNotFound, fmt.Sprintf("unknown zone %q", id))
+		return
+	}
+	dec := json.NewDecoder(http.MaxBytesReader(w, r.Body, maxStateBody))
+	dec.DisallowUnknownFields()
+	var req stateRequest
+	if err := dec.Decode(&req); err != nil {
+		var mbe *http.MaxBytesError
+		switch {
+		case errors.As(err, &mbe):
+			writeError(w, http.StatusRequestEntityTooLarge, fmt.Sprintf("body larger than %d bytes", maxStateBody))
+		case strings.HasPrefix(err.Error(), "json: unknown field "):
+			f := strings.Trim(strings.TrimPrefix(err.Error(), "json: unknown field "), `"`)
+			writeFieldError(w, f, "unknown field (want state, by, reason)")
+		default:
+			writeError(w, http.StatusBadRequest, "body: want a JSON object {\"state\":..., \"by\":..., \"reason\":...}: "+err.Error())
+		}
+		return
+	}
+	if _, err := dec.Token(); err != io.EOF {
+		writeError(w, http.StatusBadRequest, "body: unexpected data after the JSON object")
+		return
+	}
+	if _, err := alerts.ParseOperatingState(req.State); err != nil {
+		writeFieldError(w, "state", fmt.Sprintf("%q: want at-rest, in-operation or maintenance", req.State))
+		return
+	}
+	if strings.TrimSpace(req.By) == "" {
+		writeFieldError(w, "by", "missing: say who makes the change (it is kept for the audit trail)")
+		return
+	}
+	ch := alerts.OperatingChange{Zone: id, State: req.State, By: req.By, Reason: req.Reason, Time: s.now().UTC()}
+	v, err := s.zones.SetOperatingState(ch, func(ch alerts.OperatingChange) error {
+		return s.store.SetOperatingState(r.Context(), store.OperatingState{Zone: ch.Zone, State: ch.State, By: ch.By, Reason: ch.Reason, Time: ch.Time})
+	})
+	if err != nil {
+		var re *store.RecordError
+		switch {
+		case errors.As(err, &re):
+			writeFieldError(w, strings.ToLower(re.Field), re.Reason)
+		case errors.Is(err, alerts.ErrOperatingState):
+			writeError(w, http.StatusBadRequest, err.Error())
+		default:
+			s.log.Error("operating state not recorded", "zone", id, "err", err)
+			writeError(w, errorStatus(err), "operating state not recorded: "+err.Error())
+		}
+		return
+	}
+	s.log.Info("operating state changed", "zone", id, "state", req.State, "by", req.By, "reason", req.Reason, "token", infoOf(r).token)
+	writeJSON(w, http.StatusOK, zoneObject(v))
+}

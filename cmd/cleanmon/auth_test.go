@@ -1,0 +1,156 @@
+package main
+
+import (
+	"encoding/json"
+	"net/http"
+	"strings"
+	"testing"
+	"time"
+)
+
+func TestAccessByRole(t *testing.T) {
+	d := startSite(t, apiSite(false), "")
+	reading := func() []byte {
+		// A fresh time each call, so every accepted POST stores a row.
+		b, _ := json.Marshal(postedReading{Counter: "pc-hood", Time: rfcTime(time.Now().Add(-time.Minute)), VolumeL: 28.3,
+			Counts: map[string]uint64{"0.3": 40, "0.5": 10, "1": 2, "5": 0}})
+		return b
+	}
+	state := []byte(`{"state":"at-rest","by":"j.marsh","reason":"test"}`)
+	type route struct {
+		name, method, path string
+		body               func() []byte
+	}
+	routes := []route{
+		{"read zones", "GET", "/api/v1/zones", nil},
+		{"read metrics", "GET", "/metrics", nil},
+		{"ingest", "POST", "/api/v1/readings", reading},
+		{"operate", "PUT", "/api/v1/zones/fill/state", func() []byte { return state }},
+		{"backup", "GET", "/api/v1/backup", nil},
+	}
+	tokens := []struct{ name, secret string }{
+		{"none", ""}, {"unknown", "not-a-configured-secret"},
+		{"ingest", secretIngest}, {"viewer", secretViewer}, {"operator", secretOperator}, {"admin", secretAdmin},
+	}
+	// Expected status per route and token, in the order of tokens above
+	// (DESIGN.md §4 roles as the task defines them).
+	want := map[string][]int{
+		"read zones":   {401, 401, 403, 200, 200, 200},
+		"read metrics": {401, 401, 403, 200, 200, 200},
+		"ingest":       {401, 401, 200, 403, 403, 200},
+		"operate":      {401, 401, 403, 403, 200, 200},
+		"backup":       {401, 401, 403, 403, 403, 200},
+	}
+	for _, r := range routes {
+		for i, tok := range tokens {
+			t.Run(r.name+"/"+tok.name, func(t *testing.T) {
+				var body []byte
+				ct := ""
+				if r.body != nil {
+					body, ct = r.body(), "application/json"
+				}
+				code, h, b := d.do(r.method, r.path, tok.secret, ct, body)
+				if code != want[r.name][i] {
+					t.Fatalf("%s %s as %s: %d %s, want %d", r.method, r.path, tok.name, code, b, want[r.name][i])
+				}
+				switch code {
+				case http.StatusUnauthorized:
+					decodeAPIError(t, b)
+					if h.Get("WWW-Authenticate") == "" {
+						t.Error("401 without WWW-Authenticate")
+					}
+				case http.StatusForbidden:
+					e := decodeAPIError(t, b)
+					if !strings.Contains(e.Error, "role") {
+						t.Errorf("403 does not name the role: %s", e.Error)
+					}
+				}
+			})
+		}
+	}
+}
+
+func TestAuthorizationHeaderForms(t *testing.T) {
+	d := startSite(t, apiSite(false), "")
+	cases := []struct {
+		header string
+		code   int
+		msg    string
+	}{
+		{"", 401, "missing bearer token"},
+		{"Bearer " + secretViewer, 200, ""},
+		{"bearer " + secretViewer, 200, ""},
+		{"Bearer  " + secretViewer + " ", 200, ""},
+		{"Basic " + secretViewer, 401, "invalid token"},
+		{"Bearer", 401, "invalid token"},
+		{"Bearer " + secretViewer + "x", 401, "invalid token"},
+		{"Bearer " + tokenHash(secretViewer), 401, "invalid token"}, // the hash itself is no credential
+	}
+	for _, c := range cases {
+		t.Run(c.header, func(t *testing.T) {
+			req, _ := http.NewRequest("GET", d.url+"/api/v1/zones", nil)
+			if c.header != "" {
+				req.Header.Set("Authorization", c.header)
+			}
+			resp, err := d.client.Do(req)
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer resp.Body.Close()
+			if resp.StatusCode != c.code {
+				t.Fatalf("%d, want %d", resp.StatusCode, c.code)
+			}
+			if c.msg != "" {
+				var e apiErrorBody
+				json.NewDecoder(resp.Body).Decode(&e)
+				if !strings.Contains(e.Error, c.msg) {
+					t.Errorf("error %q lacks %q", e.Error, c.msg)
+				}
+			}
+		})
+	}
+}
+
+func TestOpenReads(t *testing.T) {
+	d := startSite(t, apiSite(true), "")
+	b, _ := json.Marshal(postedReading{Counter: "pc-hood", Time: rfcTime(time.Now().Add(-time.Minute)), VolumeL: 28.3,
+		Counts: map[string]uint64{"0.3": 40, "0.5": 10, "1": 2, "5": 0}})
+	cases := []struct {
+		method, path, token, ct string
+		body                    []byte
+		code                    int
+	}{
+		{"GET", "/api/v1/zones", "", "", nil, 200},
+		{"GET", "/api/v1/zones/hood/readings", "", "", nil, 200},
+		{"GET", "/metrics", "", "", nil, 200},
+		{"GET", "/api/v1/zones", secretIngest, "", nil, 200}, // reads are open to anyone
+		{"POST", "/api/v1/readings", "", "application/json", b, 401},
+		{"PUT", "/api/v1/zones/fill/state", "", "application/json", []byte(`{"state":"at-rest","by":"x"}`), 401},
+		{"GET", "/api/v1/backup", "", "", nil, 401},
+		{"GET", "/api/v1/backup", secretViewer, "", nil, 403},
+	}
+	for _, c := range cases {
+		if code, _, body := d.do(c.method, c.path, c.token, c.ct, c.body); code != c.code {
+			t.Errorf("%s %s token %q: %d %s, want %d", c.method, c.path, c.token, code, body, c.code)
+		}
+	}
+}
+
+func TestGrants(t *testing.T) {
+	// The role table of the access rules, checked cell by cell.
+	table := map[string][4]bool{ // read, ingest, operate, admin
+		roleIngest:   {false, true, false, false},
+		roleViewer:   {true, false, false, false},
+		roleOperator: {true, false, true, false},
+		roleAdmin:    {true, true, true, true},
+		"":           {false, false, false, false},
+		"root":       {false, false, false, false},
+	}
+	for role, w := range table {
+		for p, want := range w {
+			if got := grants(role, permission(p)); got != want {
+				t.Errorf("grants(%q, %s) = %v, want %v", role, permission(p), got, want)
+			}
+		}
+	}
+}

@@ -1,0 +1,470 @@
+package main
+
+import (
+	"bufio"
+	"bytes"
+	"context"
+	"crypto/sha256"
+	"encoding/binary"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"net/http"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"runtime"
+	"sort"
+	"strconv"
+	"strings"
+	"sync"
+	"sync/atomic"
+	"syscall"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+)
+
+// benchOptions are the knobs of `cleanmon bench`.
+type benchOptions struct {
+	counters, batch, writers, rate int
+	phase                          time.Duration
+	history                        bool
+	keep                           bool
+}
+
+// runBench measures the real daemon: it starts `cleanmon serve` (this very
+// binary) on loopback with a generated site of N counters, drives ingest
+// and queries over HTTP, and writes the same records straight into a bare
+// bbolt file with the same batching as a baseline. It prints throughput,
+// acknowledgement latency, query times and the server's peak RSS.
+func runBench(args []string, stdout, stderr io.Writer) int {
+	fs := newFlags("bench", "[--counters N] [--batch N] [--writers N] [--phase 10s] [--rate 500] [--history=false]", stderr)
+	var o benchOptions
+	fs.IntVar(&o.counters, "counters", 2000, "simulated counters configured and fed")
+	fs.IntVar(&o.batch, "batch", 1000, "readings per NDJSON request in the throughput phase")
+	fs.IntVar(&o.writers, "writers", 4, "concurrent HTTP writers in the throughput phase")
+	fs.IntVar(&o.rate, "rate", 500, "single-reading requests per second in the latency phase")
+	fs.DurationVar(&o.phase, "phase", 10*time.Second, "length of the throughput and latency phases")
+	fs.BoolVar(&o.history, "history", true, "load one location's year of per-minute readings and time the range queries")
+	fs.BoolVar(&o.keep, "keep", false, "keep the temporary data directory")
+	pos, err := parseArgs(fs, args)
+	if err != nil {
+		return exitUsage
+	}
+	if len(pos) > 0 {
+		return fail(stderr, "bench", fmt.Errorf("unexpected argument %q", pos[0]))
+	}
+	if o.counters < 2 || o.batch < 1 || o.writers < 1 || o.rate < 1 || o.phase <= 0 {
+		return fail(stderr, "bench", errors.New("--counters ≥ 2, --batch, --writers, --rate ≥ 1 and --phase > 0"))
+	}
+	if err := bench(o, stdout, stderr); err != nil {
+		fmt.Fprintf(stderr, "cleanmon bench: %s\n", oneLine(err.Error()))
+		return exitFail
+	}
+	return exitOK
+}
+
+const benchToken = "bench-admin-token"
+
+func bench(o benchOptions, stdout, stderr io.Writer) error {
+	dir, err := os.MkdirTemp("", "cleanmon-bench-")
+	if err != nil {
+		return err
+	}
+	if !o.keep {
+		defer os.RemoveAll(dir)
+	}
+	cfg := filepath.Join(dir, "site.yaml")
+	if err := os.WriteFile(cfg, []byte(benchSite(o.counters)), 0o600); err != nil {
+		return err
+	}
+	self, err := os.Executable()
+	if err != nil {
+		return err
+	}
+	srv, err := startChild(self, "serve", "--config", cfg, "--data", filepath.Join(dir, "data"), "--listen", "127.0.0.1:0")
+	if err != nil {
+		return err
+	}
+	defer srv.stop()
+	c := &benchClient{url: srv.url, http: &http.Client{Transport: &http.Transport{MaxIdleConnsPerHost: 256}}}
+
+	fmt.Fprintf(stdout, "cleanmon bench: %d counters, %s per phase, on %s\n", o.counters, o.phase, machine())
+	base := time.Now().UTC().Add(-30 * 24 * time.Hour).Truncate(time.Second)
+	var seq atomic.Int64
+
+	// Throughput: writers post NDJSON batches as fast as acknowledgements come.
+	tp, lat, err := c.throughput(o, base, &seq)
+	if err != nil {
+		return err
+	}
+	fmt.Fprintf(stdout, "  ingest, NDJSON batches of %d, %d writers: %s readings/s durable (request p50 %s, p99 %s)\n",
+		o.batch, o.writers, groupDigits(math.Round(tp)), ms(lat.p50), ms(lat.p99))
+
+	// Baseline: the same records, the same batches, straight into bbolt.
+	bl, err := rawBolt(filepath.Join(dir, "raw.db"), o, base, int(tp*o.phase.Seconds()))
+	if err != nil {
+		return err
+	}
+	fmt.Fprintf(stdout, "  raw bbolt baseline, same batches: %s readings/s; daemon/baseline = %.2f\n", groupDigits(math.Round(bl)), tp/bl)
+
+	// Latency: one reading per request at a fixed rate.
+	l1, errs, err := c.latency(o, base, &seq)
+	if err != nil {
+		return err
+	}
+	fmt.Fprintf(stdout, "  single-reading acknowledgement at %d requests/s: p50 %s, p99 %s, max %s (%d errors)\n", o.rate, ms(l1.p50), ms(l1.p99), ms(l1.max), errs)
+
+	if o.history {
+		raw, rawRows, hourly, hourRows, err := c.history(o)
+		if err != nil {
+			return err
+		}
+		fmt.Fprintf(stdout, "  one location's year of per-minute readings: raw %s rows in %s; rolled up to hours %s rows in %s\n",
+			groupDigits(float64(rawRows)), ms(raw), groupDigits(float64(hourRows)), ms(hourly))
+	}
+	peak, cur := srv.rss()
+	fmt.Fprintf(stdout, "  server RSS with %d counters configured: peak %s MB, now %s MB\n", o.counters, mb(peak), mb(cur))
+	return nil
+}
+
+func benchSite(n int) string {
+	sum := sha256.Sum256([]byte(benchToken))
+	var b strings.Builder
+	fmt.Fprintf(&b, "site: \"Veldmark Photonics, building C (bench)\"\nretention: \"87600h\"\naccess:\n  tokens:\n    - {name: bench, sha256: %q, role: admin}\n", hex.EncodeToString(sum[:]))
+	b.WriteString("zones:\n  - id: assembly\n    name: Assembly hall\n    class: 7\n    operating_state: in-operation\n    area_m2: 60\n    sizes: [\"0.5\", \"5\"]\n    locations:\n")
+	for i := 0; i < n; i++ {
+		fmt.Fprintf(&b, "      - {id: loc-%d}\n", i)
+	}
+	b.WriteString("counters:\n")
+	for i := 0; i < n; i++ {
+		fmt.Fprintf(&b, "  - {id: pc-%d, zone: assembly, location: loc-%d, flow_lpm: 28.3, sizes: [\"0.3\", \"0.5\", \"1\", \"5\"], interval: \"1m\"}\n", i, i)
+	}
+	return b.String()
+}
+
+// benchReading appends one NDJSON reading line. Counter 0 is kept for the
+// history phase; the others take the load.
+func benchReading(b *bytes.Buffer, counter int, t time.Time, k int64) {
+	fmt.Fprintf(b, `{"counter":"pc-%d","time":"%s","volume_l":28.3,"counts":{"0.3":%d,"0.5":%d,"1":%d,"5":%d},"flow_lpm":28.3,"status":"ok"}`+"\n",
+		counter, t.Format(time.RFC3339Nano), 9000+k%700, 3000+k%300, 600+k%60, k%9)
+}
+
+type benchClient struct {
+	url  string
+	http *http.Client
+}
+
+func (c *benchClient) post(ctx context.Context, body []byte) error {
+	req, err := http.NewRequestWithContext(ctx, http.MethodPost, c.url+"/api/v1/readings", bytes.NewReader(body))
+	if err != nil {
+		return err
+	}
+	req.Header.Set("Authorization", "Bearer "+benchToken)
+	req.Header.Set("Content-Type", "application/x-ndjson")
+	resp, err := c.http.Do(req)
+	if err != nil {
+		return err
+	}
+	defer resp.Body.Close()
+	msg, _ := io.ReadAll(resp.Body)
+	if resp.StatusCode != http.StatusOK {
+		return fmt.Errorf("ingest: %s %s", resp.Status, strings.TrimSpace(string(msg)))
+	}
+	return nil
+}
+
+type quantiles struct{ p50, p99, max time.Duration }
+
+func summarize(d []time.Duration) quantiles {
+	if len(d) == 0 {
+		return quantiles{}
+	}
+	sort.Slice(d, func(i, j int) bool { return d[i] < d[j] })
+	at := func(q float64) time.Duration {
+		return d[int(math.Min(float64(len(d)-1), math.Ceil(q*float64(len(d)))-1))]
+	}
+	return quantiles{at(0.50), at(0.99), d[len(d)-1]}
+}
+
+func (c *benchClient) throughput(o benchOptions, base time.Time, seq *atomic.Int64) (float64, quantiles, error) {
+	ctx, cancel := context.WithTimeout(context.Background(), o.phase)
+	defer cancel()
+	var accepted atomic.Int64
+	var mu sync.Mutex
+	var lats []time.Duration
+	var firstErr error
+	var wg sync.WaitGroup
+	start := time.Now()
+	for w := 0; w < o.writers; w++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			var b bytes.Buffer
+			for ctx.Err() == nil {
+				b.Reset()
+				for i := 0; i < o.batch; i++ {
+					k := seq.Add(1)
+					benchReading(&b, 1+int(k%int64(o.counters-1)), base.Add(time.Duration(k)*time.Microsecond), k)
+				}
+				t0 := time.Now()
+				err := c.post(context.Background(), b.Bytes()) // a batch in flight finishes; the phase ends between batches
+				if err != nil {
+					mu.Lock()
+					if firstErr == nil {
+						firstErr = err
+					}
+					mu.Unlock()
+					return
+				}
+				mu.Lock()
+				lats = append(lats, time.Since(t0))
+				mu.Unlock()
+				accepted.Add(int64(o.batch))
+			}
+		}()
+	}
+	wg.Wait()
+	if firstErr != nil {
+		return 0, quantiles{}, firstErr
+	}
+	return float64(accepted.Load()) / time.Since(start).Seconds(), summarize(lats), nil
+}
+
+func (c *benchClient) latency(o benchOptions, base time.Time, seq *atomic.Int64) (quantiles, int, error) {
+	total := int(o.phase.Seconds() * float64(o.rate))
+	tick := time.NewTicker(time.Second / time.Duration(o.rate))
+	defer tick.Stop()
+	var mu sync.Mutex
+	var lats []time.Duration
+	errs := 0
+	var wg sync.WaitGroup
+	sem := make(chan struct{}, 256)
+	for i := 0; i < total; i++ {
+		<-tick.C
+		sem <- struct{}{}
+		wg.Add(1)
+		go func() {
+			defer func() { <-sem; wg.Done() }()
+			var b bytes.Buffer
+			k := seq.Add(1)
+			benchReading(&b, 1+int(k%int64(o.counters-1)), base.Add(time.Duration(k)*time.Microsecond), k)
+			t0 := time.Now()
+			ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+			err := c.post(ctx, b.Bytes())
+			cancel()
+			mu.Lock()
+			defer mu.Unlock()
+			if err != nil {
+				errs++
+				return
+			}
+			lats = append(lats, time.Since(t0))
+		}()
+	}
+	wg.Wait()
+	if len(lats) == 0 {
+		return quantiles{}, errs, errors.New("latency phase: every request failed")
+	}
+	return summarize(lats), errs, nil
+}
+
+// history loads a year of per-minute readings for counter pc-0 (525 600)
+// and times the raw and the hourly query of the whole year.
+func (c *benchClient) history(o benchOptions) (raw time.Duration, rawRows int, hourly time.Duration, hourRows int, err error) {
+	end := time.Now().UTC().Truncate(time.Minute).Add(-time.Hour)
+	start := end.Add(-525600 * time.Minute)
+	var b bytes.Buffer
+	for i := 0; i < 525600; {
+		b.Reset()
+		for j := 0; j < 1000 && i < 525600; j, i = j+1, i+1 {
+			benchReading(&b, 0, start.Add(time.Duration(i)*time.Minute), int64(i))
+		}
+		if err = c.post(context.Background(), b.Bytes()); err != nil {
+			return
+		}
+	}
+	q := fmt.Sprintf("%s/api/v1/zones/assembly/readings?location=loc-0&from=%s&to=%s", c.url, start.Format(time.RFC3339), end.Format(time.RFC3339))
+	if raw, rawRows, err = c.timeQuery(q); err != nil {
+		return
+	}
+	hourly, hourRows, err = c.timeQuery(q + "&step=1h")
+	return
+}
+
+// timeQuery fetches a JSON array and counts its rows as they stream in.
+func (c *benchClient) timeQuery(url string) (time.Duration, int, error) {
+	req, err := http.NewRequest(http.MethodGet, url, nil)
+	if err != nil {
+		return 0, 0, err
+	}
+	req.Header.Set("Authorization", "Bearer "+benchToken)
+	t0 := time.Now()
+	resp, err := c.http.Do(req)
+	if err != nil {
+		return 0, 0, err
+	}
+	defer resp.Body.Close()
+	if resp.StatusCode != http.StatusOK {
+		msg, _ := io.ReadAll(io.LimitReader(resp.Body, 512))
+		return 0, 0, fmt.Errorf("query: %s %s", resp.Status, msg)
+	}
+	dec := json.NewDecoder(bufio.NewReaderSize(resp.Body, 1<<20))
+	if _, err := dec.Token(); err != nil {
+		return 0, 0, err
+	}
+	n := 0
+	for dec.More() {
+		var row json.RawMessage
+		if err := dec.Decode(&row); err != nil {
+			return 0, 0, err
+		}
+		n++
+	}
+	return time.Since(t0), n, nil
+}
+
+// rawBolt writes n records in the daemon's batch size into a bare bbolt
+// file (bucket per counter, 8-byte big-endian time keys, a value of about
+// the daemon's size), one fsynced transaction per batch: what the store
+// could at best do with the same durability.
+func rawBolt(path string, o benchOptions, base time.Time, n int) (float64, error) {
+	if n < o.batch*10 {
+		n = o.batch * 10
+	}
+	db, err := bolt.Open(path, 0o600, &bolt.Options{Timeout: time.Second})
+	if err != nil {
+		return 0, err
+	}
+	defer db.Close()
+	val := make([]byte, 48)
+	start := time.Now()
+	for k := 0; k < n; {
+		err := db.Update(func(tx *bolt.Tx) error {
+			for j := 0; j < o.batch; j, k = j+1, k+1 {
+				b, err := tx.CreateBucketIfNotExists([]byte("pc-" + strconv.Itoa(1+k%(o.counters-1))))
+				if err != nil {
+					return err
+				}
+				key := binary.BigEndian.AppendUint64(nil, uint64(base.Add(time.Duration(k)*time.Microsecond).UnixNano()))
+				binary.BigEndian.PutUint64(val, uint64(k))
+				if err := b.Put(key, val); err != nil {
+					return err
+				}
+			}
+			return nil
+		})
+		if err != nil {
+			return 0, err
+		}
+	}
+	return float64(n) / time.Since(start).Seconds(), nil
+}
+
+// child is a daemon process started by the bench.
+type child struct {
+	cmd  *exec.Cmd
+	url  string
+	done chan struct{}
+}
+
+func startChild(bin string, args ...string) (*child, error) {
+	cmd := exec.Command(bin, args...)
+	out, err := cmd.StdoutPipe()
+	if err != nil {
+		return nil, err
+	}
+	var logs bytes.Buffer
+	cmd.Stderr = &lockedWriter{w: &logs}
+	if err := cmd.Start(); err != nil {
+		return nil, err
+	}
+	c := &child{cmd: cmd, done: make(chan struct{})}
+	urlc := make(chan string, 1)
+	go func() {
+		sc := bufio.NewScanner(out)
+		for sc.Scan() {
+			if _, u, ok := strings.Cut(sc.Text(), "serving on "); ok {
+				urlc <- strings.TrimSpace(u)
+			}
+		}
+		close(urlc)
+	}()
+	go func() { cmd.Wait(); close(c.done) }()
+	select {
+	case u, ok := <-urlc:
+		if !ok {
+			<-c.done
+			return nil, fmt.Errorf("the daemon exited before serving: %s", logs.String())
+		}
+		c.url = u
+	case <-time.After(60 * time.Second):
+		cmd.Process.Kill()
+		return nil, errors.New("the daemon did not start within 60 s")
+	}
+	return c, nil
+}
+
+func (c *child) stop() {
+	c.cmd.Process.Signal(syscall.SIGTERM)
+	select {
+	case <-c.done:
+	case <-time.After(30 * time.Second):
+		c.cmd.Process.Kill()
+		<-c.done
+	}
+}
+
+// rss reads the child's peak and current resident set size from /proc.
+func (c *child) rss() (peakKB, curKB int64) {
+	b, err := os.ReadFile(fmt.Sprintf("/proc/%d/status", c.cmd.Process.Pid))
+	if err != nil {
+		return 0, 0
+	}
+	for _, line := range strings.Split(string(b), "\n") {
+		f := strings.Fields(line)
+		if len(f) < 2 {
+			continue
+		}
+		v, _ := strconv.ParseInt(f[1], 10, 64)
+		switch f[0] {
+		case "VmHWM:":
+			peakKB = v
+		case "VmRSS:":
+			curKB = v
+		}
+	}
+	return
+}
+
+// lockedWriter serialises writes from the child's stderr copier.
+type lockedWriter struct {
+	mu sync.Mutex
+	w  io.Writer
+}
+
+func (l *lockedWriter) Write(p []byte) (int, error) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.w.Write(p)
+}
+
+func machine() string {
+	model := "unknown CPU"
+	if b, err := os.ReadFile("/proc/cpuinfo"); err == nil {
+		for _, line := range strings.Split(string(b), "\n") {
+			if k, v, ok := strings.Cut(line, ":"); ok && strings.TrimSpace(k) == "model name" {
+				model = strings.TrimSpace(v)
+				break
+			}
+		}
+	}
+	return fmt.Sprintf("%d cores (%s), %s %s/%s", runtime.NumCPU(), model, runtime.Version(), runtime.GOOS, runtime.GOARCH)
+}
+
+func ms(d time.Duration) string { return fmt.Sprintf("%.1f ms", float64(d.Microseconds())/1000) }
+func mb(kb int64) string        { return fmt.Sprintf("%.0f", float64(kb)/1024) }

@@ -1,0 +1,329 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"log/slog"
+	"math"
+	"net"
+	"net/http"
+	"os"
+	"os/signal"
+	"sync"
+	"syscall"
+	"time"
+
+	"cleanmon/alerts"
+	"cleanmon/collector"
+	"cleanmon/store"
+)
+
+// Daemon defaults and bounds.
+const (
+	defaultListen   = "127.0.0.1:8080"
+	storeLockWait   = time.Second
+	shutdownTimeout = 30 * time.Second
+	sweepEvery      = time.Hour
+)
+
+// serveOptions are the flags of `cleanmon serve`.
+type serveOptions struct {
+	configPath string
+	demo       bool
+	listen     string
+	dataDir    string
+	speed      float64
+}
+
+// runServe is `cleanmon serve`: it runs until SIGINT or SIGTERM.
+func runServe(args []string, stdout, stderr io.Writer) int {
+	fs := flag.NewFlagSet("serve", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	var o serveOptions
+	fs.StringVar(&o.configPath, "config", "", "site configuration file (YAML)")
+	fs.BoolVar(&o.demo, "demo", false, "run the built-in demo site with simulated counters (API open, loopback only)")
+	fs.StringVar(&o.listen, "listen", "", "address to listen on, host:port (default: the configuration's listen, else "+defaultListen+"; port 0 picks a free one)")
+	fs.StringVar(&o.dataDir, "data", "", "data directory of the store (default: the configuration's data_dir; --demo: a temporary directory)")
+	fs.Float64Var(&o.speed, "speed", 1, "--demo only: how many times faster than the wall clock simulated time runs")
+	fs.Usage = func() {
+		fmt.Fprintln(fs.Output(), "usage: cleanmon serve --config FILE [--listen ADDR] [--data DIR]")
+		fmt.Fprintln(fs.Output(), "       cleanmon serve --demo [--listen ADDR] [--data DIR] [--speed N]")
+		fmt.Fprintln(fs.Output(), "Runs the monitoring daemon until SIGINT or SIGTERM, then finishes requests in flight and closes the store.")
+		fs.PrintDefaults()
+	}
+	if err := fs.Parse(args); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return exitOK
+		}
+		return exitUsage
+	}
+	speedSet := false
+	fs.Visit(func(f *flag.Flag) { speedSet = speedSet || f.Name == "speed" })
+	switch {
+	case fs.NArg() > 0:
+		fmt.Fprintf(stderr, "cleanmon serve: unexpected argument %q\n", fs.Arg(0))
+		return exitUsage
+	case o.demo && o.configPath != "":
+		fmt.Fprintln(stderr, "cleanmon serve: --demo runs the built-in site; it takes no --config")
+		return exitUsage
+	case !o.demo && o.configPath == "":
+		fmt.Fprintln(stderr, "cleanmon serve: --config FILE is required (or --demo)")
+		return exitUsage
+	case !o.demo && speedSet:
+		fmt.Fprintln(stderr, "cleanmon serve: --speed applies to --demo only")
+		return exitUsage
+	case !(o.speed > 0) || math.IsInf(o.speed, 0):
+		fmt.Fprintf(stderr, "cleanmon serve: --speed %v: want a positive factor\n", o.speed)
+		return exitUsage
+	}
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	return serve(ctx, o, stdout, stderr)
+}
+
+// serve runs the daemon until ctx ends: the store, the ingest path, the
+// live zone state, the HTTP API, the hourly retention sweep and, with
+// --demo, the simulator.
+func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
+	log := slog.New(slog.NewTextHandler(stderr, nil))
+	fail := func(code int, format string, a ...any) int {
+		fmt.Fprintf(stderr, "cleanmon serve: "+format+"\n", a...)
+		return code
+	}
+
+	var cfg *siteConfig
+	var err error
+	if o.demo {
+		cfg, err = demoConfig()
+	} else {
+		cfg, err = loadConfigFile(o.configPath)
+	}
+	if err != nil {
+		printConfigError(stderr, "cleanmon serve", err)
+		return exitUsage
+	}
+
+	listen := firstOf(o.listen, cfg.Listen, defaultListen)
+	if _, _, err := net.SplitHostPort(listen); err != nil {
+		return fail(exitUsage, "--listen %q: %v", listen, err)
+	}
+	if o.demo && !isLoopback(listen) {
+		return fail(exitUsage, "--demo serves an open API (no tokens) and listens on loopback only; %q is not a loopback address", listen)
+	}
+
+	dataDir := firstOf(o.dataDir, cfg.DataDir)
+	if dataDir == "" {
+		if !o.demo {
+			return fail(exitUsage, "no data directory: give --data DIR or data_dir in %s", o.configPath)
+		}
+		dataDir, err = os.MkdirTemp("", "cleanmon-demo-")
+		if err != nil {
+			return fail(exitFail, "temporary data directory: %v", err)
+		}
+		defer os.RemoveAll(dataDir)
+	}
+
+	now := time.Now
+	if o.demo && o.speed != 1 {
+		now = speedClock(o.speed)
+	}
+
+	st, err := store.Open(dataDir, store.Options{LockTimeout: storeLockWait, Logger: log})
+	switch {
+	case errors.Is(err, store.ErrLocked):
+		return fail(exitFail, "data directory %s is in use by another cleanmon process (%v)", dataDir, err)
+	case err != nil:
+		return fail(exitFail, "opening the store in %s: %v", dataDir, err)
+	}
+	storeOpen := true
+	defer func() {
+		if storeOpen {
+			st.Close()
+		}
+	}()
+
+	reg, err := collector.NewRegistry(cfg.Counters, cfg.PressureSensors)
+	if err != nil {
+		return fail(exitUsage, "%v", err)
+	}
+	zones, err := alerts.NewZoneTracker(cfg.Zones, cfg.bindings(), alerts.ZoneTrackerOptions{Now: now})
+	if err != nil {
+		return fail(exitUsage, "%v", err)
+	}
+	if err := restoreZones(st, zones, cfg, now(), log); err != nil {
+		return fail(exitFail, "restoring zone state from the store: %v", err)
+	}
+	ingest := collector.NewIngest(reg, storeSink{st}, collector.IngestOptions{Retention: cfg.retention(), Now: now})
+	ingest.OnReadings(func(rs []collector.Reading) {
+		obs := make([]alerts.Observation, len(rs))
+		for i := range rs {
+			obs[i] = observation(&rs[i])
+		}
+		zones.Observe(obs...)
+	})
+	auth, err := newAuthorizer(cfg.Access, o.demo)
+	if err != nil {
+		return fail(exitUsage, "%v", err)
+	}
+	srv := &server{cfg: cfg, store: st, zones: zones, ingest: ingest, auth: auth, log: log, metrics: newMetricsRegistry(), now: now}
+
+	ln, err := net.Listen("tcp", listen)
+	if err != nil {
+		return fail(exitFail, "listening on %s: %v", listen, err)
+	}
+	hs := &http.Server{
+		Handler:           srv.routes(),
+		ReadHeaderTimeout: readHeaderTimeout,
+		ReadTimeout:       readTimeout,
+		WriteTimeout:      writeTimeout,
+		IdleTimeout:       idleTimeout,
+		ErrorLog:          slog.NewLogLogger(log.Handler(), slog.LevelWarn),
+	}
+	served := make(chan error, 1)
+	go func() { served <- hs.Serve(ln) }()
+	srv.ready.Store(true)
+	url := "http://" + ln.Addr().String()
+	fmt.Fprintf(stdout, "cleanmon: serving on %s\n", url)
+	log.Info("serving", "url", url, "site", cfg.Site, "data", dataDir, "zones", len(cfg.Zones), "counters", len(cfg.Counters), "sensors", len(cfg.PressureSensors))
+	if o.demo {
+		log.Warn("demo: the API is open, no token is asked for any route", "listen", ln.Addr().String(), "speed", o.speed)
+	}
+
+	bg, stopBG := context.WithCancel(context.Background())
+	var wg sync.WaitGroup
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		sweepLoop(bg, st, cfg.retention(), now, log)
+	}()
+	if o.demo {
+		if err := startDemo(bg, &wg, reg, zones, ingest, now, o.speed, log); err != nil {
+			stopBG()
+			hs.Close()
+			return fail(exitFail, "demo simulator: %v", err)
+		}
+	}
+
+	code := exitOK
+	select {
+	case <-ctx.Done():
+		log.Info("shutting down: finishing requests in flight")
+	case err := <-served:
+		log.Error("HTTP server stopped", "err", err)
+		code = exitFail
+	}
+	// Stop taking work, let requests in flight finish (their commits
+	// complete and are answered), stop the background work, and only then
+	// close the store.
+	srv.ready.Store(false)
+	stopBG()
+	sctx, cancel := context.WithTimeout(context.Background(), shutdownTimeout)
+	defer cancel()
+	if err := hs.Shutdown(sctx); err != nil {
+		log.Error("requests still running at the shutdown deadline; closing connections", "err", err)
+		hs.Close()
+		code = exitFail
+	}
+	wg.Wait()
+	storeOpen = false
+	if err := st.Close(); err != nil {
+		log.Error("closing the store", "err", err)
+		code = exitFail
+	}
+	log.Info("stopped")
+	return code
+}
+
+// restoreZones brings the live zone state back after a start: the
+// operating states on record and the readings within each zone's window.
+func restoreZones(st *store.Store, zones *alerts.ZoneTracker, cfg *siteConfig, now time.Time, log *slog.Logger) error {
+	states, err := st.OperatingStates()
+	if err != nil {
+		return err
+	}
+	for zone, s := range states {
+		ch := alerts.OperatingChange{Zone: s.Zone, State: s.State, By: s.By, Reason: s.Reason, Time: s.Time}
+		if ch.Zone == "" {
+			ch.Zone = zone
+		}
+		if err := zones.RestoreOperatingState(ch); err != nil {
+			log.Warn("stored operating state not restored", "zone", zone, "err", err)
+		}
+	}
+	for _, k := range cfg.Counters {
+		v, ok := zones.Zone(k.Zone)
+		if !ok {
+			continue
+		}
+		if r, found, err := st.LatestReading(k.ID); err != nil {
+			return err
+		} else if found {
+			zones.Observe(storedObservation(r))
+		}
+		var obs []alerts.Observation
+		err := st.ScanReadings(k.ID, now.Add(-v.Window), time.Time{}, func(r store.Reading) error {
+			obs = append(obs, storedObservation(r))
+			return nil
+		})
+		if err != nil {
+			return err
+		}
+		zones.Observe(obs...)
+	}
+	return nil
+}
+
+// sweepLoop deletes what is older than the retention, at start and then
+// every hour.
+func sweepLoop(ctx context.Context, st *store.Store, retention time.Duration, now func() time.Time, log *slog.Logger) {
+	t := time.NewTicker(sweepEvery)
+	defer t.Stop()
+	for {
+		res, err := st.Sweep(ctx, now().Add(-retention))
+		switch {
+		case err != nil && ctx.Err() == nil:
+			log.Error("retention sweep failed", "err", err)
+		case err == nil && res.Readings+res.Pressure+res.Rollups > 0:
+			log.Info("retention sweep", "before", res.Before, "readings", res.Readings, "pressure", res.Pressure, "rollups", res.Rollups)
+		}
+		select {
+		case <-ctx.Done():
+			return
+		case <-t.C:
+		}
+	}
+}
+
+// speedClock runs time speed times faster than the wall clock from now on.
+func speedClock(speed float64) func() time.Time {
+	start := time.Now()
+	return func() time.Time {
+		return start.Add(time.Duration(float64(time.Since(start)) * speed))
+	}
+}
+
+// isLoopback tells whether a listen address stays on this machine. An
+// empty host means every interface, which is not.
+func isLoopback(addr string) bool {
+	host, _, err := net.SplitHostPort(addr)
+	if err != nil {
+		return false
+	}
+	if host == "localhost" {
+		return true
+	}
+	ip := net.ParseIP(host)
+	return ip != nil && ip.IsLoopback()
+}
+
+func firstOf(vs ...string) string {
+	for _, v := range vs {
+		if v != "" {
+			return v
+		}
+	}
+	return ""
+}

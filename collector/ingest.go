@@ -1,0 +1,327 @@
+package collector
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"net/http"
+	"time"
+)
+
+// Sink is what the ingest path needs from storage; the daemon passes an
+// adapter over the store. Each call must return only once the data is
+// durable. A reading with the same counter and time as one already stored
+// (a sample with the same sensor and time) is counted as a duplicate and
+// not stored again.
+type Sink interface {
+	CommitReadings(ctx context.Context, rs []Reading) (accepted, duplicates int, err error)
+	CommitPressure(ctx context.Context, ps []Pressure) (accepted, duplicates int, err error)
+}
+
+// Result is the answer to an accepted request, also its JSON body.
+type Result struct {
+	Accepted   int `json:"accepted"`
+	Duplicates int `json:"duplicates"`
+}
+
+// Defaults of IngestOptions.
+const (
+	DefaultMaxBodyBytes    = 8 << 20
+	DefaultMaxFuture       = 5 * time.Minute
+	DefaultVolumeTolerance = 0.1
+)
+
+// IngestOptions tunes an [Ingest]; zero fields take the defaults.
+type IngestOptions struct {
+	MaxBodyBytes    int64            // request body limit, default 8 MiB; beyond it 413
+	MaxFuture       time.Duration    // how far ahead of Now a sample may be (clock skew), default 5m
+	Retention       time.Duration    // samples older than Now-Retention are refused; 0 (or < 0) = no limit
+	Now             func() time.Time // clock, default time.Now
+	VolumeTolerance float64          // relative tolerance of volume_l against flow_lpm × sample_s / 60, default 0.1; < 0 turns the check off
+}
+
+// Ingest validates incoming readings and DP samples and commits them to a
+// [Sink]. HTTP requests and programmatic submissions go through the same
+// validation and the same sink. It is safe for concurrent use once its
+// observers are set.
+type Ingest struct {
+	reg      *Registry
+	sink     Sink
+	opt      IngestOptions
+	onRead   []func([]Reading)
+	onPress  []func([]Pressure)
+	onReject []func(Rejection)
+}
+
+// Rejection describes a refused request, for metrics and logs.
+type Rejection struct {
+	Kind string // "readings" or "pressure"
+	// ID is the counter or sensor of the offending element when it was
+	// decoded far enough to tell ("" otherwise; it may be an unknown id).
+	ID  string
+	Err error // an *InputError, or an error wrapping ErrTooLarge or ErrCommit
+}
+
+// NewIngest returns an ingest over the registry and the sink.
+func NewIngest(reg *Registry, sink Sink, opt IngestOptions) *Ingest {
+	if opt.MaxBodyBytes <= 0 {
+		opt.MaxBodyBytes = DefaultMaxBodyBytes
+	}
+	if opt.MaxFuture <= 0 {
+		opt.MaxFuture = DefaultMaxFuture
+	}
+	if opt.Now == nil {
+		opt.Now = time.Now
+	}
+	if opt.VolumeTolerance == 0 {
+		opt.VolumeTolerance = DefaultVolumeTolerance
+	}
+	return &Ingest{reg: reg, sink: sink, opt: opt}
+}
+
+// OnReadings registers f to run after every durable commit of readings
+// (the alarm engine and the live zone state subscribe). f gets the
+// readings handed to the sink, duplicates within the request removed; when
+// the sink reports duplicates of stored rows they are among them, so an
+// observer should ignore a reading not newer than the last it saw from the
+// counter. Observers run in the submitting goroutine before the sender is
+// answered, so they must be quick, and must not modify the readings.
+// Register observers before serving.
+func (in *Ingest) OnReadings(f func([]Reading)) { in.onRead = append(in.onRead, f) }
+
+// OnPressure registers f to run after every durable commit of DP samples,
+// under the same rules as OnReadings.
+func (in *Ingest) OnPressure(f func([]Pressure)) { in.onPress = append(in.onPress, f) }
+
+// OnRejected registers f to run for every refused request (bad input, too
+// large, sink failure). Register before serving.
+func (in *Ingest) OnRejected(f func(Rejection)) { in.onReject = append(in.onReject, f) }
+
+// Registry returns the registry the ingest validates against.
+func (in *Ingest) Registry() *Registry { return in.reg }
+
+// SubmitReadings validates raws and commits them, exactly as a POST of the
+// same array would. The error is an *InputError (nothing committed) or
+// wraps ErrCommit.
+func (in *Ingest) SubmitReadings(ctx context.Context, raws []RawReading) (Result, error) {
+	v := in.validator()
+	rs := make([]Reading, len(raws))
+	for i := range raws {
+		if ie := v.reading(i, &raws[i], &rs[i]); ie != nil {
+			in.rejected("readings", raws[i].Counter, ie)
+			return Result{}, ie
+		}
+	}
+	return in.commitReadings(ctx, rs)
+}
+
+// SubmitPressure validates raws and commits them, exactly as a POST of the
+// same array would. The error is an *InputError (nothing committed) or
+// wraps ErrCommit.
+func (in *Ingest) SubmitPressure(ctx context.Context, raws []RawPressure) (Result, error) {
+	v := in.validator()
+	ps := make([]Pressure, len(raws))
+	for i := range raws {
+		if ie := v.pressure(i, &raws[i], &ps[i]); ie != nil {
+			in.rejected("pressure", raws[i].Sensor, ie)
+			return Result{}, ie
+		}
+	}
+	return in.commitPressure(ctx, ps)
+}
+
+// Readings handles POST /api/v1/readings: a JSON object, a JSON array or
+// NDJSON (Content-Type application/x-ndjson) of readings. 200 with a
+// [Result] once durable; 400 {"error","index","field"} for any bad reading
+// (nothing stored); 405, 413, 415 as usual; 503 when the sink fails.
+func (in *Ingest) Readings(w http.ResponseWriter, r *http.Request) {
+	f, ok := in.precheck(w, r, "readings")
+	if !ok {
+		return
+	}
+	v := in.validator()
+	rs := make([]Reading, 0, 64)
+	lastID := ""
+	_, err := decodeBody(http.MaxBytesReader(w, r.Body, in.opt.MaxBodyBytes), f, int(in.opt.MaxBodyBytes)+1,
+		func(i int, raw *RawReading) *InputError {
+			lastID = raw.Counter
+			rs = append(rs, Reading{})
+			return v.reading(i, raw, &rs[len(rs)-1])
+		})
+	if err != nil {
+		in.rejected("readings", lastID, err)
+		writeError(w, err)
+		return
+	}
+	res, err := in.commitReadings(r.Context(), rs)
+	if err != nil {
+		writeError(w, err)
+		return
+	}
+	writeJSON(w, http.StatusOK, res)
+}
+
+// Pressure handles POST /api/v1/pressure under the same rules as Readings.
+func (in *Ingest) Pressure(w http.ResponseWriter, r *http.Request) {
+	f, ok := in.precheck(w, r, "pressure")
+	if !ok {
+		return
+	}
+	v := in.validator()
+	ps := make([]Pressure, 0, 64)
+	lastID := ""
+	_, err := decodeBody(http.MaxBytesReader(w, r.Body, in.opt.MaxBodyBytes), f, int(in.opt.MaxBodyBytes)+1,
+		func(i int, raw *RawPressure) *InputError {
+			lastID = raw.Sensor
+			ps = append(ps, Pressure{})
+			return v.pressure(i, raw, &ps[len(ps)-1])
+		})
+	if err != nil {
+		in.rejected("pressure", lastID, err)
+		writeError(w, err)
+		return
+	}
+	res, err := in.commitPressure(r.Context(), ps)
+	if err != nil {
+		writeError(w, err)
+		return
+	}
+	writeJSON(w, http.StatusOK, res)
+}
+
+// errMethod and errContentType are answered before the body is read.
+var (
+	errMethod      = errors.New("method not allowed: use POST")
+	errContentType = errors.New("unsupported Content-Type: use application/json or application/x-ndjson")
+)
+
+func (in *Ingest) precheck(w http.ResponseWriter, r *http.Request, kind string) (bodyFormat, bool) {
+	if r.Method != http.MethodPost {
+		w.Header().Set("Allow", http.MethodPost)
+		in.rejected(kind, "", errMethod)
+		writeJSON(w, http.StatusMethodNotAllowed, errorBody{Error: errMethod.Error()})
+		return 0, false
+	}
+	f, ok := formatOf(r.Header.Get("Content-Type"))
+	if !ok {
+		in.rejected(kind, "", errContentType)
+		writeJSON(w, http.StatusUnsupportedMediaType, errorBody{Error: errContentType.Error()})
+		return 0, false
+	}
+	if r.ContentLength > in.opt.MaxBodyBytes {
+		err := fmt.Errorf("%w: %d bytes declared, the limit is %d", ErrTooLarge, r.ContentLength, in.opt.MaxBodyBytes)
+		in.rejected(kind, "", err)
+		writeError(w, err)
+		return 0, false
+	}
+	return f, true
+}
+
+// dupKey identifies a sample: one per instrument and instant.
+type dupKey struct {
+	id string
+	t  int64
+}
+
+func (in *Ingest) commitReadings(ctx context.Context, rs []Reading) (Result, error) {
+	if len(rs) == 0 {
+		return Result{}, nil
+	}
+	uniq, dups := rs, 0
+	if len(rs) > 1 {
+		seen := make(map[dupKey]struct{}, len(rs))
+		uniq = rs[:0:0]
+		for i := range rs {
+			k := dupKey{rs[i].Counter, rs[i].Time.UnixNano()}
+			if _, dup := seen[k]; dup {
+				dups++
+				continue
+			}
+			seen[k] = struct{}{}
+			uniq = append(uniq, rs[i])
+		}
+	}
+	acc, sdup, err := in.sink.CommitReadings(ctx, uniq)
+	if err != nil {
+		err = fmt.Errorf("%w: %w", ErrCommit, err)
+		in.rejected("readings", "", err)
+		return Result{}, err
+	}
+	if acc > 0 {
+		for _, f := range in.onRead {
+			f(uniq)
+		}
+	}
+	return Result{Accepted: acc, Duplicates: sdup + dups}, nil
+}
+
+func (in *Ingest) commitPressure(ctx context.Context, ps []Pressure) (Result, error) {
+	if len(ps) == 0 {
+		return Result{}, nil
+	}
+	uniq, dups := ps, 0
+	if len(ps) > 1 {
+		seen := make(map[dupKey]struct{}, len(ps))
+		uniq = ps[:0:0]
+		for i := range ps {
+			k := dupKey{ps[i].Sensor, ps[i].Time.UnixNano()}
+			if _, dup := seen[k]; dup {
+				dups++
+				continue
+			}
+			seen[k] = struct{}{}
+			uniq = append(uniq, ps[i])
+		}
+	}
+	acc, sdup, err := in.sink.CommitPressure(ctx, uniq)
+	if err != nil {
+		err = fmt.Errorf("%w: %w", ErrCommit, err)
+		in.rejected("pressure", "", err)
+		return Result{}, err
+	}
+	if acc > 0 {
+		for _, f := range in.onPress {
+			f(uniq)
+		}
+	}
+	return Result{Accepted: acc, Duplicates: sdup + dups}, nil
+}
+
+func (in *Ingest) rejected(kind, id string, err error) {
+	for _, f := range in.onReject {
+		f(Rejection{Kind: kind, ID: id, Err: err})
+	}
+}
+
+// errorBody is the JSON of every refusal; index and field are present for
+// a bad element.
+type errorBody struct {
+	Error string  `json:"error"`
+	Index *int    `json:"index,omitempty"`
+	Field *string `json:"field,omitempty"`
+	Line  int     `json:"line,omitempty"`
+}
+
+func writeError(w http.ResponseWriter, err error) {
+	var ie *InputError
+	switch {
+	case errors.As(err, &ie):
+		writeJSON(w, http.StatusBadRequest, errorBody{Error: ie.Error(), Index: &ie.Index, Field: &ie.Field, Line: ie.Line})
+	case errors.Is(err, ErrTooLarge):
+		writeJSON(w, http.StatusRequestEntityTooLarge, errorBody{Error: err.Error()})
+	case errors.Is(err, ErrCommit):
+		writeJSON(w, http.StatusServiceUnavailable, errorBody{Error: err.Error()})
+	default:
+		writeJSON(w, http.StatusInternalServerError, errorBody{Error: err.Error()})
+	}
+}
+
+func writeJSON(w http.ResponseWriter, status int, v any) {
+	w.Header().Set("Content-Type", "application/json")
+	w.Header().Set("X-Content-Type-Options", "nosniff")
+	w.WriteHeader(status)
+	enc := json.NewEncoder(w)
+	enc.SetEscapeHTML(false) // the messages quote "≥" and "> 0", not HTML
+	_ = enc.Encode(v)
+}

@@ -1,0 +1,44 @@
+package store
+
+import "time"
+
+// schemaVersion is stored under metaSchema. Bump it when the layout or a
+// value encoding changes in a way older binaries cannot read.
+const schemaVersion = 1
+
+// Top-level buckets, one per kind of record. Later kinds (alarm journal,
+// audit chain, notification outbox) are added here, to knownBuckets, and
+// to Verify.
+var (
+	bucketMeta      = []byte("meta")       // schema version, sweep horizon
+	bucketReadings  = []byte("readings")   // counter → time → reading
+	bucketPressure  = []byte("pressure")   // sensor → time → pressure
+	bucketRollup1m  = []byte("rollups_1m") // counter → bucket start → rollup
+	bucketRollup1h  = []byte("rollups_1h") // counter → bucket start → rollup
+	bucketOpState   = []byte("opstate")    // zone → sequence → state change
+	knownBuckets    = [][]byte{bucketMeta, bucketReadings, bucketPressure, bucketRollup1m, bucketRollup1h, bucketOpState}
+	metaSchema      = []byte("schema")       // uvarint schemaVersion
+	metaSweptBefore = []byte("swept_before") // 8-byte key: latest Sweep horizon
+)
+
+// rollupSteps lists the rollup resolutions maintained on every append.
+var rollupSteps = []struct {
+	step   time.Duration
+	bucket []byte
+}{
+	{time.Minute, bucketRollup1m},
+	{time.Hour, bucketRollup1h},
+}
+
+func rollupBucket(step time.Duration) []byte {
+	for _, r := range rollupSteps {
+		if r.step == step {
+			return r.bucket
+		}
+	}
+	return nil
+}
+
+// fillPercent packs pages densely: keys are time-ordered and nearly always
+// appended at the end, so bbolt's default half-full split wastes space.
+const fillPercent = 0.9

@@ -1,0 +1,47 @@
+// Package store is the embedded database of the daemon: one bbolt file,
+// dir/cleanmon.db, holding particle-counter readings, differential-pressure
+// samples, per-minute and per-hour rollups, and the operating-state history
+// of each zone.
+//
+// # Durability
+//
+// Every Append and SetOperatingState call returns only after its
+// transaction has been fsynced (Options.NoSync exists for tests only), so a
+// sender may be acknowledged as soon as the call returns: the record
+// survives a crash or kill -9. A call is all-or-nothing: the whole slice is
+// validated first (a *RecordError names the index and field of the first
+// bad record) and then stored in one transaction, or nothing is.
+//
+// # Group commit
+//
+// Concurrent callers share transactions. A single committer goroutine takes
+// every request that is waiting when it starts a transaction and commits
+// them together, so N concurrent callers pay for about one fsync rather
+// than N. The alternative, bbolt's DB.Batch, was measured against it (see
+// the benchmarks in bench_test.go): Batch waits for its batch timer before
+// every transaction, which costs a lone caller that delay on every call,
+// and it runs a failing request alone with a second transaction.
+//
+// # Layout
+//
+// One top-level bucket per kind of record (see buckets.go), a nested bucket
+// per counter, sensor or zone, and 8-byte big-endian Unix-nanosecond keys,
+// so that a cursor walks time in order. Values are a compact binary
+// encoding (codec.go) that starts with a version byte and ends with a
+// CRC-32C over key and value: bbolt checksums only its meta pages, and the
+// audit trail must show when a stored value changed.
+//
+// Channel sizes are stored inline in every reading rather than in a
+// per-counter header. They cost about two bytes per channel (whole
+// nanometres as varints), each value stays self-describing, a change of a
+// counter's channels needs no header versioning, and one damaged value
+// cannot take a counter's whole history with it.
+//
+// # Damage
+//
+// Open refuses a truncated or damaged file with an error wrapping
+// ErrCorrupt that points at `cleanmon verify` and the latest backup; panics
+// and memory faults that bbolt raises on damaged pages are turned into
+// ErrCorrupt where Go allows it. Verify runs bbolt's page check and the
+// store's own invariants on a file that no daemon holds open.
+package store

@@ -1,0 +1,201 @@
+package store
+
+import (
+	"context"
+	"fmt"
+	"math/bits"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+
+	"cleanmon/classify"
+)
+
+// maxSizeUM bounds a channel threshold; no particle-counter channel is
+// near a millimetre (common practice, no source), so larger is garbage.
+const maxSizeUM = 1000
+
+// Reading is one particle-counter sample as received, plus what is derived
+// from it. Counter and Time identify it: a second reading with the same
+// pair is a duplicate.
+type Reading struct {
+	Counter       string
+	Time          time.Time // kept at nanosecond resolution, returned in UTC
+	VolumeL       float64   // sampled air volume in litres, > 0
+	FlowLPM       float64   // 0 = not reported
+	SampleSeconds float64   // 0 = not reported
+	Status        string    // "ok", "warning", "fault"; "" = not reported
+	Differential  bool      // Counts are per channel as received (else cumulative)
+	Sizes         []float64 // channel thresholds in µm, strictly ascending
+	Counts        []uint64  // as received, aligned with Sizes
+}
+
+// Cumulative returns the count at or above each size: Counts as they are
+// when cumulative, summed from the largest channel down when differential.
+func (r Reading) Cumulative() []uint64 {
+	if r.Differential {
+		return classify.CumulativeFromDifferential(r.Counts)
+	}
+	return append([]uint64(nil), r.Counts...)
+}
+
+// PerM3 returns the cumulative concentration at each size in particles/m³.
+func (r Reading) PerM3() []float64 {
+	cum := r.Cumulative()
+	out := make([]float64, len(cum))
+	for i, c := range cum {
+		out[i] = classify.PerCubicMetre(c, r.VolumeL)
+	}
+	return out
+}
+
+// checkReading returns the first bad field of r and why, or "", "".
+func checkReading(r *Reading) (field, reason string) {
+	if why := checkName(r.Counter); why != "" {
+		return "Counter", why
+	}
+	if why := checkTime(r.Time); why != "" {
+		return "Time", why
+	}
+	if !finite(r.VolumeL) || r.VolumeL <= 0 {
+		return "VolumeL", fmt.Sprintf("%v litres; the sampled volume must be positive", r.VolumeL)
+	}
+	if !finite(r.FlowLPM) || r.FlowLPM < 0 {
+		return "FlowLPM", fmt.Sprintf("%v L/min; must be positive, or 0 when not reported", r.FlowLPM)
+	}
+	if !finite(r.SampleSeconds) || r.SampleSeconds < 0 {
+		return "SampleSeconds", fmt.Sprintf("%v s; must be positive, or 0 when not reported", r.SampleSeconds)
+	}
+	if _, ok := statusCode(r.Status); !ok {
+		return "Status", fmt.Sprintf("%q is not one of ok, warning, fault", r.Status)
+	}
+	if len(r.Sizes) == 0 {
+		return "Sizes", "no channels"
+	}
+	if len(r.Sizes) > maxChannels {
+		return "Sizes", fmt.Sprintf("%d channels, more than %d", len(r.Sizes), maxChannels)
+	}
+	for i, sz := range r.Sizes {
+		if !finite(sz) || sz <= 0 || sz > maxSizeUM {
+			return fmt.Sprintf("Sizes[%d]", i), fmt.Sprintf("%v µm is not a channel size (0 < size ≤ %d µm)", sz, maxSizeUM)
+		}
+		if i > 0 && sz <= r.Sizes[i-1] {
+			return fmt.Sprintf("Sizes[%d]", i), fmt.Sprintf("%v µm does not follow %v µm in ascending order", sz, r.Sizes[i-1])
+		}
+	}
+	if len(r.Counts) != len(r.Sizes) {
+		return "Counts", fmt.Sprintf("%d counts for %d sizes", len(r.Counts), len(r.Sizes))
+	}
+	if r.Differential {
+		var sum uint64
+		for i, c := range r.Counts {
+			var carry uint64
+			if sum, carry = bits.Add64(sum, c, 0); carry != 0 {
+				return fmt.Sprintf("Counts[%d]", i), "channel counts overflow when summed"
+			}
+		}
+	}
+	return "", ""
+}
+
+// preparedReading is a checked reading ready for any number of
+// transaction attempts.
+type preparedReading struct {
+	counter string
+	ns      int64
+	key     []byte
+	val     []byte
+	sizes   []float64
+	perM3   []float64
+}
+
+func prepareReadings(rs []Reading) ([]preparedReading, error) {
+	out := make([]preparedReading, len(rs))
+	for i := range rs {
+		r := &rs[i]
+		if field, reason := checkReading(r); field != "" {
+			return nil, &RecordError{Kind: "reading", Index: i, Field: field, Reason: reason}
+		}
+		key := timeKey(r.Time)
+		per := r.PerM3()
+		for j, v := range per {
+			if !finite(v) {
+				return nil, &RecordError{Kind: "reading", Index: i, Field: fmt.Sprintf("Counts[%d]", j), Reason: "concentration is not finite"}
+			}
+		}
+		out[i] = preparedReading{
+			counter: r.Counter,
+			ns:      r.Time.UnixNano(),
+			key:     key,
+			val:     encodeReading(key, r),
+			sizes:   append([]float64(nil), r.Sizes...),
+			perM3:   per,
+		}
+	}
+	return out, nil
+}
+
+// AppendReadings stores rs in one durable transaction and updates the
+// minute and hour rollups in it. A reading whose counter and time are
+// already stored, or repeated within rs, is counted in duplicates and not
+// stored again; its content is not compared. Any invalid reading fails
+// the call with a *RecordError and nothing is stored.
+func (s *Store) AppendReadings(ctx context.Context, rs []Reading) (accepted, duplicates int, err error) {
+	if err := s.enter(); err != nil {
+		return 0, 0, err
+	}
+	defer s.exit()
+	if len(rs) == 0 {
+		return 0, 0, ctx.Err()
+	}
+	prep, err := prepareReadings(rs)
+	if err != nil {
+		return 0, 0, err
+	}
+	var acc, dup int
+	err = s.submit(ctx, len(prep), func(tx *bolt.Tx) error {
+		acc, dup = 0, 0
+		return s.putReadings(tx, prep, &acc, &dup)
+	})
+	if err != nil {
+		return 0, 0, err
+	}
+	return acc, dup, nil
+}
+
+func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int) error {
+	series := newSeriesBuckets(tx, bucketReadings)
+	rollups := newRollupSet(tx, s.log)
+	for i := range prep {
+		p := &prep[i]
+		b, err := series.get(p.counter)
+		if err != nil {
+			return err
+		}
+		if b.Get(p.key) != nil {
+			*dup++
+			continue
+		}
+		if err := b.Put(p.key, p.val); err != nil {
+			return fmt.Errorf("store: put reading of %q: %w", p.counter, err)
+		}
+		*acc++
+		if err := rollups.add(b, p); err != nil {
+			return err
+		}
+	}
+	return rollups.flush()
+}
+
+// ScanReadings calls fn with each reading of counter in [from, to), oldest
+// first, inside one read transaction; a zero from or to is unbounded. An
+// error from fn stops the scan and is returned. fn must not write to the
+// store (a write would wait on this transaction).
+func (s *Store) ScanReadings(counter string, from, to time.Time, fn func(Reading) error) error {
+	return scanSeries(s, bucketReadings, counter, from, to, decodeReading, fn)
+}
+
+// LatestReading returns the newest reading of counter; false if it has none.
+func (s *Store) LatestReading(counter string) (Reading, bool, error) {
+	return latestSeries(s, bucketReadings, counter, decodeReading)
+}

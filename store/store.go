@@ -1,0 +1,385 @@
+package store
+
+import (
+	"bytes"
+	"encoding/binary"
+	"errors"
+	"fmt"
+	"io/fs"
+	"log/slog"
+	"os"
+	"path/filepath"
+	"runtime/debug"
+	"strconv"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+)
+
+// FileName is the database file inside the data directory.
+const FileName = "cleanmon.db"
+
+// DefaultLockTimeout is how long Open waits for the file lock when
+// Options.LockTimeout is zero: long enough to ride over a restart, short
+// enough that a second daemon on the same directory is refused at once.
+const DefaultLockTimeout = time.Second
+
+// initialMmap is mapped up front so that a long read transaction (a year
+// of readings streamed to a slow HTTP client, a backup) rarely holds up a
+// writer: bbolt must wait for readers before it can grow the mapping. It
+// is address space, not memory or disk.
+var initialMmap = func() int {
+	if strconv.IntSize == 64 {
+		return 1 << 30
+	}
+	return 64 << 20
+}()
+
+// Options tune Open. The zero value is right for the daemon.
+type Options struct {
+	// LockTimeout bounds the wait for the file lock (default
+	// DefaultLockTimeout). A lock still held after it gives ErrLocked.
+	LockTimeout time.Duration
+	// NoSync skips fsync on commit. Tests only: a crash loses
+	// acknowledged records.
+	NoSync bool
+	// MaxBytes caps the database file (0: no cap). A commit that would
+	// grow the file beyond it fails with ErrDiskFull, like a full disk.
+	MaxBytes int64
+	// Logger receives the rare events the caller cannot see in a return
+	// value (a damaged rollup rebuilt, a recovered panic). Nil: discarded.
+	Logger *slog.Logger
+
+	commit       commitMode // how writes share transactions (tests, benchmarks)
+	beforeCommit func()     // test hook: runs before a group is collected
+}
+
+// Store is an open database. Its methods are safe for concurrent use.
+type Store struct {
+	db   *bolt.DB
+	path string
+	opt  Options
+	log  *slog.Logger
+
+	mu       sync.Mutex
+	closed   bool
+	inflight sync.WaitGroup
+
+	reqs          chan *request
+	committerDone chan struct{}
+	commits       atomic.Uint64 // write transactions committed for grouped calls
+	lastBatchTx   atomic.Pointer[bolt.Tx]
+}
+
+// Open opens, or creates, the store in dir (created 0700 if missing) and
+// its file dir/cleanmon.db. A file held by another process gives ErrLocked
+// after Options.LockTimeout; a truncated or damaged file gives ErrCorrupt;
+// a file of a newer program version gives ErrSchema.
+func Open(dir string, opt Options) (*Store, error) {
+	if dir == "" {
+		return nil, fmt.Errorf("%w: empty data directory", ErrInvalid)
+	}
+	if opt.LockTimeout <= 0 {
+		opt.LockTimeout = DefaultLockTimeout
+	}
+	if opt.MaxBytes < 0 {
+		return nil, fmt.Errorf("%w: MaxBytes %d is negative", ErrInvalid, opt.MaxBytes)
+	}
+	if err := os.MkdirAll(dir, 0o700); err != nil {
+		return nil, fmt.Errorf("store: create data directory: %w", err)
+	}
+	path := filepath.Join(dir, FileName)
+	if err := probeFile(path, opt.LockTimeout); err != nil {
+		return nil, err
+	}
+	log := opt.Logger
+	if log == nil {
+		log = slog.New(slog.DiscardHandler)
+	}
+	db, err := openBolt(path, &bolt.Options{
+		Timeout:         opt.LockTimeout,
+		NoSync:          opt.NoSync,
+		MaxSize:         int(opt.MaxBytes),
+		InitialMmapSize: initialMmap,
+		FreelistType:    bolt.FreelistMapType,
+	})
+	if err != nil {
+		return nil, err
+	}
+	s := &Store{
+		db:            db,
+		path:          path,
+		opt:           opt,
+		log:           log,
+		reqs:          make(chan *request, 1024),
+		committerDone: make(chan struct{}),
+	}
+	if err := s.initSchema(); err != nil {
+		_ = db.Close()
+		return nil, err
+	}
+	go s.committer()
+	return s, nil
+}
+
+// Path is the database file.
+func (s *Store) Path() string { return s.path }
+
+// Close waits for the calls in flight (commits included) to return, then
+// closes the file. Calls made after Close begins return ErrClosed. A
+// second Close returns nil.
+func (s *Store) Close() error {
+	s.mu.Lock()
+	if s.closed {
+		s.mu.Unlock()
+		return nil
+	}
+	s.closed = true
+	s.mu.Unlock()
+	s.inflight.Wait()
+	close(s.reqs)
+	<-s.committerDone
+	return s.db.Close()
+}
+
+// enter registers a call in flight; every exported method that touches
+// the database brackets itself with enter and exit.
+func (s *Store) enter() error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.closed {
+		return ErrClosed
+	}
+	s.inflight.Add(1)
+	return nil
+}
+
+func (s *Store) exit() { s.inflight.Done() }
+
+func lockedError(path string) error {
+	return fmt.Errorf("%w: %s is held by another process (is a second daemon using this data directory?)", ErrLocked, path)
+}
+
+func corruptError(path string, detail error) error {
+	return fmt.Errorf("%w: %s: %v; %s", ErrCorrupt, path, detail, corruptHint(path))
+}
+
+// openBolt opens the file, turning bbolt's errors and its panics on
+// damaged meta or freelist pages into store errors. A panic inside
+// bolt.Open leaves no *DB to close, so the file it opened is captured and
+// closed here: otherwise its lock would outlive the failure.
+func openBolt(path string, o *bolt.Options) (db *bolt.DB, err error) {
+	var file *os.File
+	o.OpenFile = func(name string, flag int, perm os.FileMode) (*os.File, error) {
+		f, err := os.OpenFile(name, flag, perm)
+		file = f
+		return f, err
+	}
+	defer debug.SetPanicOnFault(debug.SetPanicOnFault(true))
+	defer func() {
+		if r := recover(); r != nil {
+			if file != nil {
+				_ = file.Close()
+			}
+			db, err = nil, corruptError(path, fmt.Errorf("bbolt panicked while opening: %v", r))
+		}
+	}()
+	db, err = bolt.Open(path, 0o600, o)
+	switch {
+	case err == nil:
+		return db, nil
+	case errors.Is(err, bolt.ErrTimeout):
+		return nil, lockedError(path)
+	case errors.Is(err, fs.ErrPermission), errors.Is(err, fs.ErrNotExist):
+		return nil, fmt.Errorf("store: open %s: %w", path, err)
+	}
+	return nil, corruptError(path, err)
+}
+
+// probeFile opens an existing file read-only and checks that it is as
+// long as its meta page says: bbolt does not check the length itself, and
+// a read past the end of a mapping is a fatal fault. The probe also loads
+// the freelist, where bbolt panics on a damaged freelist page: a panic
+// inside bolt.Open leaks its mapping, and the mapping keeps the file's
+// lock, so it had better be the shared lock of this read-only probe (a
+// later Verify or Open still gets in and reports ErrCorrupt) than the
+// exclusive one of the write open. An existing empty file is refused
+// rather than silently started afresh.
+func probeFile(path string, timeout time.Duration) error {
+	info, err := os.Stat(path)
+	if errors.Is(err, fs.ErrNotExist) {
+		return nil
+	}
+	if err != nil {
+		return fmt.Errorf("store: %w", err)
+	}
+	if !info.Mode().IsRegular() {
+		return fmt.Errorf("%w: %s is not a regular file", ErrInvalid, path)
+	}
+	if info.Size() == 0 {
+		return corruptError(path, errors.New("the file is empty (a store file is never empty)"))
+	}
+	db, err := openBolt(path, &bolt.Options{ReadOnly: true, Timeout: timeout, PreLoadFreelist: true})
+	if err != nil {
+		return err
+	}
+	defer db.Close()
+	return checkLength(db, path, info.Size())
+}
+
+func checkLength(db *bolt.DB, path string, size int64) error {
+	return db.View(func(tx *bolt.Tx) error {
+		if need := tx.Size(); size < need {
+			return corruptError(path, fmt.Errorf("the file is truncated: %d bytes, its meta page needs %d", size, need))
+		}
+		return nil
+	})
+}
+
+// initSchema checks the meta bucket and creates what is missing: all of it
+// in a new file, new kinds of bucket in an older one.
+func (s *Store) initSchema() error {
+	missing := false
+	err := s.view(func(tx *bolt.Tx, _ *guard) error {
+		meta := tx.Bucket(bucketMeta)
+		if meta == nil {
+			var other []string
+			_ = tx.ForEach(func(name []byte, _ *bolt.Bucket) error {
+				other = append(other, string(name))
+				return nil
+			})
+			if len(other) > 0 {
+				return corruptError(s.path, fmt.Errorf("no %q bucket but %q: not a cleanmon store", bucketMeta, other))
+			}
+			missing = true
+			return nil
+		}
+		if err := checkSchema(meta); err != nil {
+			if errors.Is(err, ErrSchema) {
+				return fmt.Errorf("%w: %s: %v", ErrSchema, s.path, err)
+			}
+			return corruptError(s.path, err)
+		}
+		for _, name := range knownBuckets {
+			if tx.Bucket(name) == nil {
+				missing = true
+			}
+		}
+		return probeLatest(tx)
+	})
+	if err != nil {
+		if !errors.Is(err, ErrCorrupt) && !errors.Is(err, ErrSchema) {
+			err = corruptError(s.path, err)
+		}
+		return err
+	}
+	if !missing {
+		return nil
+	}
+	return s.update(func(tx *bolt.Tx) error {
+		for _, name := range knownBuckets {
+			if _, err := tx.CreateBucketIfNotExists(name); err != nil {
+				return err
+			}
+		}
+		meta := tx.Bucket(bucketMeta)
+		if meta.Get(metaSchema) == nil {
+			return meta.Put(metaSchema, binary.AppendUvarint(nil, schemaVersion))
+		}
+		return nil
+	})
+}
+
+func checkSchema(meta *bolt.Bucket) error {
+	v := meta.Get(metaSchema)
+	ver, n := binary.Uvarint(v)
+	if n <= 0 || n != len(v) {
+		return fmt.Errorf("schema version %x is not a varint", v)
+	}
+	if ver == 0 || ver > schemaVersion {
+		return fmt.Errorf("%w: the file has schema %d, this program reads up to %d", ErrSchema, ver, schemaVersion)
+	}
+	return nil
+}
+
+// probeLatest decodes the newest record of every series: the pages a
+// daemon reads first after a restart, checked before it acknowledges
+// anything.
+func probeLatest(tx *bolt.Tx) error {
+	for _, kind := range [][]byte{bucketReadings, bucketPressure, bucketRollup1m, bucketRollup1h, bucketOpState} {
+		root := tx.Bucket(kind)
+		if root == nil {
+			continue
+		}
+		err := root.ForEachBucket(func(name []byte) error {
+			b := root.Bucket(name)
+			k, v := b.Cursor().Last()
+			if k == nil {
+				return nil
+			}
+			var err error
+			switch {
+			case bytes.Equal(kind, bucketReadings):
+				_, err = decodeReading(string(name), k, v)
+			case bytes.Equal(kind, bucketPressure):
+				_, err = decodePressure(string(name), k, v)
+			case bytes.Equal(kind, bucketOpState):
+				_, err = decodeOpState(string(name), k, v)
+			case bytes.Equal(kind, bucketRollup1m):
+				_, err = decodeRollup(string(name), time.Minute, k, v)
+			default:
+				_, err = decodeRollup(string(name), time.Hour, k, v)
+			}
+			return err
+		})
+		if err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// guard tells the recover in view whether a panic came from the caller's
+// callback (let it go with its own stack) or from bbolt (a damaged page).
+type guard struct{ inUser bool }
+
+func (g *guard) call(f func() error) error {
+	g.inUser = true
+	err := f()
+	g.inUser = false
+	return err
+}
+
+// view runs a read transaction, converting bbolt panics and memory faults
+// on damaged pages into ErrCorrupt.
+func (s *Store) view(fn func(tx *bolt.Tx, g *guard) error) (err error) {
+	g := &guard{}
+	defer debug.SetPanicOnFault(debug.SetPanicOnFault(true))
+	defer func() {
+		if !g.inUser {
+			if r := recover(); r != nil {
+				err = s.panicError("read", r)
+			}
+		}
+	}()
+	return s.db.View(func(tx *bolt.Tx) error { return fn(tx, g) })
+}
+
+// update runs a write transaction with the same protection as view and
+// maps commit failures (disk full) to store errors.
+func (s *Store) update(fn func(tx *bolt.Tx) error) (err error) {
+	defer debug.SetPanicOnFault(debug.SetPanicOnFault(true))
+	defer func() {
+		if r := recover(); r != nil {
+			err = s.panicError("write", r)
+		}
+	}()
+	return commitError(s.db.Update(fn))
+}
+
+func (s *Store) panicError(op string, r any) error {
+	s.log.Error("store: recovered panic", "op", op, "path", s.path, "panic", fmt.Sprint(r), "stack", string(debug.Stack()))
+	return corruptError(s.path, fmt.Errorf("%s transaction panicked: %v", op, r))
+}

@@ -1,0 +1,132 @@
+package store
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+)
+
+// sweepChunk bounds the deletions of one Sweep transaction, so that a
+// year of expiry neither holds the writer lock for long nor builds a huge
+// transaction; appends run between chunks.
+const sweepChunk = 20000
+
+// SweepResult reports what a Sweep deleted.
+type SweepResult struct {
+	Before                      time.Time
+	Readings, Pressure, Rollups int
+}
+
+// Sweep deletes the readings and pressure samples with Time strictly
+// before before, and the rollups whose whole bucket lies before it
+// (Start+Step ≤ before); a bucket that straddles before is kept, and
+// Verify stops comparing it with its readings. Operating-state history is
+// kept. Sweep commits in chunks; when ctx ends it returns what went so far
+// with ctx's error.
+func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error) {
+	if err := s.enter(); err != nil {
+		return SweepResult{}, err
+	}
+	defer s.exit()
+	if before.IsZero() {
+		return SweepResult{}, fmt.Errorf("%w: sweep before a zero time", ErrInvalid)
+	}
+	res := SweepResult{Before: before.UTC()}
+	if !before.After(minTime) {
+		return res, nil
+	}
+	limit := int64(math.MaxInt64)
+	if before.Before(maxTime) {
+		limit = before.UnixNano()
+	}
+	for first := true; ; first = false {
+		if err := ctx.Err(); err != nil {
+			return res, err
+		}
+		var readings, pressure, rollups int
+		budget := sweepChunk
+		err := s.update(func(tx *bolt.Tx) error {
+			readings, pressure, rollups, budget = 0, 0, 0, sweepChunk
+			if first {
+				meta := tx.Bucket(bucketMeta)
+				if old, ok := keyNanos(meta.Get(metaSweptBefore)); !ok || old < limit {
+					if err := meta.Put(metaSweptBefore, nanosKey(limit)); err != nil {
+						return err
+					}
+				}
+			}
+			var err error
+			if readings, err = sweepKind(tx.Bucket(bucketReadings), limit, &budget); err != nil {
+				return err
+			}
+			if pressure, err = sweepKind(tx.Bucket(bucketPressure), limit, &budget); err != nil {
+				return err
+			}
+			for _, st := range rollupSteps {
+				lim := limit - int64(st.step) + 1 // Start+Step ≤ before
+				if lim <= 0 {
+					continue
+				}
+				n, err := sweepKind(tx.Bucket(st.bucket), lim, &budget)
+				if err != nil {
+					return err
+				}
+				rollups += n
+			}
+			return nil
+		})
+		if err != nil {
+			return res, err
+		}
+		res.Readings += readings
+		res.Pressure += pressure
+		res.Rollups += rollups
+		if budget > 0 {
+			return res, nil
+		}
+	}
+}
+
+// sweepKind deletes keys below limit from every series of root, at most
+// *budget of them, and drops series left empty.
+func sweepKind(root *bolt.Bucket, limit int64, budget *int) (int, error) {
+	var names [][]byte
+	if err := root.ForEachBucket(func(name []byte) error {
+		names = append(names, append([]byte(nil), name...))
+		return nil
+	}); err != nil {
+		return 0, err
+	}
+	deleted := 0
+	for _, name := range names {
+		if *budget <= 0 {
+			break
+		}
+		b := root.Bucket(name)
+		var keys [][]byte
+		c := b.Cursor()
+		for k, _ := c.First(); k != nil && len(keys) < *budget; k, _ = c.Next() {
+			ns, ok := keyNanos(k)
+			if !ok || ns >= limit {
+				break
+			}
+			keys = append(keys, append([]byte(nil), k...))
+		}
+		for _, k := range keys {
+			if err := b.Delete(k); err != nil {
+				return deleted, err
+			}
+		}
+		deleted += len(keys)
+		*budget -= len(keys)
+		if k, _ := b.Cursor().First(); k == nil {
+			if err := root.DeleteBucket(name); err != nil {
+				return deleted, err
+			}
+		}
+	}
+	return deleted, nil
+}

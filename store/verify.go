@@ -1,0 +1,281 @@
+package store
+
+import (
+	"bytes"
+	"errors"
+	"fmt"
+	"os"
+	"path/filepath"
+	"runtime/debug"
+	"strings"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+)
+
+// maxProblems caps the list Verify returns; a systematic fault would
+// otherwise repeat once per record.
+const maxProblems = 1000
+
+// Verify checks a store file that no daemon holds open: bbolt's page
+// check (tx.Check), then the store's own invariants: the known buckets
+// and schema, every key an ordered 8-byte time, every value decoding with
+// a matching checksum (counts aligned with sizes), and every rollup's
+// sample count equal to the readings in its bucket (buckets older than
+// the last Sweep excepted). path is the file or its data directory.
+//
+// It returns every problem found, at most 1000 listed. The error is for a
+// check that could not run: the file missing or held by a daemon
+// (ErrLocked: stop it, or verify a copy from Backup), or too damaged to
+// open (ErrCorrupt, with the reason also in the list).
+func Verify(path string) (problems []string, err error) {
+	if info, serr := os.Stat(path); serr == nil && info.IsDir() {
+		path = filepath.Join(path, FileName)
+	}
+	info, err := os.Stat(path)
+	if err != nil {
+		return nil, fmt.Errorf("store: verify: %w", err)
+	}
+	if info.Size() == 0 {
+		err := corruptError(path, errors.New("the file is empty"))
+		return []string{"the file is empty"}, err
+	}
+	db, err := openBolt(path, &bolt.Options{ReadOnly: true, Timeout: DefaultLockTimeout})
+	if err != nil {
+		if errors.Is(err, ErrLocked) {
+			return nil, fmt.Errorf("%w; stop the daemon, or verify a copy made with `cleanmon backup`", err)
+		}
+		if errors.Is(err, ErrCorrupt) {
+			return []string{trimCorrupt(err)}, err
+		}
+		return nil, err
+	}
+	defer db.Close()
+	if err := checkLength(db, path, info.Size()); err != nil {
+		return []string{trimCorrupt(err)}, err
+	}
+	v := &verifier{}
+	// bbolt's check recovers its own panics and stops at the first one;
+	// the store's walk runs in its own transaction, series by series, so
+	// the report still says which series are readable.
+	v.guarded("bbolt check", func() {
+		_ = db.View(func(tx *bolt.Tx) error {
+			for err := range tx.Check() {
+				v.add("bbolt: %v", err)
+			}
+			return nil
+		})
+	})
+	v.guarded("store check", func() { _ = db.View(v.run) })
+	if v.dropped > 0 {
+		v.problems = append(v.problems, fmt.Sprintf("… and %d more problems not listed", v.dropped))
+	}
+	return v.problems, nil
+}
+
+func trimCorrupt(err error) string {
+	return strings.TrimPrefix(err.Error(), ErrCorrupt.Error()+": ")
+}
+
+type verifier struct {
+	problems    []string
+	dropped     int
+	sweptBefore int64
+}
+
+func (v *verifier) add(format string, args ...any) {
+	if len(v.problems) >= maxProblems {
+		v.dropped++
+		return
+	}
+	v.problems = append(v.problems, fmt.Sprintf(format, args...))
+}
+
+func (v *verifier) addErr(err error) {
+	if errors.Is(err, ErrCorrupt) {
+		v.add("%s", trimCorrupt(err))
+		return
+	}
+	v.add("%v", err)
+}
+
+// guarded runs fn, reporting a panic or memory fault (a damaged page) as
+// a problem of where.
+func (v *verifier) guarded(where string, fn func()) {
+	defer debug.SetPanicOnFault(debug.SetPanicOnFault(true))
+	defer func() {
+		if r := recover(); r != nil {
+			v.add("%s: reading its pages failed: %v", where, r)
+		}
+	}()
+	fn()
+}
+
+func (v *verifier) run(tx *bolt.Tx) error {
+	known := map[string]bool{}
+	for _, name := range knownBuckets {
+		known[string(name)] = true
+		if tx.Bucket(name) == nil {
+			v.add("bucket %q is missing", name)
+		}
+	}
+	_ = tx.ForEach(func(name []byte, _ *bolt.Bucket) error {
+		if !known[string(name)] {
+			v.add("unknown top-level bucket %q", name)
+		}
+		return nil
+	})
+	if meta := tx.Bucket(bucketMeta); meta != nil {
+		if err := checkSchema(meta); err != nil {
+			v.add("meta: %v", err)
+		}
+		if raw := meta.Get(metaSweptBefore); raw != nil {
+			ns, ok := keyNanos(raw)
+			if !ok {
+				v.add("meta: sweep horizon %x is not an 8-byte time", raw)
+			}
+			v.sweptBefore = ns
+		}
+	}
+	v.walk(tx, bucketReadings, func(name string, k, val []byte) error {
+		_, err := decodeReading(name, k, val)
+		return err
+	})
+	v.walk(tx, bucketPressure, func(name string, k, val []byte) error {
+		_, err := decodePressure(name, k, val)
+		return err
+	})
+	v.walk(tx, bucketOpState, func(name string, k, val []byte) error {
+		_, err := decodeOpState(name, k, val)
+		return err
+	})
+	for _, st := range rollupSteps {
+		step := st.step
+		v.walk(tx, st.bucket, func(name string, k, val []byte) error {
+			_, err := decodeRollup(name, step, k, val)
+			return err
+		})
+		v.guarded(fmt.Sprintf("%s against readings", st.bucket), func() { v.rollupCounts(tx, st.bucket, step) })
+	}
+	return nil
+}
+
+// walk checks the layout of one kind: nested buckets only, each holding
+// values under strictly ascending 8-byte keys that decode.
+func (v *verifier) walk(tx *bolt.Tx, kind []byte, decode func(name string, k, val []byte) error) {
+	root := tx.Bucket(kind)
+	if root == nil {
+		return
+	}
+	v.guarded(string(kind), func() { v.walkKind(root, kind, decode) })
+}
+
+func (v *verifier) walkKind(root *bolt.Bucket, kind []byte, decode func(name string, k, val []byte) error) {
+	_ = root.ForEach(func(name, val []byte) error {
+		if val != nil {
+			v.add("%s: entry %q is a value, not a bucket", kind, name)
+			return nil
+		}
+		if why := checkName(string(name)); why != "" {
+			v.add("%s: bucket name %q: %s", kind, name, why)
+		}
+		v.guarded(fmt.Sprintf("%s/%s", kind, name), func() { v.walkSeries(kind, name, root.Bucket(name), decode) })
+		return nil
+	})
+}
+
+func (v *verifier) walkSeries(kind, name []byte, b *bolt.Bucket, decode func(name string, k, val []byte) error) {
+	var prev []byte
+	c := b.Cursor()
+	for k, val := c.First(); k != nil; k, val = c.Next() {
+		switch {
+		case val == nil:
+			v.add("%s/%s: %s is a bucket, not a value", kind, name, keyString(k))
+			continue
+		case len(k) != 8:
+			v.add("%s/%s: key %x is not 8 bytes", kind, name, k)
+			continue
+		case prev != nil && bytes.Compare(k, prev) <= 0:
+			v.add("%s/%s: key %s does not follow %s", kind, name, keyString(k), keyString(prev))
+		}
+		prev = append(prev[:0], k...)
+		if err := decode(string(name), k, val); err != nil {
+			v.addErr(err)
+		}
+	}
+}
+
+// rollupCounts compares every rollup bucket's sample count with the
+// readings that fall in it, in both directions.
+func (v *verifier) rollupCounts(tx *bolt.Tx, kind []byte, step time.Duration) {
+	readings, rollups := tx.Bucket(bucketReadings), tx.Bucket(kind)
+	if readings == nil || rollups == nil {
+		return
+	}
+	samples := func(b *bolt.Bucket, start int64) (uint64, bool) {
+		if b == nil {
+			return 0, false
+		}
+		key := nanosKey(start)
+		raw := b.Get(key)
+		if raw == nil {
+			return 0, false
+		}
+		body, err := unseal(key, raw)
+		if err != nil || len(body) < 2 {
+			return 0, false // reported by walk
+		}
+		d := decoder{b: body[1:]}
+		n := d.uvarint("Samples")
+		return n, d.err == nil
+	}
+	_ = readings.ForEachBucket(func(name []byte) error {
+		rb := rollups.Bucket(name)
+		c := readings.Bucket(name).Cursor()
+		var start int64 = -1
+		var count uint64
+		report := func() {
+			if start < 0 || start < v.sweptBefore {
+				return
+			}
+			got, ok := samples(rb, start)
+			switch {
+			case !ok && (rb == nil || rb.Get(nanosKey(start)) == nil):
+				v.add("%s rollup of counter %q at %s is missing (%d readings)", step, name, keyString(nanosKey(start)), count)
+			case ok && got != count:
+				v.add("%s rollup of counter %q at %s counts %d samples, the bucket holds %d readings", step, name, keyString(nanosKey(start)), got, count)
+			}
+		}
+		for k, _ := c.First(); k != nil; k, _ = c.Next() {
+			ns, ok := keyNanos(k)
+			if !ok {
+				continue // reported by walk
+			}
+			if b := ns - ns%int64(step); b != start {
+				report()
+				start, count = b, 0
+			}
+			count++
+		}
+		report()
+		return nil
+	})
+	_ = rollups.ForEachBucket(func(name []byte) error {
+		rb := readings.Bucket(name)
+		c := rollups.Bucket(name).Cursor()
+		for k, _ := c.First(); k != nil; k, _ = c.Next() {
+			start, ok := keyNanos(k)
+			if !ok || start < v.sweptBefore {
+				continue
+			}
+			var rk []byte
+			if rb != nil {
+				rk, _ = rb.Cursor().Seek(k)
+			}
+			if rk == nil || bytes.Compare(rk, nanosKey(start+int64(step))) >= 0 {
+				v.add("%s rollup of counter %q at %s has no readings in its bucket", step, name, keyString(k))
+			}
+		}
+		return nil
+	})
+}

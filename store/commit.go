@@ -72,8 +72,8 @@ func (s *Store) committer() {
 	defer close(s.committerDone)
 	debug.SetPanicOnFault(true)
 	for first := range s.reqs {
-		if s.opt.beforeCommit != nil {
-			s.opt.beforeCommit()
+		if s.beforeCommit != nil {
+			s.beforeCommit()
 		}
 		group := []*request{first}
 		total := first.records

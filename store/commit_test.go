@@ -70,7 +70,7 @@ func TestConcurrentAppends(t *testing.T) {
 func holdCommitter(s *Store, want int) (release func()) {
 	gate := make(chan struct{})
 	var once sync.Once
-	s.opt.beforeCommit = func() {
+	s.beforeCommit = func() {
 		once.Do(func() {
 			for i := 0; i < 5000 && len(s.reqs) < want; i++ {
 				time.Sleep(time.Millisecond)

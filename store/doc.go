@@ -17,10 +17,12 @@
 // Concurrent callers share transactions. A single committer goroutine takes
 // every request that is waiting when it starts a transaction and commits
 // them together, so N concurrent callers pay for about one fsync rather
-// than N. The alternative, bbolt's DB.Batch, was measured against it (see
-// the benchmarks in bench_test.go): Batch waits for its batch timer before
-// every transaction, which costs a lone caller that delay on every call,
-// and it runs a failing request alone with a second transaction.
+// than N. The alternative, bbolt's DB.Batch, was measured against it (the
+// benchmarks in bench_test.go, on 2 cores): Batch waits for its 10 ms
+// timer before every transaction, which costs a lone caller that delay on
+// every call (1 000-reading batches: about 58 000 readings/s against
+// 250 000), and 16 concurrent callers also fared better with the
+// committer (100-reading calls: 179 000 against 75 000 readings/s).
 //
 // # Layout
 //

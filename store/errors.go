@@ -40,6 +40,7 @@ type RecordError struct {
 	Reason string
 }
 
+// Error names the record, field and reason.
 func (e *RecordError) Error() string {
 	return fmt.Sprintf("store: invalid %s at index %d: %s: %s", e.Kind, e.Index, e.Field, e.Reason)
 }

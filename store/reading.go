@@ -190,7 +190,8 @@ func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int) 
 // ScanReadings calls fn with each reading of counter in [from, to), oldest
 // first, inside one read transaction; a zero from or to is unbounded. An
 // error from fn stops the scan and is returned. fn must not write to the
-// store (a write would wait on this transaction).
+// store (a write may wait on this transaction) nor Close it (Close waits
+// for the scan).
 func (s *Store) ScanReadings(counter string, from, to time.Time, fn func(Reading) error) error {
 	return scanSeries(s, bucketReadings, counter, from, to, decodeReading, fn)
 }

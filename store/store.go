@@ -41,19 +41,18 @@ var initialMmap = func() int {
 type Options struct {
 	// LockTimeout bounds the wait for the file lock (default
 	// DefaultLockTimeout). A lock still held after it gives ErrLocked.
-	LockTimeout time.Duration
+	LockTimeout time.Duration `yaml:"lock_timeout"`
 	// NoSync skips fsync on commit. Tests only: a crash loses
 	// acknowledged records.
-	NoSync bool
-	// MaxBytes caps the database file (0: no cap). A commit that would
-	// grow the file beyond it fails with ErrDiskFull, like a full disk.
-	MaxBytes int64
+	NoSync bool `yaml:"-"`
+	// MaxBytes caps the data in the file (0: no cap). A commit that
+	// needs more fails with ErrDiskFull, like a full disk.
+	MaxBytes int64 `yaml:"max_bytes"`
 	// Logger receives the rare events the caller cannot see in a return
 	// value (a damaged rollup rebuilt, a recovered panic). Nil: discarded.
-	Logger *slog.Logger
+	Logger *slog.Logger `yaml:"-"`
 
-	commit       commitMode // how writes share transactions (tests, benchmarks)
-	beforeCommit func()     // test hook: runs before a group is collected
+	commit commitMode // how writes share transactions (tests, benchmarks)
 }
 
 // Store is an open database. Its methods are safe for concurrent use.
@@ -71,6 +70,7 @@ type Store struct {
 	committerDone chan struct{}
 	commits       atomic.Uint64 // write transactions committed for grouped calls
 	lastBatchTx   atomic.Pointer[bolt.Tx]
+	beforeCommit  func() // test hook: runs before a group is collected; set before the first write
 }
 
 // Open opens, or creates, the store in dir (created 0700 if missing) and

@@ -5,11 +5,13 @@ import (
 	"context"
 	"encoding/json"
 	"errors"
+	"fmt"
 	"io"
 	"math"
 	"net/http"
 	"net/http/httptest"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 )
@@ -33,32 +35,41 @@ type answer struct {
 
 func post(t *testing.T, srv *httptest.Server, method, path, ctype string, body io.Reader) answer {
 	t.Helper()
+	a, err := tryPost(srv, method, path, ctype, body)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return a
+}
+
+// tryPost is post without the test's FailNow, for other goroutines.
+func tryPost(srv *httptest.Server, method, path, ctype string, body io.Reader) (answer, error) {
 	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
 	defer cancel()
 	req, err := http.NewRequestWithContext(ctx, method, srv.URL+path, body)
 	if err != nil {
-		t.Fatal(err)
+		return answer{}, err
 	}
 	if ctype != "" {
 		req.Header.Set("Content-Type", ctype)
 	}
 	resp, err := srv.Client().Do(req)
 	if err != nil {
-		t.Fatal(err)
+		return answer{}, err
 	}
 	defer resp.Body.Close()
 	b, err := io.ReadAll(io.LimitReader(resp.Body, 1<<20))
 	if err != nil {
-		t.Fatal(err)
+		return answer{}, err
 	}
 	a := answer{status: resp.StatusCode, raw: string(b)}
 	if err := json.Unmarshal(b, &a.body); err != nil {
-		t.Fatalf("answer %d is not a JSON object: %q", resp.StatusCode, b)
+		return a, fmt.Errorf("answer %d is not a JSON object: %q", resp.StatusCode, b)
 	}
 	if ct := resp.Header.Get("Content-Type"); ct != "application/json" {
-		t.Errorf("answer Content-Type %q", ct)
+		return a, fmt.Errorf("answer Content-Type %q", ct)
 	}
-	return a
+	return a, nil
 }
 
 // good is a valid reading of pc-asm-1 (channels 0.5, 1, 5 µm, cumulative).
@@ -393,5 +404,48 @@ func TestObserversRunAfterCommit(t *testing.T) {
 	}
 	if nr, np := sink.stored(); nr != 1 || np != 1 {
 		t.Errorf("sink holds %d readings, %d DP samples after refused submissions", nr, np)
+	}
+}
+
+func TestConcurrentPosts(t *testing.T) {
+	sink := newMemSink()
+	in := newTestIngest(t, sink, IngestOptions{})
+	var mu sync.Mutex
+	observed := 0
+	in.OnReadings(func(rs []Reading) {
+		mu.Lock()
+		observed += len(rs)
+		mu.Unlock()
+	})
+	srv := serve(t, in)
+	const workers, posts, per = 4, 5, 10
+	var wg sync.WaitGroup
+	errs := make(chan string, workers*posts)
+	for w := range workers {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for p := range posts {
+				var b strings.Builder
+				for k := range per {
+					// A distinct second within the hour before testNow per reading.
+					sec := (w*posts+p)*per + k
+					tm := testNow.Add(-time.Hour + time.Duration(sec)*time.Second).Format(time.RFC3339)
+					b.WriteString(strings.Replace(good, "2026-03-02T10:00:00Z", tm, 1) + "\n")
+				}
+				a, err := tryPost(srv, http.MethodPost, "/api/v1/readings", "application/x-ndjson", strings.NewReader(b.String()))
+				if err != nil || a.status != 200 || a.body["accepted"] != float64(per) {
+					errs <- fmt.Sprint(a.raw, err)
+				}
+			}
+		}()
+	}
+	wg.Wait()
+	close(errs)
+	for e := range errs {
+		t.Error(e)
+	}
+	if nr, _ := sink.stored(); nr != workers*posts*per || observed != nr {
+		t.Errorf("stored %d, observed %d, want %d", nr, observed, workers*posts*per)
 	}
 }

@@ -142,7 +142,7 @@ const maxCount = 1 << 53
 // a string or a value beyond 2^53 is reported as such instead of being
 // rounded into a plausible count.
 type Count struct {
-	N uint64
+	N uint64 // particles counted
 
 	bad string // the JSON text when it is not a usable count
 }

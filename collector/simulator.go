@@ -88,8 +88,9 @@ type Submitter interface {
 //
 // Each DP sensor reads min_pa + 7 Pa (or mid-range when max_pa is closer)
 // with 0.3 Pa noise. A door opens every DoorGapMin–DoorGapMax (uniform);
-// the DP then drops to 20–80 % of min_pa for 30–80 % of the sensor's delay,
-// so every dip recovers before a pressure-low alarm could be due. Sensors
+// the DP then drops to 20–80 % of min_pa for 30–80 % of the sensor's delay
+// (at least one sample), so every dip recovers before a pressure-low alarm
+// could be due. Sensors
 // with min_pa 0 get no dips (a dip would be a flow reversal).
 //
 // The output depends only on the seed, the registry, the limits and the

@@ -290,8 +290,21 @@ func (l *liveLocation) observe(o *Observation, now time.Time, max int) {
 	l.samples = append(l.samples, sample{})
 	copy(l.samples[at+1:], l.samples[at:])
 	l.samples[at] = s
+	l.prune(now)
 	if len(l.samples) > max {
 		l.samples = append(l.samples[:0], l.samples[len(l.samples)-max:]...)
+	}
+}
+
+// prune drops the samples that fell out of the window.
+func (l *liveLocation) prune(now time.Time) {
+	cut := now.Add(-l.zone.spec.window)
+	k := 0
+	for k < len(l.samples) && !l.samples[k].t.After(cut) {
+		k++
+	}
+	if k > 0 {
+		l.samples = append(l.samples[:0], l.samples[k:]...)
 	}
 }
 
@@ -359,8 +372,8 @@ func (t *ZoneTracker) SetOperatingState(ch OperatingChange, persist func(Operati
 }
 
 // RestoreOperatingState applies a change read back from the store at start.
-// After a restart into maintenance the limits are those of the configured
-// state, since the store keeps only the latest change per zone here.
+// To restart into maintenance with the limits of the state before it,
+// restore that earlier change first.
 func (t *ZoneTracker) RestoreOperatingState(ch OperatingChange) error {
 	if _, err := ParseOperatingState(ch.State); err != nil {
 		return err
@@ -412,10 +425,13 @@ func (z *liveZone) view(now time.Time) ZoneView {
 		if sl.Limit != nil {
 			anyLimit = true
 		} else if s.hasClass || s.grade != "" {
-			v.Notes = append(v.Notes, fmt.Sprintf("no %s limit at %s µm: %s", s.describeAt(z.base), classify.FormatSize(sl.SizeUM), sl.Note))
+			v.Notes = append(v.Notes, fmt.Sprintf("no %s limit at %s µm: %s", s.describeAt(z.base), classify.FormatSize(sl.SizeUM), strings.TrimPrefix(sl.Note, "no limit: ")))
 		}
 	}
 
+	if !s.hasClass && s.grade == "" {
+		v.Notes = append(v.Notes, "unclassified area: no class or grade to be in")
+	}
 	worst, fresh := StatusInClass, 0
 	for _, l := range z.locs {
 		lv := l.view(now, limits)
@@ -441,7 +457,9 @@ func (z *liveZone) view(now time.Time) ZoneView {
 		v.State = StatusUnknown
 	case worst == StatusInClass && !anyLimit:
 		v.State = StatusUnknown
-		v.Notes = append(v.Notes, "no class limit to be in: only alert and action levels are judged")
+		if s.hasClass || s.grade != "" {
+			v.Notes = append(v.Notes, "no limit to be in at this operating state: only alert and action levels are judged")
+		}
 	default:
 		v.State = worst
 	}
@@ -472,15 +490,7 @@ func (l *liveLocation) view(now time.Time, limits []SizeLimit) LocationView {
 			}
 		}
 	}
-	// Drop what fell out of the window.
-	cut := now.Add(-spec.window)
-	k := 0
-	for k < len(l.samples) && !l.samples[k].t.After(cut) {
-		k++
-	}
-	if k > 0 {
-		l.samples = append(l.samples[:0], l.samples[k:]...)
-	}
+	l.prune(now)
 	lv.Samples = len(l.samples)
 	if len(l.samples) == 0 {
 		return lv

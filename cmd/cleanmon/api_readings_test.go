@@ -149,7 +149,7 @@ func TestZoneReadings(t *testing.T) {
 	total := 0
 	for _, r := range rs {
 		total += r.Samples
-		if !r.Time.Equal(r.Time.Truncate(2*time.Hour)) {
+		if !r.Time.Equal(r.Time.Truncate(2 * time.Hour)) {
 			t.Errorf("bucket %s not on a 2 h boundary", r.Time)
 		}
 	}
@@ -199,7 +199,7 @@ func TestZoneReadingsStreamAcrossChunks(t *testing.T) {
 	var body bytes.Buffer
 	for i := 0; i < n; i++ {
 		fmt.Fprintf(&body, `{"counter":"pc-hood","time":%q,"volume_l":28.3,"counts":{"0.3":%d,"0.5":%d,"1":1,"5":0}}`+"\n",
-			rfcTime(start.Add(time.Duration(i)*time.Second)), 3+i%7, 2+i%5)
+			rfcTime(start.Add(time.Duration(i)*time.Second)), 10+i%7, 2+i%5)
 	}
 	code, _, b := d.do("POST", "/api/v1/readings", secretIngest, "application/x-ndjson", body.Bytes())
 	if code != 200 || !strings.Contains(string(b), fmt.Sprintf(`"accepted":%d`, n)) {

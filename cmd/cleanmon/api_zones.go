@@ -65,7 +65,7 @@ func zoneObject(v alerts.ZoneView) zoneJSON {
 		LimitsState: v.LimitsState, State: string(v.State),
 		LimitsPerM3: map[string]*float64{}, AlertPerM3: map[string]*float64{}, ActionPerM3: map[string]*float64{},
 		Locations: []locationJSON{}, ActiveAlarms: []struct{}{},
-		Window: v.Window.String(), StaleAfter: v.StaleAfter.String(),
+		Window: formatDuration(v.Window), StaleAfter: formatDuration(v.StaleAfter),
 		Notes: v.Notes, EvaluatedAt: v.At.UTC(),
 	}
 	if z.Notes == nil {
@@ -182,4 +182,17 @@ func (s *server) putZoneState(w http.ResponseWriter, r *http.Request) {
 	}
 	s.log.Info("operating state changed", "zone", id, "state", req.State, "by", req.By, "reason", req.Reason, "token", infoOf(r).token)
 	writeJSON(w, http.StatusOK, zoneObject(v))
+}
+
+// formatDuration writes a duration as a configuration would: "10m", "1h",
+// "1m30s" rather than "10m0s".
+func formatDuration(d time.Duration) string {
+	s := d.String()
+	if strings.HasSuffix(s, "m0s") {
+		s = strings.TrimSuffix(s, "0s")
+	}
+	if strings.HasSuffix(s, "h0m") {
+		s = strings.TrimSuffix(s, "0m")
+	}
+	return s
 }

@@ -131,8 +131,8 @@ func TestZoneStateFromPostedReadings(t *testing.T) {
 		state string
 		mean  float64 // rolling mean at 0.5 µm after the reading
 	}{
-		{hood(now.Add(-150*time.Second), 20, 5), "in-class", perM3(20)},                               // 707
-		{hood(now.Add(-100*time.Second), 60, 5), "alert", (perM3(20) + perM3(60)) / 2},                // 1413
+		{hood(now.Add(-150*time.Second), 20, 5), "in-class", perM3(20)},                             // 707
+		{hood(now.Add(-100*time.Second), 60, 5), "alert", (perM3(20) + perM3(60)) / 2},              // 1413
 		{hood(now.Add(-1*time.Minute), 100, 5), "action", (perM3(20) + perM3(60) + perM3(100)) / 3}, // 2120
 		{hood(now.Add(-30*time.Second), 300, 5), "out-of-class", (perM3(20) + perM3(60) + perM3(100) + perM3(300)) / 4},
 	}

@@ -89,7 +89,7 @@ func runServe(args []string, stdout, stderr io.Writer) int {
 // --demo, the simulator.
 func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 	log := slog.New(slog.NewTextHandler(stderr, nil))
-	fail := func(code int, format string, a ...any) int {
+	quit := func(code int, format string, a ...any) int {
 		fmt.Fprintf(stderr, "cleanmon serve: "+format+"\n", a...)
 		return code
 	}
@@ -108,20 +108,20 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 
 	listen := firstOf(o.listen, cfg.Listen, defaultListen)
 	if _, _, err := net.SplitHostPort(listen); err != nil {
-		return fail(exitUsage, "--listen %q: %v", listen, err)
+		return quit(exitUsage, "--listen %q: %v", listen, err)
 	}
 	if o.demo && !isLoopback(listen) {
-		return fail(exitUsage, "--demo serves an open API (no tokens) and listens on loopback only; %q is not a loopback address", listen)
+		return quit(exitUsage, "--demo serves an open API (no tokens) and listens on loopback only; %q is not a loopback address", listen)
 	}
 
 	dataDir := firstOf(o.dataDir, cfg.DataDir)
 	if dataDir == "" {
 		if !o.demo {
-			return fail(exitUsage, "no data directory: give --data DIR or data_dir in %s", o.configPath)
+			return quit(exitUsage, "no data directory: give --data DIR or data_dir in %s", o.configPath)
 		}
 		dataDir, err = os.MkdirTemp("", "cleanmon-demo-")
 		if err != nil {
-			return fail(exitFail, "temporary data directory: %v", err)
+			return quit(exitFail, "temporary data directory: %v", err)
 		}
 		defer os.RemoveAll(dataDir)
 	}
@@ -134,9 +134,9 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 	st, err := store.Open(dataDir, store.Options{LockTimeout: storeLockWait, Logger: log})
 	switch {
 	case errors.Is(err, store.ErrLocked):
-		return fail(exitFail, "data directory %s is in use by another cleanmon process (%v)", dataDir, err)
+		return quit(exitFail, "data directory %s is in use by another cleanmon process (%v)", dataDir, err)
 	case err != nil:
-		return fail(exitFail, "opening the store in %s: %v", dataDir, err)
+		return quit(exitFail, "opening the store in %s: %v", dataDir, err)
 	}
 	storeOpen := true
 	defer func() {
@@ -147,14 +147,14 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 
 	reg, err := collector.NewRegistry(cfg.Counters, cfg.PressureSensors)
 	if err != nil {
-		return fail(exitUsage, "%v", err)
+		return quit(exitUsage, "%v", err)
 	}
 	zones, err := alerts.NewZoneTracker(cfg.Zones, cfg.bindings(), alerts.ZoneTrackerOptions{Now: now})
 	if err != nil {
-		return fail(exitUsage, "%v", err)
+		return quit(exitUsage, "%v", err)
 	}
 	if err := restoreZones(st, zones, cfg, now(), log); err != nil {
-		return fail(exitFail, "restoring zone state from the store: %v", err)
+		return quit(exitFail, "restoring zone state from the store: %v", err)
 	}
 	ingest := collector.NewIngest(reg, storeSink{st}, collector.IngestOptions{Retention: cfg.retention(), Now: now})
 	ingest.OnReadings(func(rs []collector.Reading) {
@@ -164,15 +164,22 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 		}
 		zones.Observe(obs...)
 	})
+	ingest.OnRejected(func(rj collector.Rejection) {
+		// Bad input is the sender's to fix and is answered as such; a
+		// failed commit is ours, and an operator must see it.
+		if errors.Is(rj.Err, collector.ErrCommit) {
+			log.Error("readings not stored", "kind", rj.Kind, "id", rj.ID, "err", rj.Err)
+		}
+	})
 	auth, err := newAuthorizer(cfg.Access, o.demo)
 	if err != nil {
-		return fail(exitUsage, "%v", err)
+		return quit(exitUsage, "%v", err)
 	}
 	srv := &server{cfg: cfg, store: st, zones: zones, ingest: ingest, auth: auth, log: log, metrics: newMetricsRegistry(), now: now}
 
 	ln, err := net.Listen("tcp", listen)
 	if err != nil {
-		return fail(exitFail, "listening on %s: %v", listen, err)
+		return quit(exitFail, "listening on %s: %v", listen, err)
 	}
 	hs := &http.Server{
 		Handler:           srv.routes(),
@@ -188,6 +195,9 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 	url := "http://" + ln.Addr().String()
 	fmt.Fprintf(stdout, "cleanmon: serving on %s\n", url)
 	log.Info("serving", "url", url, "site", cfg.Site, "data", dataDir, "zones", len(cfg.Zones), "counters", len(cfg.Counters), "sensors", len(cfg.PressureSensors))
+	if !o.demo && len(cfg.Access.Tokens) == 0 {
+		log.Warn("no access tokens configured: nothing can post readings or change a zone", "open_reads", cfg.Access.OpenReads)
+	}
 	if o.demo {
 		log.Warn("demo: the API is open, no token is asked for any route", "listen", ln.Addr().String(), "speed", o.speed)
 	}
@@ -203,7 +213,7 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 		if err := startDemo(bg, &wg, reg, zones, ingest, now, o.speed, log); err != nil {
 			stopBG()
 			hs.Close()
-			return fail(exitFail, "demo simulator: %v", err)
+			return quit(exitFail, "demo simulator: %v", err)
 		}
 	}
 
@@ -245,11 +255,29 @@ func restoreZones(st *store.Store, zones *alerts.ZoneTracker, cfg *siteConfig, n
 		return err
 	}
 	for zone, s := range states {
-		ch := alerts.OperatingChange{Zone: s.Zone, State: s.State, By: s.By, Reason: s.Reason, Time: s.Time}
-		if ch.Zone == "" {
-			ch.Zone = zone
+		if _, ok := zones.Zone(zone); !ok {
+			log.Warn("stored operating state of a zone no longer configured", "zone", zone, "state", s.State)
+			continue
 		}
-		if err := zones.RestoreOperatingState(ch); err != nil {
+		if s.State == alerts.Maintenance {
+			// Maintenance is judged against the limits of the state before
+			// it: find that state in the history and apply it first.
+			var before *store.OperatingState
+			err := st.OperatingStateHistory(zone, func(h store.OperatingState) error {
+				if h.State != alerts.Maintenance {
+					h := h
+					before = &h
+				}
+				return nil
+			})
+			if err != nil {
+				return err
+			}
+			if before != nil {
+				zones.RestoreOperatingState(opChange(zone, *before))
+			}
+		}
+		if err := zones.RestoreOperatingState(opChange(zone, s)); err != nil {
 			log.Warn("stored operating state not restored", "zone", zone, "err", err)
 		}
 	}
@@ -274,6 +302,10 @@ func restoreZones(st *store.Store, zones *alerts.ZoneTracker, cfg *siteConfig, n
 		zones.Observe(obs...)
 	}
 	return nil
+}
+
+func opChange(zone string, s store.OperatingState) alerts.OperatingChange {
+	return alerts.OperatingChange{Zone: zone, State: s.State, By: s.By, Reason: s.Reason, Time: s.Time}
 }
 
 // sweepLoop deletes what is older than the retention, at start and then

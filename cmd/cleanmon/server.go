@@ -91,7 +91,7 @@ func (s *server) routes() http.Handler {
 	short := withTimeout(requestTimeout)
 	r.With(short).Get("/healthz", s.healthz)
 	r.With(short).Get("/readyz", s.readyz)
-	r.With(short, read).Handle("/metrics", promhttp.HandlerFor(s.metrics, promhttp.HandlerOpts{Registry: s.metrics}))
+	r.With(short, read).Method(http.MethodGet, "/metrics", promhttp.HandlerFor(s.metrics, promhttp.HandlerOpts{Registry: s.metrics}))
 
 	r.Route("/api/v1", func(r chi.Router) {
 		ingest := r.With(short, s.auth.require(permIngest))
@@ -157,19 +157,27 @@ func (s *server) requestLog(next http.Handler) http.Handler {
 		ri := &requestInfo{}
 		r = r.WithContext(context.WithValue(r.Context(), requestInfoKey{}, ri))
 		ww := middleware.NewWrapResponseWriter(w, r.ProtoMajor)
+		completed := false
+		// Deferred, so that a stream cut off midway is logged too.
+		defer func() {
+			status := ww.Status()
+			if status == 0 {
+				status = http.StatusOK
+			}
+			lvl, msg := slog.LevelInfo, "http request"
+			if status >= 500 || !completed {
+				lvl = slog.LevelWarn
+			}
+			if !completed {
+				msg = "http request aborted"
+			}
+			s.log.Log(r.Context(), lvl, msg,
+				"method", r.Method, "path", r.URL.Path, "status", status,
+				"bytes", ww.BytesWritten(), "duration", time.Since(start).Round(time.Microsecond),
+				"remote", r.RemoteAddr, "token", ri.token)
+		}()
 		next.ServeHTTP(ww, r)
-		status := ww.Status()
-		if status == 0 {
-			status = http.StatusOK
-		}
-		lvl := slog.LevelInfo
-		if status >= 500 {
-			lvl = slog.LevelWarn
-		}
-		s.log.Log(r.Context(), lvl, "http request",
-			"method", r.Method, "path", r.URL.Path, "status", status,
-			"bytes", ww.BytesWritten(), "duration", time.Since(start).Round(time.Microsecond),
-			"remote", r.RemoteAddr, "token", ri.token)
+		completed = true
 	})
 }
 

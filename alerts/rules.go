@@ -1,0 +1,240 @@
+package alerts
+
+import (
+	"fmt"
+	"math"
+	"strconv"
+	"time"
+
+	"cleanmon/classify"
+)
+
+// The rules on particle readings, per sampling location and zone size.
+//
+//   - excursion: one sample above the alert level (alert) or the action
+//     level (action) in force for the zone's operating state. Defaults are
+//     those of the zone state: action level = the class or grade limit, no
+//     alert level. One alarm per location and size, escalating in place.
+//   - consecutive: Consecutive samples in a row above the alert level raise
+//     an action alarm; a sample at or below it ends the run. A size without
+//     an alert level has no such rule.
+//   - out-of-class: the location's rolling mean over the zone's window above
+//     the class or grade limit, judged on the very ZoneView the zone state
+//     is shown from (only while the location is fresh, as there), so the
+//     alarm and the zone's out-of-class state agree. A location that falls
+//     stale leaves its alarm as it is: its stale alarm tells the rest.
+//   - trend: TrendRun samples in a row above the centre line of the
+//     location's baseline (see control.go) raise an alert before anything
+//     exceeds a level.
+//
+// Readings whose status is fault, or with no volume, are not trusted and
+// are judged by the instrument rule only. A reading not newer than its
+// counter's newest is history and is not judged again.
+
+const unitPerM3 = "particles/m³"
+
+type seriesState struct {
+	last       time.Time // newest sample judged
+	run        int       // samples in a row above the alert level
+	runStart   time.Time
+	trendRun   int // samples in a row above the centre line
+	trendStart time.Time
+	// hist holds the latest TrendBaseline+TrendRun−1 trusted samples. It is
+	// never changed in place (push copies), so a copy of the state is an
+	// undo.
+	hist []histPoint
+}
+
+type histPoint struct{ count, volL float64 }
+
+func (s seriesState) push(p histPoint, max int) []histPoint {
+	h := append(s.hist[:len(s.hist):len(s.hist)], p)
+	if len(h) > max {
+		h = h[len(h)-max:]
+	}
+	return h
+}
+
+func seriesKey(zone, loc string, size float64) string {
+	return zone + ":" + loc + ":" + classify.FormatSize(size)
+}
+
+// valueAt is an observation's concentration at a zone size.
+func valueAt(o *Observation, size float64) (float64, bool) {
+	for j, s := range o.Sizes {
+		if math.Abs(s-size) < 1e-9 && j < len(o.PerM3) {
+			return o.PerM3[j], true
+		}
+	}
+	return 0, false
+}
+
+// judgeReading runs every rule on one reading of a known counter. v is the
+// counter's zone as it stands after the batch was observed.
+func (e *Engine) judgeReading(t *txn, c *counterSpec, r *CounterReading, v ZoneView) {
+	st := e.counterSt[c.ID]
+	if !r.Time.After(st.last) {
+		return
+	}
+	st = instrState{last: r.Time, live: true}
+	setUndo(t, e.counterSt, c.ID, st)
+	e.judgeStale(t, c.Zone, "", c.ID, st, c.stale)
+	e.judgeInstrument(t, c, r)
+	if r.Status == StatusFault || !(r.VolumeL > 0) {
+		return
+	}
+	z := e.zones[c.Zone]
+	for i, size := range v.Sizes {
+		val, ok := valueAt(&r.Observation, size)
+		if !ok || i >= len(v.Limits) {
+			continue
+		}
+		k := seriesKey(c.Zone, c.Location, size)
+		s := e.series[k]
+		if !r.Time.After(s.last) {
+			continue
+		}
+		s.last = r.Time
+		sz := size
+		tmpl := Alarm{Zone: c.Zone, Location: c.Location, Counter: c.ID, SizeUM: &sz, Value: val, Unit: unitPerM3}
+		where := fmt.Sprintf("%s µm at %s (%s)", classify.FormatSize(size), c.Location, c.ID)
+		sl := v.Limits[i]
+		e.judgeExcursion(t, k, tmpl, sl, where, r.Time)
+		if sl.Alert != nil {
+			if val > *sl.Alert {
+				if s.run == 0 {
+					s.runStart = r.Time
+				}
+				s.run++
+			} else {
+				s.run = 0
+			}
+			a := tmpl
+			a.Kind, a.Threshold = KindConsecutive, *sl.Alert
+			if s.run >= e.nConsec {
+				a.Message = fmt.Sprintf("%s: %d samples in a row above the alert level %s /m³ (latest %s /m³)", where, s.run, num(*sl.Alert), num(val))
+			} else {
+				a.Message = fmt.Sprintf("%s: %s /m³, the run above the alert level %s /m³ is broken", where, num(val), num(*sl.Alert))
+			}
+			t.judge(condition{key: k + ":" + KindConsecutive, present: s.run >= e.nConsec, level: LevelAction, tmpl: a, since: s.runStart, at: r.Time})
+		}
+		s = e.judgeTrend(t, k, s, tmpl, where, r, val, z.op == Maintenance)
+		setUndo(t, e.series, k, s)
+	}
+}
+
+func (e *Engine) judgeExcursion(t *txn, k string, tmpl Alarm, sl SizeLimit, where string, at time.Time) {
+	if sl.Alert == nil && sl.Action == nil {
+		return
+	}
+	val := tmpl.Value
+	a := tmpl
+	a.Kind = KindExcursion
+	level := ""
+	switch {
+	case sl.Action != nil && val > *sl.Action:
+		level, a.Threshold = LevelAction, *sl.Action
+		a.Message = fmt.Sprintf("%s: %s /m³ is above the action level %s /m³", where, num(val), num(*sl.Action))
+	case sl.Alert != nil && val > *sl.Alert:
+		level, a.Threshold = LevelAlert, *sl.Alert
+		a.Message = fmt.Sprintf("%s: %s /m³ is above the alert level %s /m³", where, num(val), num(*sl.Alert))
+	default:
+		low := sl.Action
+		if sl.Alert != nil {
+			low = sl.Alert
+		}
+		a.Threshold = *low
+		a.Message = fmt.Sprintf("%s: %s /m³ is back at or below %s /m³", where, num(val), num(*low))
+	}
+	t.judge(condition{key: k + ":" + KindExcursion, present: level != "", level: level, tmpl: a, since: at, at: at})
+}
+
+// judgeTrend runs the run rule against the baseline of the samples before
+// the run, then adds the sample to the history (not in maintenance: what
+// happens then is not the zone's normal).
+func (e *Engine) judgeTrend(t *txn, k string, s seriesState, tmpl Alarm, where string, r *CounterReading, val float64, maint bool) seriesState {
+	need := e.trendBase + e.trendRun - 1
+	count := val * r.VolumeL / 1000
+	if len(s.hist) == need {
+		base := s.hist[:e.trendBase]
+		counts := make([]float64, len(base))
+		var sumC, sumV float64
+		for i, p := range base {
+			counts[i] = p.count
+			sumC += p.count
+			sumV += p.volL
+		}
+		cl := Baseline(counts)
+		centre := sumC / sumV * 1000
+		// Above by more than rounding: a steady concentration is not a run.
+		if val > centre*(1+1e-9)+1e-9 {
+			if s.trendRun == 0 {
+				s.trendStart = r.Time
+			}
+			s.trendRun++
+		} else {
+			s.trendRun = 0
+		}
+		a := tmpl
+		a.Kind, a.Threshold = KindTrend, centre
+		if s.trendRun >= e.trendRun {
+			a.Message = fmt.Sprintf("%s: %d samples in a row above the centre line %s /m³ of the previous %d samples (%s counts per sample, UCL %s)", where, s.trendRun, num(centre), cl.Samples, num(cl.Centre), num(cl.UCL))
+		} else {
+			a.Message = fmt.Sprintf("%s: %s /m³ is at or below the centre line %s /m³", where, num(val), num(centre))
+		}
+		t.judge(condition{key: k + ":" + KindTrend, present: s.trendRun >= e.trendRun, level: LevelAlert, tmpl: a, since: s.trendStart, at: r.Time})
+	}
+	if !maint {
+		s.hist = s.push(histPoint{count: count, volL: r.VolumeL}, need)
+	}
+	return s
+}
+
+// judgeOutOfClass judges every fresh location of a zone view.
+func (e *Engine) judgeOutOfClass(t *txn, v ZoneView) {
+	for _, lv := range v.Locations {
+		if !lv.Fresh {
+			continue
+		}
+		for i, size := range v.Sizes {
+			if i >= len(v.Limits) || v.Limits[i].Limit == nil {
+				continue
+			}
+			limit := *v.Limits[i].Limit
+			mean, ok := lv.MeanPerM3[classify.FormatSize(size)]
+			if !ok {
+				continue
+			}
+			sz := size
+			a := Alarm{Zone: v.ID, Kind: KindOutOfClass, Location: lv.ID, Counter: lv.Counter, SizeUM: &sz,
+				Value: mean, Threshold: limit, Unit: unitPerM3}
+			rel := "above"
+			if mean <= limit {
+				rel = "back at or below"
+			}
+			a.Message = fmt.Sprintf("%s µm at %s: mean %s /m³ of %d samples over %s is %s the %s limit %s /m³",
+				classify.FormatSize(size), lv.ID, num(mean), lv.Samples, v.Window, rel, targetName(v), num(limit))
+			t.judge(condition{key: seriesKey(v.ID, lv.ID, size) + ":" + KindOutOfClass, present: mean > limit,
+				level: LevelAction, tmpl: a, since: lv.Time, at: lv.Time})
+		}
+	}
+}
+
+func targetName(v ZoneView) string {
+	switch {
+	case v.Class != nil:
+		return "ISO class " + classify.FormatClass(*v.Class)
+	case v.Grade != "":
+		return "grade " + v.Grade + " " + v.LimitsState
+	}
+	return "zone"
+}
+
+// num writes a measurement for a message: whole numbers above 100, three
+// significant figures below.
+func num(v float64) string {
+	if math.Abs(v) >= 100 {
+		return strconv.FormatFloat(math.Round(v), 'f', -1, 64)
+	}
+	return strconv.FormatFloat(v, 'g', 3, 64)
+}

@@ -204,7 +204,12 @@ func (h *harness) feed(obs ...Observation) {
 
 func (h *harness) pressure(sensor string, pa float64) {
 	h.t.Helper()
-	if err := h.e.ObservePressure(context.Background(), []PressureObservation{{Sensor: sensor, Time: h.clk.Now(), Pa: pa}}); err != nil {
+	h.pressureAt(sensor, pa, h.clk.Now())
+}
+
+func (h *harness) pressureAt(sensor string, pa float64, at time.Time) {
+	h.t.Helper()
+	if err := h.e.ObservePressure(context.Background(), []PressureObservation{{Sensor: sensor, Time: at, Pa: pa}}); err != nil {
 		h.t.Fatal(err)
 	}
 }

@@ -347,12 +347,14 @@ func (t *txn) judge(c condition) {
 
 // elapsed is how long a condition has lasted, by the later of the clock
 // and the observation.
+// elapsed is how long the condition has lasted by the instrument's own
+// clock: from its first observation to the newest one. The wall clock is
+// not used: readings that arrive late (a gateway replaying its buffer
+// after an outage, the demo's backfill) would otherwise turn every
+// recovered door dip into an alarm before its recovering sample is read.
+// A sensor that falls silent while low is caught by the stale rule.
 func (t *txn) elapsed(c condition) time.Duration {
-	end := t.now
-	if c.at.After(end) {
-		end = c.at
-	}
-	return end.Sub(c.since)
+	return c.at.Sub(c.since)
 }
 
 // Limits on an acknowledgement's text, so that a client cannot fill the

@@ -439,12 +439,13 @@ func TestPressure(t *testing.T) {
 		h.pressure("dp-asm", 3)
 		start := h.clk.Now()
 		h.clk.Advance(29 * time.Second)
+		h.pressure("dp-asm", 3)
 		h.tick()
 		if a := h.one(KindPressureLow); a.State != StatePending {
 			t.Fatalf("before the delay ran out: %+v", a)
 		}
 		h.clk.Advance(time.Second)
-		h.tick()
+		h.pressure("dp-asm", 4) // still low 30 s after the first low sample
 		a := h.one(KindPressureLow)
 		if a.State != StateActive || a.Level != LevelAction || !a.Latched || !a.ActiveSince.Equal(start.Add(DefaultPressureDelay)) {
 			t.Fatalf("after the delay: %+v", a)
@@ -453,9 +454,26 @@ func TestPressure(t *testing.T) {
 		if len(ann) != 1 || ann[0].T.From != StatePending || ann[0].T.To != StateActive || len(ann[0].Notifiers) != 2 {
 			t.Fatalf("announced %+v", ann)
 		}
+		h.clk.Advance(10 * time.Second)
 		h.pressure("dp-asm", 12)
 		if a := h.one(KindPressureLow); !a.ConditionGone || a.State != StateActive {
 			t.Fatalf("latched alarm after recovery: %+v", a)
+		}
+	})
+	t.Run("a late replay of a recovered dip raises nothing", func(t *testing.T) {
+		// A gateway replays its buffer after an outage: the dip's samples
+		// arrive long after they were taken, with a tick in between. The
+		// delay runs in the samples' own time, so the dip is judged by
+		// what the sensor saw, not by when its report arrived.
+		h := newHarness(t, nil)
+		h.pressureAt("dp-asm", 3, h.clk.Now().Add(-time.Hour))
+		h.tick()
+		if a := h.one(KindPressureLow); a.State != StatePending {
+			t.Fatalf("replayed dip before its recovery: %+v", a)
+		}
+		h.pressureAt("dp-asm", 11, h.clk.Now().Add(-time.Hour+10*time.Second))
+		if n := len(h.open(KindPressureLow)); n != 0 || len(h.j.announced(KindPressureLow)) != 0 {
+			t.Fatalf("a recovered dip was raised: %d open", n)
 		}
 	})
 	t.Run("the configured delay", func(t *testing.T) {

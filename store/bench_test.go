@@ -132,3 +132,45 @@ func TestMain(m *testing.M) {
 	}
 	os.Exit(code)
 }
+
+// BenchmarkRecordAlarms journals transitions with two notifiers each, one
+// caller (records per call) and 16 concurrent callers of one record each.
+func BenchmarkRecordAlarms(b *testing.B) {
+	notifiers := notifierNames[:2]
+	for _, per := range []int{1, 10} {
+		b.Run(fmt.Sprintf("records=%d", per), func(b *testing.B) {
+			s := openTest(b, b.TempDir(), Options{})
+			ctx := context.Background()
+			i := 0
+			for b.Loop() {
+				recs := make([]AlarmRecord, per)
+				for j := range recs {
+					recs[j] = alarmRec(fmt.Sprint("a-", j%50), t0.Add(time.Duration(i*per+j)*time.Second), "active")
+				}
+				if _, err := s.RecordAlarms(ctx, recs, notifiers); err != nil {
+					b.Fatal(err)
+				}
+				i++
+			}
+			b.ReportMetric(float64(i*per)/b.Elapsed().Seconds(), "records/s")
+		})
+	}
+	b.Run("records=1/parallel", func(b *testing.B) {
+		s := openTest(b, b.TempDir(), Options{})
+		var ids, total atomic.Int64
+		b.SetParallelism(8)
+		b.ResetTimer()
+		b.RunParallel(func(pb *testing.PB) {
+			id := fmt.Sprint("a-", ids.Add(1))
+			for i := 0; pb.Next(); i++ {
+				if _, err := s.RecordAlarms(context.Background(), []AlarmRecord{alarmRec(id, t0.Add(time.Duration(i)*time.Second), "active")}, notifiers); err != nil {
+					b.Error(err)
+					return
+				}
+				total.Add(1)
+			}
+		})
+		b.ReportMetric(float64(total.Load())/b.Elapsed().Seconds(), "records/s")
+		b.ReportMetric(float64(total.Load())/float64(max(1, s.commits.Load())), "records/commit")
+	})
+}

@@ -6,17 +6,25 @@ import "time"
 // value encoding changes in a way older binaries cannot read.
 const schemaVersion = 1
 
-// Top-level buckets, one per kind of record. Later kinds (alarm journal,
-// audit chain, notification outbox) are added here, to knownBuckets, and
-// to Verify.
+// Top-level buckets, one per kind of record. A new kind is added here, to
+// knownBuckets, and to Verify; initSchema creates it in older files.
 var (
-	bucketMeta      = []byte("meta")       // schema version, sweep horizon
-	bucketReadings  = []byte("readings")   // counter → time → reading
-	bucketPressure  = []byte("pressure")   // sensor → time → pressure
-	bucketRollup1m  = []byte("rollups_1m") // counter → bucket start → rollup
-	bucketRollup1h  = []byte("rollups_1h") // counter → bucket start → rollup
-	bucketOpState   = []byte("opstate")    // zone → sequence → state change
-	knownBuckets    = [][]byte{bucketMeta, bucketReadings, bucketPressure, bucketRollup1m, bucketRollup1h, bucketOpState}
+	bucketMeta      = []byte("meta")               // schema version, sweep horizon
+	bucketReadings  = []byte("readings")           // counter → time → reading
+	bucketPressure  = []byte("pressure")           // sensor → time → pressure
+	bucketRollup1m  = []byte("rollups_1m")         // counter → bucket start → rollup
+	bucketRollup1h  = []byte("rollups_1h")         // counter → bucket start → rollup
+	bucketOpState   = []byte("opstate")            // zone → sequence → state change
+	bucketJournal   = []byte("alarm_journal")      // sequence → alarm transition
+	bucketJournalAt = []byte("alarm_journal_time") // time ‖ sequence → index mark
+	bucketAlarms    = []byte("alarms")             // alarm ID → latest snapshot
+	bucketAlarmsAt  = []byte("alarms_updated")     // updated ‖ alarm ID → index mark
+	bucketOutbox    = []byte("outbox")             // notifier → item ID → item
+	bucketAudit     = []byte("audit")              // sequence → chained audit entry
+	knownBuckets    = [][]byte{
+		bucketMeta, bucketReadings, bucketPressure, bucketRollup1m, bucketRollup1h, bucketOpState,
+		bucketJournal, bucketJournalAt, bucketAlarms, bucketAlarmsAt, bucketOutbox, bucketAudit,
+	}
 	metaSchema      = []byte("schema")       // uvarint schemaVersion
 	metaSweptBefore = []byte("swept_before") // 8-byte key: latest Sweep horizon
 )

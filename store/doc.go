@@ -1,7 +1,8 @@
 // Package store is the embedded database of the daemon: one bbolt file,
 // dir/cleanmon.db, holding particle-counter readings, differential-pressure
-// samples, per-minute and per-hour rollups, and the operating-state history
-// of each zone.
+// samples, per-minute and per-hour rollups, the operating-state history
+// of each zone, the alarm journal with each alarm's latest snapshot, and
+// the notification outbox.
 //
 // # Durability
 //
@@ -38,6 +39,20 @@
 // nanometres as varints), each value stays self-describing, a change of a
 // counter's channels needs no header versioning, and one damaged value
 // cannot take a counter's whole history with it.
+//
+// # Alarms and notifications
+//
+// RecordAlarms writes, in one transaction, the journal entries of a set
+// of alarm transitions, each alarm's latest snapshot, and one outbox item
+// per transition and notifier, so a transition is never announced without
+// being on record nor on record without being announced. The records are
+// opaque bytes: the alarm engine's adapter marshals them. The journal is
+// append-only and numbered 1, 2, 3, …; Sweep never touches it, nor the
+// snapshots of open alarms, nor the outbox, and Verify reports any gap in
+// the numbering as removed entries. Two small indexes (journal by time,
+// snapshots by update time) serve the scans by time and the sweep of
+// cleared alarms; each notifier has its own queue, so one that is down
+// does not slow the others' OutboxDue.
 //
 // # Damage
 //

@@ -28,13 +28,16 @@ var (
 	ErrInvalid = errors.New("store: invalid input")
 	// ErrSchema: the file was written by a newer version of the program.
 	ErrSchema = errors.New("store: unsupported schema version")
+	// ErrNotFound: the record named by an ID (an outbox item) is not in
+	// the store.
+	ErrNotFound = errors.New("store: not found")
 )
 
 // RecordError reports the first bad record of an Append call: the index in
 // the slice given, the field, and why. Nothing of the call was stored.
 // It matches ErrInvalid under errors.Is.
 type RecordError struct {
-	Kind   string // "reading", "pressure" or "operating state"
+	Kind   string // "reading", "pressure", "operating state", "alarm record", "notifier"
 	Index  int    // position in the slice passed to the call
 	Field  string // field name as in the Go struct, e.g. "Counts"
 	Reason string
@@ -63,7 +66,7 @@ func commitError(err error) error {
 	switch {
 	case err == nil:
 		return nil
-	case errors.Is(err, ErrDiskFull), errors.Is(err, ErrCorrupt), errors.Is(err, ErrInvalid), errors.Is(err, ErrClosed):
+	case errors.Is(err, ErrDiskFull), errors.Is(err, ErrCorrupt), errors.Is(err, ErrInvalid), errors.Is(err, ErrClosed), errors.Is(err, ErrNotFound):
 		return err
 	case isDiskFull(err):
 		return fmt.Errorf("%w: nothing of this call was stored: %w", ErrDiskFull, err)

@@ -44,7 +44,9 @@ func checkOpState(st *OperatingState) (field, reason string) {
 	return "", ""
 }
 
-// SetOperatingState records a change durably. A zero Time means now. The
+// SetOperatingState records a change durably, with its AuditOpState
+// entry (Actor By, or AuditActorSystem when By is empty). A zero Time
+// means now. The
 // history keeps every change in the order recorded; the last recorded
 // change is the zone's state, whatever its Time says.
 func (s *Store) SetOperatingState(ctx context.Context, st OperatingState) error {
@@ -69,7 +71,17 @@ func (s *Store) SetOperatingState(ctx context.Context, st OperatingState) error 
 			return err
 		}
 		key := nanosKey(int64(seq))
-		return b.Put(key, encodeOpState(key, &st))
+		val := encodeOpState(key, &st)
+		if err := b.Put(key, val); err != nil {
+			return err
+		}
+		cov := newCoverage(coverOpState)
+		cov.add(st.Zone, key, val)
+		_, _, err = appendAudit(tx, &AuditEntry{
+			Time: st.Time, Actor: actorOrSystem(st.By), Action: AuditOpState,
+			Subject: st.Zone + ": " + st.State, Reason: st.Reason, Detail: cov.detail(),
+		})
+		return err
 	})
 }
 

@@ -30,8 +30,8 @@ func checkPressure(p *Pressure) (field, reason string) {
 }
 
 // AppendPressure stores ps in one durable transaction, with the same rules
-// as AppendReadings: all or nothing, and a repeated sensor and time is a
-// duplicate.
+// as AppendReadings: all or nothing, a repeated sensor and time is a
+// duplicate, and an AuditPressure entry covers what it stored.
 func (s *Store) AppendPressure(ctx context.Context, ps []Pressure) (accepted, duplicates int, err error) {
 	if err := s.enter(); err != nil {
 		return 0, 0, err
@@ -57,6 +57,7 @@ func (s *Store) AppendPressure(ctx context.Context, ps []Pressure) (accepted, du
 	err = s.submit(ctx, len(prep), func(tx *bolt.Tx) error {
 		acc, dup = 0, 0
 		series := newSeriesBuckets(tx, bucketPressure)
+		cov := newCoverage(coverPressure)
 		for i := range prep {
 			b, err := series.get(prep[i].sensor)
 			if err != nil {
@@ -70,8 +71,9 @@ func (s *Store) AppendPressure(ctx context.Context, ps []Pressure) (accepted, du
 				return fmt.Errorf("store: put pressure of %q: %w", prep[i].sensor, err)
 			}
 			acc++
+			cov.add(prep[i].sensor, prep[i].key, prep[i].val)
 		}
-		return nil
+		return auditBatch(tx, cov, AuditPressure, "pressure samples")
 	})
 	if err != nil {
 		return 0, 0, err

@@ -136,7 +136,8 @@ func prepareReadings(rs []Reading) ([]preparedReading, error) {
 }
 
 // AppendReadings stores rs in one durable transaction and updates the
-// minute and hour rollups in it. A reading whose counter and time are
+// minute and hour rollups in it, with an AuditReadings entry covering
+// the readings it stored. A reading whose counter and time are
 // already stored, or repeated within rs, is counted in duplicates and not
 // stored again; its content is not compared. Any invalid reading fails
 // the call with a *RecordError and nothing is stored.
@@ -166,6 +167,7 @@ func (s *Store) AppendReadings(ctx context.Context, rs []Reading) (accepted, dup
 func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int) error {
 	series := newSeriesBuckets(tx, bucketReadings)
 	rollups := newRollupSet(tx, s.log)
+	cov := newCoverage(coverReadings)
 	for i := range prep {
 		p := &prep[i]
 		b, err := series.get(p.counter)
@@ -180,11 +182,15 @@ func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int) 
 			return fmt.Errorf("store: put reading of %q: %w", p.counter, err)
 		}
 		*acc++
+		cov.add(p.counter, p.key, p.val)
 		if err := rollups.add(b, p); err != nil {
 			return err
 		}
 	}
-	return rollups.flush()
+	if err := rollups.flush(); err != nil {
+		return err
+	}
+	return auditBatch(tx, cov, AuditReadings, "readings")
 }
 
 // ScanReadings calls fn with each reading of counter in [from, to), oldest

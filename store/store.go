@@ -279,6 +279,7 @@ func (s *Store) initSchema() error {
 		return nil
 	}
 	return s.update(func(tx *bolt.Tx) error {
+		startChain := tx.Bucket(bucketAudit) == nil
 		for _, name := range knownBuckets {
 			if _, err := tx.CreateBucketIfNotExists(name); err != nil {
 				return err
@@ -286,9 +287,22 @@ func (s *Store) initSchema() error {
 		}
 		meta := tx.Bucket(bucketMeta)
 		if meta.Get(metaSchema) == nil {
-			return meta.Put(metaSchema, binary.AppendUvarint(nil, schemaVersion))
+			if err := meta.Put(metaSchema, binary.AppendUvarint(nil, schemaVersion)); err != nil {
+				return err
+			}
 		}
-		return nil
+		if !startChain {
+			return nil
+		}
+		detail, err := chainStartDetail(tx)
+		if err != nil {
+			return err
+		}
+		_, _, err = appendAudit(tx, &AuditEntry{
+			Time: time.Now().UTC(), Actor: AuditActorSystem, Action: AuditChainStart,
+			Reason: "audit chain started", Detail: detail,
+		})
+		return err
 	})
 }
 
@@ -336,6 +350,13 @@ func probeLatest(tx *bolt.Tx) error {
 		})
 		if err != nil {
 			return err
+		}
+	}
+	if j := tx.Bucket(bucketJournal); j != nil {
+		if k, v := j.Cursor().Last(); k != nil {
+			if _, err := decodeJournal(k, v); err != nil {
+				return err
+			}
 		}
 	}
 	return nil

@@ -1,7 +1,9 @@
 package store
 
 import (
+	"bytes"
 	"context"
+	"encoding/binary"
 	"fmt"
 	"math"
 	"time"
@@ -18,14 +20,20 @@ const sweepChunk = 20000
 type SweepResult struct {
 	Before                      time.Time
 	Readings, Pressure, Rollups int
+	// Alarms counts the snapshots of cleared alarms removed.
+	Alarms int
 }
 
 // Sweep deletes the readings and pressure samples with Time strictly
-// before before, and the rollups whose whole bucket lies before it
-// (Start+Step ≤ before); a bucket that straddles before is kept, and
-// Verify stops comparing it with its readings. Operating-state history is
-// kept. Sweep commits in chunks; when ctx ends it returns what went so far
-// with ctx's error.
+// before before, the rollups whose whole bucket lies before it
+// (Start+Step ≤ before), and the snapshots of cleared alarms whose last
+// transition is before it; a bucket that straddles before is kept, and
+// Verify stops comparing it with its readings. Kept whatever their age,
+// as the audit record: operating-state history, the alarm journal, the
+// snapshots of alarms not cleared, and the outbox (undelivered
+// notifications). Sweep commits in chunks, each with an AuditSweep entry
+// naming the horizon and what the chunk deleted; when ctx ends it returns
+// what went so far with ctx's error.
 func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error) {
 	if err := s.enter(); err != nil {
 		return SweepResult{}, err
@@ -46,10 +54,10 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 		if err := ctx.Err(); err != nil {
 			return res, err
 		}
-		var readings, pressure, rollups int
+		var readings, pressure, rollups, alarms int
 		budget := sweepChunk
 		err := s.update(func(tx *bolt.Tx) error {
-			readings, pressure, rollups, budget = 0, 0, 0, sweepChunk
+			readings, pressure, rollups, alarms, budget = 0, 0, 0, 0, sweepChunk
 			if first {
 				meta := tx.Bucket(bucketMeta)
 				if old, ok := keyNanos(meta.Get(metaSweptBefore)); !ok || old < limit {
@@ -76,7 +84,10 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 				}
 				rollups += n
 			}
-			return nil
+			if alarms, err = s.sweepAlarms(tx, limit, &budget); err != nil {
+				return err
+			}
+			return auditSweep(tx, limit, readings, pressure, rollups, alarms)
 		})
 		if err != nil {
 			return res, err
@@ -84,6 +95,7 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 		res.Readings += readings
 		res.Pressure += pressure
 		res.Rollups += rollups
+		res.Alarms += alarms
 		if budget > 0 {
 			return res, nil
 		}
@@ -129,4 +141,60 @@ func sweepKind(root *bolt.Bucket, limit int64, budget *int) (int, error) {
 		}
 	}
 	return deleted, nil
+}
+
+// sweepAlarms deletes the snapshots of cleared alarms last updated before
+// limit, at most *budget of them, walking the updated-time index from its
+// oldest entry. Open alarms are passed over; a snapshot that cannot be
+// read is left for Verify to report.
+func (s *Store) sweepAlarms(tx *bolt.Tx, limit int64, budget *int) (int, error) {
+	alarms, idx := tx.Bucket(bucketAlarms), tx.Bucket(bucketAlarmsAt)
+	var gone [][]byte // index keys
+	c := idx.Cursor()
+	for k, _ := c.First(); k != nil && len(gone) < *budget; k, _ = c.Next() {
+		ns, id, ok := splitPairKey(k)
+		if !ok || ns >= limit {
+			break
+		}
+		raw := alarms.Get(id)
+		if raw == nil {
+			continue
+		}
+		a, err := decodeSnapshot(id, raw)
+		if err != nil {
+			s.log.Error("store: sweep passes over a damaged alarm snapshot", "alarm", string(id), "error", err.Error())
+			continue
+		}
+		if a.cleared && a.ns == ns {
+			gone = append(gone, bytes.Clone(k))
+		}
+	}
+	for _, k := range gone {
+		if err := alarms.Delete(k[8:]); err != nil {
+			return 0, err
+		}
+		if err := idx.Delete(k); err != nil {
+			return 0, err
+		}
+	}
+	*budget -= len(gone)
+	return len(gone), nil
+}
+
+// auditSweep chains the entry of one Sweep chunk. Detail:
+//
+//	8-byte horizon (Unix ns) | uvarint readings, pressure, rollups, alarms
+func auditSweep(tx *bolt.Tx, limit int64, readings, pressure, rollups, alarms int) error {
+	d := binary.BigEndian.AppendUint64(nil, uint64(limit))
+	for _, n := range []int{readings, pressure, rollups, alarms} {
+		d = binary.AppendUvarint(d, uint64(n))
+	}
+	_, _, err := appendAudit(tx, &AuditEntry{
+		Time: time.Now().UTC(), Actor: AuditActorSystem, Action: AuditSweep,
+		Subject: "before " + nsTime(limit).Format(time.RFC3339Nano),
+		Reason: fmt.Sprintf("retention: %d readings, %d pressure samples, %d rollups, %d cleared alarms deleted",
+			readings, pressure, rollups, alarms),
+		Detail: d,
+	})
+	return err
 }

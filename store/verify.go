@@ -20,9 +20,11 @@ const maxProblems = 1000
 // Verify checks a store file that no daemon holds open: bbolt's page
 // check (tx.Check), then the store's own invariants: the known buckets
 // and schema, every key an ordered 8-byte time, every value decoding with
-// a matching checksum (counts aligned with sizes), and every rollup's
-// sample count equal to the readings in its bucket (buckets older than
-// the last Sweep excepted). path is the file or its data directory.
+// a matching checksum (counts aligned with sizes), every rollup's sample
+// count equal to the readings in its bucket (buckets older than the last
+// Sweep excepted), the alarm journal numbered without a gap, the journal,
+// the alarm snapshots, their indexes and the outbox agreeing with each
+// other (verify_alarm.go). path is the file or its data directory.
 //
 // It returns every problem found, at most 1000 listed. The error is for a
 // check that could not run: the file missing or held by a daemon
@@ -157,6 +159,8 @@ func (v *verifier) run(tx *bolt.Tx) error {
 		})
 		v.guarded(fmt.Sprintf("%s against readings", st.bucket), func() { v.rollupCounts(tx, st.bucket, step) })
 	}
+	v.alarms(tx)
+	v.audit(tx)
 	return nil
 }
 

@@ -33,7 +33,7 @@ type zoneJSON struct {
 	AlertPerM3   map[string]*float64 `json:"alert_levels_per_m3"`
 	ActionPerM3  map[string]*float64 `json:"action_levels_per_m3"`
 	Locations    []locationJSON      `json:"locations"`
-	ActiveAlarms []struct{}          `json:"active_alarms"`
+	ActiveAlarms []alerts.Alarm      `json:"active_alarms"`
 	Window       string              `json:"window"`
 	StaleAfter   string              `json:"stale_after"`
 	Notes        []string            `json:"notes"`
@@ -64,7 +64,7 @@ func zoneObject(v alerts.ZoneView) zoneJSON {
 		ID: v.ID, Name: v.Name, Class: v.Class, OperatingState: v.OperatingState,
 		LimitsState: v.LimitsState, State: string(v.State),
 		LimitsPerM3: map[string]*float64{}, AlertPerM3: map[string]*float64{}, ActionPerM3: map[string]*float64{},
-		Locations: []locationJSON{}, ActiveAlarms: []struct{}{},
+		Locations: []locationJSON{}, ActiveAlarms: []alerts.Alarm{},
 		Window: formatDuration(v.Window), StaleAfter: formatDuration(v.StaleAfter),
 		Notes: v.Notes, EvaluatedAt: v.At.UTC(),
 	}
@@ -100,12 +100,19 @@ func zoneObject(v alerts.ZoneView) zoneJSON {
 	return z
 }
 
+// zoneObject is the zone object with its open alarms.
+func (s *server) zoneObject(v alerts.ZoneView) zoneJSON {
+	z := zoneObject(v)
+	z.ActiveAlarms = s.alarms.zoneAlarms(v.ID)
+	return z
+}
+
 // listZones is GET /api/v1/zones.
 func (s *server) listZones(w http.ResponseWriter, r *http.Request) {
 	views := s.zones.Zones()
 	out := make([]zoneJSON, len(views))
 	for i, v := range views {
-		out[i] = zoneObject(v)
+		out[i] = s.zoneObject(v)
 	}
 	writeJSON(w, http.StatusOK, out)
 }
@@ -117,7 +124,7 @@ func (s *server) getZone(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusNotFound, fmt.Sprintf("unknown zone %q", chi.URLParam(r, "zone")))
 		return
 	}
-	writeJSON(w, http.StatusOK, zoneObject(v))
+	writeJSON(w, http.StatusOK, s.zoneObject(v))
 }
 
 // stateRequest is the body of PUT /api/v1/zones/{zone}/state.
@@ -159,11 +166,12 @@ func (s *server) putZoneState(w http.ResponseWriter, r *http.Request) {
 		writeFieldError(w, "state", fmt.Sprintf("%q: want at-rest, in-operation or maintenance", req.State))
 		return
 	}
-	if strings.TrimSpace(req.By) == "" {
+	if strings.TrimSpace(req.By) == "" && infoOf(r).token == "" {
 		writeFieldError(w, "by", "missing: say who makes the change (it is kept for the audit trail)")
 		return
 	}
-	ch := alerts.OperatingChange{Zone: id, State: req.State, By: req.By, Reason: req.Reason, Time: s.now().UTC()}
+	// Attributed to the token; the free-text by is kept as a remark.
+	ch := alerts.OperatingChange{Zone: id, State: req.State, By: identityOf(r, req.By), Reason: req.Reason, Time: s.now().UTC()}
 	v, err := s.zones.SetOperatingState(ch, func(ch alerts.OperatingChange) error {
 		return s.store.SetOperatingState(r.Context(), store.OperatingState{Zone: ch.Zone, State: ch.State, By: ch.By, Reason: ch.Reason, Time: ch.Time})
 	})
@@ -180,8 +188,16 @@ func (s *server) putZoneState(w http.ResponseWriter, r *http.Request) {
 		}
 		return
 	}
+	if s.alarms != nil {
+		// The change is on record; the rules follow it (maintenance
+		// silences excursions). A failure here is the rules' journal, not
+		// the change, so it is logged rather than undone.
+		if err := s.alarms.eng.SetOperatingState(r.Context(), id, req.State); err != nil {
+			s.log.Error("alarm rules did not take the operating state", "zone", id, "err", err)
+		}
+	}
 	s.log.Info("operating state changed", "zone", id, "state", req.State, "by", req.By, "reason", req.Reason, "token", infoOf(r).token)
-	writeJSON(w, http.StatusOK, zoneObject(v))
+	writeJSON(w, http.StatusOK, s.zoneObject(v))
 }
 
 // formatDuration writes a duration as a configuration would: "10m", "1h",

@@ -194,7 +194,6 @@ func TestPutZoneState(t *testing.T) {
 	}{
 		{"unknown zone", "lab", `{"state":"at-rest","by":"x"}`, 404, ""},
 		{"bad state", "fill", `{"state":"idle","by":"x"}`, 400, "state"},
-		{"no author", "fill", `{"state":"at-rest"}`, 400, "by"},
 		{"unknown field", "fill", `{"state":"at-rest","by":"x","who":"y"}`, 400, "who"},
 		{"not JSON", "fill", `state=at-rest`, 400, ""},
 		{"trailing data", "fill", `{"state":"at-rest","by":"x"} {}`, 400, ""},
@@ -226,7 +225,7 @@ func TestPutZoneState(t *testing.T) {
 	if err := json.Unmarshal(b, &z); err != nil {
 		t.Fatal(err)
 	}
-	if z.OperatingState != "in-operation" || z.StateChange == nil || z.StateChange.By != "j.marsh" || z.StateChange.Reason != "shift start" ||
+	if z.OperatingState != "in-operation" || z.StateChange == nil || z.StateChange.By != "shift-lead (j.marsh)" || z.StateChange.Reason != "shift start" ||
 		*z.LimitsPerM3["0.5"] != 352000 || *z.LimitsPerM3["5"] != 2930 {
 		t.Fatalf("after change: %+v %v", z, limitsOf(z.LimitsPerM3))
 	}
@@ -238,5 +237,15 @@ func TestPutZoneState(t *testing.T) {
 	if z.OperatingState != "maintenance" || z.LimitsState != "in-operation" || *z.LimitsPerM3["0.5"] != 352000 ||
 		!strings.Contains(strings.Join(z.Notes, "|"), "maintenance") {
 		t.Fatalf("maintenance: %s limits %s %v notes %q", z.OperatingState, z.LimitsState, limitsOf(z.LimitsPerM3), z.Notes)
+	}
+	// Who made a change is the token, not what the body says: without a
+	// remark it is the token's name alone.
+	code, _, b = d.do("PUT", "/api/v1/zones/fill/state", secretOperator, "application/json", []byte(`{"state":"at-rest","reason":"end of shift"}`))
+	if code != 200 {
+		t.Fatalf("%d %s", code, b)
+	}
+	json.Unmarshal(b, &z)
+	if z.StateChange == nil || z.StateChange.By != "shift-lead" {
+		t.Errorf("attributed to %+v, want the token's name", z.StateChange)
 	}
 }

@@ -41,6 +41,8 @@ type siteConfig struct {
 	Zones           []alerts.ZoneConfig `yaml:"zones"`
 	Counters        []collector.Counter `yaml:"counters"`
 	PressureSensors []collector.Sensor  `yaml:"pressure_sensors"`
+	Alarms          alerts.AlarmsConfig `yaml:"alarms"`
+	Notifications   alerts.NotifyConfig `yaml:"notifications"`
 }
 
 // accessConfig is who may use the HTTP API.
@@ -518,6 +520,12 @@ func (d *nodeDecoder) check(c *siteConfig) {
 	}
 
 	for _, e := range alerts.ValidateZones(c.Zones) {
+		d.add(e.Path, "%s", e.Msg)
+	}
+	for _, e := range alerts.ValidateAlarms(c.Alarms) {
+		d.add(e.Path, "%s", e.Msg)
+	}
+	for _, e := range alerts.ValidateNotify(c.Notifications) {
 		d.add(e.Path, "%s", e.Msg)
 	}
 	zoneIDs := map[string]bool{}

@@ -19,6 +19,11 @@ import (
 var demoSiteYAML []byte
 
 const (
+	// demoExcursionRate keeps the demo's day of history to a handful of
+	// excursions site-wide (about one a day per counter): each one at the
+	// action level latches until acknowledged, and a screen full of them
+	// would hide what the demo is there to show.
+	demoExcursionRate = 1.0 / 1440
 	// demoBackfill is the history the demo starts with.
 	demoBackfill = 24 * time.Hour
 	// demoBatch is the simulated time per backfill commit: an hour of the
@@ -50,7 +55,7 @@ func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry,
 		}
 		limits[ci.ID] = m
 	}
-	sim, err := collector.NewSimulator(reg, limits, collector.SimOptions{Seed: demoSeed, Now: now})
+	sim, err := collector.NewSimulator(reg, limits, collector.SimOptions{Seed: demoSeed, Now: now, ExcursionRate: demoExcursionRate})
 	if err != nil {
 		return err
 	}

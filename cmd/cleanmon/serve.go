@@ -153,18 +153,29 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 	if err != nil {
 		return quit(exitUsage, "%v", err)
 	}
-	if err := restoreZones(st, zones, cfg, now(), log); err != nil {
+	history, states, err := restoreZones(st, zones, cfg, now(), log)
+	if err != nil {
 		return quit(exitFail, "restoring zone state from the store: %v", err)
 	}
-	ingest := collector.NewIngest(reg, storeSink{st}, collector.IngestOptions{Retention: cfg.retention(), Now: now})
+	alarmSvc, err := newAlarmService(cfg, st, now, log)
+	if err != nil {
+		return quit(exitUsage, "%v", err)
+	}
+	ingestMetrics := alerts.NewIngestMetrics(counterIDs(cfg))
+	ingest := collector.NewIngest(reg, storeSink{st, ingestMetrics}, collector.IngestOptions{Retention: cfg.retention(), Now: now})
 	ingest.OnReadings(func(rs []collector.Reading) {
 		obs := make([]alerts.Observation, len(rs))
 		for i := range rs {
 			obs[i] = observation(&rs[i])
 		}
 		zones.Observe(obs...)
+		alarmSvc.observeReadings(rs)
 	})
+	ingest.OnPressure(alarmSvc.observePressure)
 	ingest.OnRejected(func(rj collector.Rejection) {
+		if rj.Kind == "reading" {
+			ingestMetrics.Count(rj.ID, alerts.IngestRejected, 1)
+		}
 		// Bad input is the sender's to fix and is answered as such; a
 		// failed commit is ours, and an operator must see it.
 		if errors.Is(rj.Err, collector.ErrCommit) {
@@ -175,10 +186,26 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 	if err != nil {
 		return quit(exitUsage, "%v", err)
 	}
-	srv := &server{cfg: cfg, store: st, zones: zones, ingest: ingest, auth: auth, log: log, metrics: newMetricsRegistry(), now: now}
+	srv := &server{cfg: cfg, store: st, zones: zones, ingest: ingest, auth: auth, log: log, metrics: newMetricsRegistry(), now: now,
+		alarms: alarmSvc, alarmLog: st}
+	srv.metrics.MustRegister(
+		alerts.NewZoneCollector(zones),
+		alerts.NewPressureCollector(alarmSvc),
+		alerts.NewAlarmCollector(alarmSvc.eng, zoneIDs(cfg)),
+		ingestMetrics,
+		alerts.NewNotifierCollector(alarmSvc.disp),
+	)
+	bg, stopBG := context.WithCancel(context.Background())
+	var wg sync.WaitGroup
+	if err := alarmSvc.start(bg, &wg, history, states); err != nil {
+		stopBG()
+		return quit(exitFail, "%v", err)
+	}
 
 	ln, err := net.Listen("tcp", listen)
 	if err != nil {
+		stopBG()
+		wg.Wait()
 		return quit(exitFail, "listening on %s: %v", listen, err)
 	}
 	hs := &http.Server{
@@ -202,8 +229,6 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 		log.Warn("demo: the API is open, no token is asked for any route", "listen", ln.Addr().String(), "speed", o.speed)
 	}
 
-	bg, stopBG := context.WithCancel(context.Background())
-	var wg sync.WaitGroup
 	wg.Add(1)
 	go func() {
 		defer wg.Done()
@@ -249,12 +274,15 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 
 // restoreZones brings the live zone state back after a start: the
 // operating states on record and the readings within each zone's window.
-func restoreZones(st *store.Store, zones *alerts.ZoneTracker, cfg *siteConfig, now time.Time, log *slog.Logger) error {
-	states, err := st.OperatingStates()
+// It returns those readings and states for the alarm rules as well.
+func restoreZones(st *store.Store, zones *alerts.ZoneTracker, cfg *siteConfig, now time.Time, log *slog.Logger) ([]alerts.Observation, map[string]string, error) {
+	stored, err := st.OperatingStates()
 	if err != nil {
-		return err
+		return nil, nil, err
 	}
-	for zone, s := range states {
+	states := map[string]string{}
+	var history []alerts.Observation
+	for zone, s := range stored {
 		if _, ok := zones.Zone(zone); !ok {
 			log.Warn("stored operating state of a zone no longer configured", "zone", zone, "state", s.State)
 			continue
@@ -271,7 +299,7 @@ func restoreZones(st *store.Store, zones *alerts.ZoneTracker, cfg *siteConfig, n
 				return nil
 			})
 			if err != nil {
-				return err
+				return nil, nil, err
 			}
 			if before != nil {
 				zones.RestoreOperatingState(opChange(zone, *before))
@@ -279,6 +307,8 @@ func restoreZones(st *store.Store, zones *alerts.ZoneTracker, cfg *siteConfig, n
 		}
 		if err := zones.RestoreOperatingState(opChange(zone, s)); err != nil {
 			log.Warn("stored operating state not restored", "zone", zone, "err", err)
+		} else {
+			states[zone] = s.State
 		}
 	}
 	for _, k := range cfg.Counters {
@@ -287,7 +317,7 @@ func restoreZones(st *store.Store, zones *alerts.ZoneTracker, cfg *siteConfig, n
 			continue
 		}
 		if r, found, err := st.LatestReading(k.ID); err != nil {
-			return err
+			return nil, nil, err
 		} else if found {
 			zones.Observe(storedObservation(r))
 		}
@@ -297,11 +327,28 @@ func restoreZones(st *store.Store, zones *alerts.ZoneTracker, cfg *siteConfig, n
 			return nil
 		})
 		if err != nil {
-			return err
+			return nil, nil, err
 		}
 		zones.Observe(obs...)
+		history = append(history, obs...)
 	}
-	return nil
+	return history, states, nil
+}
+
+func counterIDs(cfg *siteConfig) []string {
+	out := make([]string, len(cfg.Counters))
+	for i, k := range cfg.Counters {
+		out[i] = k.ID
+	}
+	return out
+}
+
+func zoneIDs(cfg *siteConfig) []string {
+	out := make([]string, len(cfg.Zones))
+	for i, z := range cfg.Zones {
+		out[i] = z.ID
+	}
+	return out
 }
 
 func opChange(zone string, s store.OperatingState) alerts.OperatingChange {

@@ -78,7 +78,7 @@ func TestRestartKeepsOperatingStateAndReadings(t *testing.T) {
 	d2 := startSite(t, apiSite(false), dir)
 	var fill, hood zoneOut
 	d2.getJSON("/api/v1/zones/fill", &fill)
-	if fill.OperatingState != "maintenance" || fill.StateChange == nil || fill.StateChange.By != "k.osei" ||
+	if fill.OperatingState != "maintenance" || fill.StateChange == nil || fill.StateChange.By != "shift-lead (k.osei)" ||
 		fill.StateChange.Reason != "HEPA change" || !fill.StateChange.Since.Equal(before.StateChange.Since) {
 		t.Fatalf("operating state after restart: %s %+v (before %+v)", fill.OperatingState, fill.StateChange, before.StateChange)
 	}

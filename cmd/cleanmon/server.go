@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"math"
 	"net/http"
 	"runtime/debug"
 	"sync/atomic"
@@ -44,6 +45,11 @@ type dataStore interface {
 	Backup(w io.Writer) (int64, error)
 }
 
+// alarmReader reads the alarm snapshots the store keeps.
+type alarmReader interface {
+	ScanAlarms(since time.Time, fn func(id string, updated time.Time, snapshot []byte, cleared bool) error) error
+}
+
 // ingestHandlers are the collector's HTTP entry points.
 type ingestHandlers interface {
 	Readings(w http.ResponseWriter, r *http.Request)
@@ -61,6 +67,10 @@ type server struct {
 	log     *slog.Logger
 	metrics *prometheus.Registry
 	now     func() time.Time
+	// alarms is the alarm engine and its notifiers (nil in tests that do
+	// not need them); alarmLog reads the alarm journal.
+	alarms   *alarmService
+	alarmLog alarmReader
 
 	// ready is set once the store is open and ingest runs, and cleared
 	// when shutdown begins, so a balancer stops sending work first.
@@ -105,6 +115,8 @@ func (s *server) routes() http.Handler {
 		r.With(short, s.auth.require(permOperate)).Put("/zones/{zone}/state", s.putZoneState)
 
 		r.With(short, read).Get("/alarms", s.listAlarms)
+		r.With(short, s.auth.require(permOperate)).Post("/alarms/{id}/ack", s.ackAlarm)
+		r.With(withTimeout(streamTimeout), read).Get("/zones/{zone}/levels", s.zoneLevels)
 
 		r.With(withTimeout(backupTimeout), s.auth.require(permAdmin)).Get("/backup", s.backup)
 	})
@@ -220,25 +232,26 @@ func (s *server) healthz(w http.ResponseWriter, r *http.Request) {
 	writeJSON(w, http.StatusOK, map[string]string{"status": "ok"})
 }
 
-// readyz answers 200 while the store is open and ingest runs.
+// readyz answers 200 while the store is open and ingest runs, with the
+// health of every notifier as detail: a failing notifier does not make
+// the daemon unready (readings are still taken and kept, and deliveries
+// wait in the outbox), but it shows here and in the metrics.
 func (s *server) readyz(w http.ResponseWriter, r *http.Request) {
 	if !s.ready.Load() {
 		writeError(w, http.StatusServiceUnavailable, "not ready: starting or shutting down")
 		return
 	}
-	writeJSON(w, http.StatusOK, map[string]string{"status": "ready"})
-}
-
-// listAlarms is a placeholder until the alarm engine exists: no alarm can
-// be active yet, so the honest answer is an empty list.
-func (s *server) listAlarms(w http.ResponseWriter, r *http.Request) {
-	switch st := r.URL.Query().Get("state"); st {
-	case "", "active", "all":
-	default:
-		writeFieldError(w, "state", fmt.Sprintf("%q: want active or all", st))
-		return
+	out := map[string]any{"status": "ready"}
+	if s.alarms != nil {
+		h := s.alarms.disp.HealthList()
+		out["notifiers"] = h
+		for _, n := range h {
+			if !n.Up {
+				out["status"] = "ready, notifier failing"
+			}
+		}
 	}
-	writeJSON(w, http.StatusOK, []struct{}{})
+	writeJSON(w, http.StatusOK, out)
 }
 
 // backup streams a consistent copy of the store.
@@ -261,7 +274,10 @@ func (s *server) backup(w http.ResponseWriter, r *http.Request) {
 
 // storeSink commits the collector's readings to the store: the collector
 // acknowledges a sender only once this returns.
-type storeSink struct{ st *store.Store }
+type storeSink struct {
+	st *store.Store
+	m  *alerts.IngestMetrics // nil: no metrics
+}
 
 var _ collector.Sink = storeSink{}
 
@@ -276,7 +292,32 @@ func (s storeSink) CommitReadings(ctx context.Context, rs []collector.Reading) (
 			Sizes: r.Sizes, Counts: r.Counts,
 		}
 	}
-	return s.st.AppendReadings(ctx, out)
+	acc, dup, err := s.st.AppendReadings(ctx, out)
+	if err == nil && s.m != nil {
+		s.count(rs, acc, dup)
+	}
+	return acc, dup, err
+}
+
+// count feeds cleanmon_readings_total and the per-counter last-reading
+// metrics. The store reports duplicates per call, not per reading: a call
+// that mixes new and repeated readings is counted per counter in the
+// proportion of the call (exact whenever a counter's readings are all new
+// or all repeated, which is how resent batches arrive).
+func (s storeSink) count(rs []collector.Reading, acc, dup int) {
+	per := map[string]int{}
+	for i := range rs {
+		per[rs[i].Counter]++
+		s.m.Observe(rs[i].Counter, rs[i].Time, rs[i].FlowLPM)
+	}
+	for c, n := range per {
+		a := n
+		if dup > 0 {
+			a = int(math.Round(float64(n) * float64(acc) / float64(acc+dup)))
+		}
+		s.m.Count(c, alerts.IngestAccepted, a)
+		s.m.Count(c, alerts.IngestDuplicate, n-a)
+	}
 }
 
 // CommitPressure implements collector.Sink.

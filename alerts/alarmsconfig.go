@@ -1,0 +1,45 @@
+package alerts
+
+import "fmt"
+
+// AlarmsConfig is the `alarms:` section of the site configuration: the
+// tunables of the rules that are not per zone.
+type AlarmsConfig struct {
+	// Consecutive is N of the consecutive rule: N samples in a row above
+	// the alert level raise an action alarm (default 3).
+	Consecutive int `yaml:"consecutive"`
+	// TrendRun is how many samples in a row above the baseline's centre
+	// line raise a trend alert (default 8).
+	TrendRun int `yaml:"trend_run"`
+	// TrendBaseline is how many earlier samples make the baseline
+	// (default 100).
+	TrendBaseline int `yaml:"trend_baseline"`
+	// Latch overrides, per alarm kind, whether its alarms stay until
+	// acknowledged; a kind left out latches at the action level.
+	Latch map[string]bool `yaml:"latch"`
+}
+
+var knownKinds = map[string]bool{
+	KindExcursion: true, KindConsecutive: true, KindOutOfClass: true, KindPressureLow: true,
+	KindPressureReversal: true, KindStale: true, KindInstrument: true, KindTrend: true,
+}
+
+// ValidateAlarms checks the section; paths start with "alarms".
+func ValidateAlarms(c AlarmsConfig) []FieldError {
+	var errs []FieldError
+	if c.Consecutive != 0 && c.Consecutive < 2 {
+		errs = append(errs, FieldError{"alarms.consecutive", fmt.Sprintf("%d: at least 2 (one sample is an excursion)", c.Consecutive)})
+	}
+	if c.TrendRun != 0 && c.TrendRun < 2 {
+		errs = append(errs, FieldError{"alarms.trend_run", fmt.Sprintf("%d: at least 2", c.TrendRun)})
+	}
+	if c.TrendBaseline != 0 && c.TrendBaseline < 10 {
+		errs = append(errs, FieldError{"alarms.trend_baseline", fmt.Sprintf("%d: at least 10 samples", c.TrendBaseline)})
+	}
+	for k := range c.Latch {
+		if !knownKinds[k] {
+			errs = append(errs, FieldError{"alarms.latch." + k, "unknown alarm kind"})
+		}
+	}
+	return errs
+}

@@ -1,0 +1,399 @@
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"log/slog"
+	"net/http"
+	"sort"
+	"strings"
+	"sync"
+	"time"
+
+	"github.com/go-chi/chi/v5"
+
+	"cleanmon/alerts"
+	"cleanmon/collector"
+	"cleanmon/store"
+)
+
+// alarmStore adapts the bbolt store to what the alarm engine (Journal) and
+// the dispatcher (Outbox, QueueCounter) need: transitions and alarm
+// snapshots travel as JSON, which the store keeps as opaque bytes.
+type alarmStore struct{ st *store.Store }
+
+func (a alarmStore) RecordTransitions(ctx context.Context, ts []alerts.Transition, notifiers []string) error {
+	recs := make([]store.AlarmRecord, len(ts))
+	for i := range ts {
+		snap, err := json.Marshal(ts[i].Alarm)
+		if err != nil {
+			return err
+		}
+		entry, err := json.Marshal(ts[i])
+		if err != nil {
+			return err
+		}
+		recs[i] = store.AlarmRecord{AlarmID: ts[i].AlarmID, Time: ts[i].Time, Cleared: ts[i].To == alerts.StateCleared, Snapshot: snap, Entry: entry}
+	}
+	_, err := a.st.RecordAlarms(ctx, recs, notifiers)
+	return err
+}
+
+func (a alarmStore) OpenAlarms(ctx context.Context) ([]alerts.Alarm, error) {
+	var out []alerts.Alarm
+	err := a.st.OpenAlarms(func(id string, snap []byte) error {
+		var al alerts.Alarm
+		if err := json.Unmarshal(snap, &al); err != nil {
+			return fmt.Errorf("alarm %s: %w", id, err)
+		}
+		out = append(out, al)
+		return ctx.Err()
+	})
+	return out, err
+}
+
+func (a alarmStore) Due(ctx context.Context, notifier string, now time.Time, limit int) ([]alerts.Delivery, error) {
+	items, err := a.st.OutboxDue(notifier, now, limit)
+	if err != nil {
+		return nil, err
+	}
+	out := make([]alerts.Delivery, 0, len(items))
+	for _, it := range items {
+		d := alerts.Delivery{ID: it.ID, Notifier: it.Notifier, Attempts: it.Attempts, NextAttempt: it.NextAttempt, LastError: it.LastError}
+		if err := json.Unmarshal(it.Payload, &d.Transition); err != nil {
+			return nil, fmt.Errorf("outbox item %d: %w", it.ID, err)
+		}
+		out = append(out, d)
+	}
+	return out, nil
+}
+
+func (a alarmStore) Done(ctx context.Context, id uint64) error { return a.st.OutboxDone(ctx, id) }
+
+func (a alarmStore) Retry(ctx context.Context, id uint64, attempts int, next time.Time, lastErr string) error {
+	return a.st.OutboxRetry(ctx, id, attempts, next, lastErr)
+}
+
+// Pending lets the notifier metrics show queue lengths without reading
+// the queue.
+func (a alarmStore) Pending(ctx context.Context, notifier string) (int, error) {
+	return a.st.OutboxLen(notifier)
+}
+
+// engineConfig is the alarm engine's view of the site configuration.
+func engineConfig(cfg *siteConfig, notifiers []string) alerts.EngineConfig {
+	ec := alerts.EngineConfig{
+		Zones: cfg.Zones, Notifiers: notifiers,
+		Consecutive: cfg.Alarms.Consecutive, TrendRun: cfg.Alarms.TrendRun, TrendBaseline: cfg.Alarms.TrendBaseline, Latch: cfg.Alarms.Latch,
+	}
+	for _, k := range cfg.Counters {
+		ec.Counters = append(ec.Counters, alerts.CounterRule{
+			ID: k.ID, Zone: k.Zone, Location: counterLocation(k),
+			NominalFlowLPM: k.FlowLPM, MaxPerM3: k.MaxPerM3, Interval: time.Duration(k.Interval),
+		})
+	}
+	for _, p := range cfg.PressureSensors {
+		ec.Sensors = append(ec.Sensors, alerts.SensorRule{
+			ID: p.ID, High: p.High, Low: p.Low, MinPa: p.MinPa, MaxPa: p.MaxPa,
+			Delay: time.Duration(p.Delay), Interval: time.Duration(p.Interval),
+		})
+	}
+	return ec
+}
+
+// alarmService runs the alarm engine beside the ingest path: readings are
+// handed over after their commit, in order, through a bounded queue, so a
+// slow rule never delays an acknowledgement and a burst is absorbed (the
+// queue pushes back on ingest only when it is full).
+type alarmService struct {
+	eng       *alerts.Engine
+	disp      *alerts.Dispatcher
+	notifiers []alerts.Notifier
+	log       *slog.Logger
+	work      chan func(context.Context)
+
+	mu sync.Mutex
+	dp map[string]alerts.SensorDP // latest DP per sensor, for metrics
+}
+
+const alarmQueue = 4096
+
+func newAlarmService(cfg *siteConfig, st *store.Store, now func() time.Time, log *slog.Logger) (*alarmService, error) {
+	notifiers, err := alerts.BuildNotifiers(cfg.Notifications, &http.Client{Timeout: 30 * time.Second}, log)
+	if err != nil {
+		return nil, err
+	}
+	opt := cfg.Notifications.DispatcherOptions()
+	opt.Now, opt.Logger = now, log
+	disp := alerts.NewDispatcher(alarmStore{st}, notifiers, opt)
+	eng, err := alerts.NewEngine(engineConfig(cfg, disp.Names()), alarmStore{st}, now)
+	if err != nil {
+		return nil, err
+	}
+	eng.Subscribe(func([]alerts.Transition) { disp.Kick() })
+	s := &alarmService{eng: eng, disp: disp, notifiers: notifiers, log: log, work: make(chan func(context.Context), alarmQueue), dp: map[string]alerts.SensorDP{}}
+	for _, p := range cfg.PressureSensors {
+		s.dp[p.ID] = alerts.SensorDP{Sensor: p.ID, High: p.High, Low: p.Low, MinPa: p.MinPa}
+		if v, ok, err := st.LatestPressure(p.ID); err == nil && ok {
+			d := s.dp[p.ID]
+			d.Pa, d.Time = v.Pa, v.Time
+			s.dp[p.ID] = d
+		}
+	}
+	return s, nil
+}
+
+// start restores the engine (history first, so the consecutive and trend
+// rules continue; then the open alarms) and runs the queue worker, the
+// one-second tick of the time-driven rules, the dispatcher and the
+// Alertmanager resenders until ctx ends.
+func (s *alarmService) start(ctx context.Context, wg *sync.WaitGroup, history []alerts.Observation, states map[string]string) error {
+	if err := s.eng.Prime(history); err != nil {
+		return fmt.Errorf("alarm engine history: %w", err)
+	}
+	if err := s.eng.Restore(ctx); err != nil {
+		return fmt.Errorf("restoring alarms: %w", err)
+	}
+	for zone, st := range states {
+		if err := s.eng.SetOperatingState(ctx, zone, st); err != nil {
+			s.log.Warn("operating state not applied to the alarm rules", "zone", zone, "err", err)
+		}
+	}
+	wg.Add(3)
+	go func() {
+		defer wg.Done()
+		for {
+			select {
+			case <-ctx.Done():
+				// Drain what is queued so that no committed reading goes
+				// unjudged at a clean stop.
+				for {
+					select {
+					case f := <-s.work:
+						f(context.Background())
+					default:
+						return
+					}
+				}
+			case f := <-s.work:
+				f(ctx)
+			}
+		}
+	}()
+	go func() {
+		defer wg.Done()
+		t := time.NewTicker(time.Second)
+		defer t.Stop()
+		for {
+			select {
+			case <-ctx.Done():
+				return
+			case <-t.C:
+				s.enqueue(ctx, func(ctx context.Context) {
+					if err := s.eng.Tick(ctx); err != nil && ctx.Err() == nil {
+						s.log.Error("alarm rules tick failed", "err", err)
+					}
+				})
+			}
+		}
+	}()
+	go func() {
+		defer wg.Done()
+		if err := s.disp.Run(ctx); err != nil && ctx.Err() == nil {
+			s.log.Error("notification dispatcher stopped", "err", err)
+		}
+	}()
+	for _, n := range s.notifiers {
+		if r, ok := n.(alerts.Resender); ok {
+			wg.Add(1)
+			go func() {
+				defer wg.Done()
+				r.Run(ctx, func() []alerts.Alarm { return s.eng.Alarms(false) })
+			}()
+		}
+	}
+	return nil
+}
+
+func (s *alarmService) enqueue(ctx context.Context, f func(context.Context)) {
+	select {
+	case s.work <- f:
+	case <-ctx.Done():
+	}
+}
+
+// observeReadings hands committed readings to the rules.
+func (s *alarmService) observeReadings(rs []collector.Reading) {
+	crs := make([]alerts.CounterReading, len(rs))
+	for i := range rs {
+		crs[i] = alerts.CounterReading{Observation: observation(&rs[i]), FlowLPM: rs[i].FlowLPM}
+	}
+	s.enqueue(context.Background(), func(ctx context.Context) {
+		if err := s.eng.ObserveCounterReadings(ctx, crs); err != nil {
+			s.log.Error("alarm rules could not judge readings", "readings", len(crs), "err", err)
+		}
+	})
+}
+
+// observePressure hands committed DP samples to the rules.
+func (s *alarmService) observePressure(ps []collector.Pressure) {
+	obs := make([]alerts.PressureObservation, len(ps))
+	s.mu.Lock()
+	for i, p := range ps {
+		obs[i] = alerts.PressureObservation{Sensor: p.Sensor, Time: p.Time, Pa: p.Pa}
+		if d, ok := s.dp[p.Sensor]; ok && !p.Time.Before(d.Time) {
+			d.Pa, d.Time = p.Pa, p.Time
+			s.dp[p.Sensor] = d
+		}
+	}
+	s.mu.Unlock()
+	s.enqueue(context.Background(), func(ctx context.Context) {
+		if err := s.eng.ObservePressure(ctx, obs); err != nil {
+			s.log.Error("alarm rules could not judge DP samples", "samples", len(obs), "err", err)
+		}
+	})
+}
+
+// LatestDP is the newest DP per sensor, for the pressure metrics.
+func (s *alarmService) LatestDP() []alerts.SensorDP {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	out := make([]alerts.SensorDP, 0, len(s.dp))
+	for _, d := range s.dp {
+		if !d.Time.IsZero() {
+			out = append(out, d)
+		}
+	}
+	sort.Slice(out, func(i, j int) bool { return out[i].Sensor < out[j].Sensor })
+	return out
+}
+
+// zoneAlarms are the open alarms of one zone, newest first.
+func (s *alarmService) zoneAlarms(zone string) []alerts.Alarm {
+	out := []alerts.Alarm{}
+	if s == nil {
+		return out
+	}
+	for _, a := range s.eng.Alarms(false) {
+		if a.Zone == zone {
+			out = append(out, a)
+		}
+	}
+	sort.Slice(out, func(i, j int) bool { return out[i].Since.After(out[j].Since) })
+	return out
+}
+
+// listAlarms is GET /api/v1/alarms?state=active|all[&since=RFC3339]:
+// active are the alarms not cleared (from the engine); all adds what the
+// journal holds since `since` (default the last 7 days).
+func (s *server) listAlarms(w http.ResponseWriter, r *http.Request) {
+	q := r.URL.Query()
+	state := q.Get("state")
+	switch state {
+	case "", "active", "all":
+	default:
+		writeFieldError(w, "state", fmt.Sprintf("%q: want active or all", state))
+		return
+	}
+	out := []alerts.Alarm{}
+	if s.alarms == nil {
+		writeJSON(w, http.StatusOK, out)
+		return
+	}
+	if state != "all" {
+		out = append(out, s.alarms.eng.Alarms(false)...)
+	} else {
+		since := s.now().Add(-7 * 24 * time.Hour)
+		if v := q.Get("since"); v != "" {
+			t, err := time.Parse(time.RFC3339Nano, v)
+			if err != nil {
+				writeFieldError(w, "since", fmt.Sprintf("%q is not an RFC 3339 time", v))
+				return
+			}
+			since = t
+		}
+		seen := map[string]bool{}
+		for _, a := range s.alarms.eng.Alarms(false) {
+			out = append(out, a)
+			seen[a.ID] = true
+		}
+		err := s.alarmLog.ScanAlarms(since, func(id string, _ time.Time, snap []byte, _ bool) error {
+			if seen[id] {
+				return nil
+			}
+			var a alerts.Alarm
+			if err := json.Unmarshal(snap, &a); err != nil {
+				return fmt.Errorf("alarm %s: %w", id, err)
+			}
+			seen[id] = true
+			out = append(out, a)
+			return nil
+		})
+		if err != nil {
+			writeError(w, errorStatus(err), "reading the alarm journal: "+err.Error())
+			return
+		}
+	}
+	sort.SliceStable(out, func(i, j int) bool { return out[i].Since.After(out[j].Since) })
+	writeJSON(w, http.StatusOK, out)
+}
+
+// ackRequest is the body of POST /api/v1/alarms/{id}/ack.
+type ackRequest struct {
+	By      string `json:"by"`
+	Comment string `json:"comment"`
+}
+
+const maxAckBody = 8 << 10
+
+// ackAlarm is POST /api/v1/alarms/{id}/ack (operator). The alarm is
+// attributed to the token that made the request; the free-text `by` is
+// kept beside it as a remark, so "who" cannot be typed in by anyone.
+func (s *server) ackAlarm(w http.ResponseWriter, r *http.Request) {
+	if s.alarms == nil {
+		writeError(w, http.StatusNotFound, "no alarm engine")
+		return
+	}
+	var req ackRequest
+	if !decodeStrict(w, r, maxAckBody, &req, "by, comment") {
+		return
+	}
+	id := chi.URLParam(r, "id")
+	who := identityOf(r, req.By)
+	if strings.TrimSpace(who) == "" {
+		writeFieldError(w, "by", "missing: say who acknowledges")
+		return
+	}
+	a, err := s.alarms.eng.Ack(r.Context(), id, who, req.Comment)
+	switch {
+	case err == nil:
+		s.log.Info("alarm acknowledged", "alarm", id, "by", who, "token", infoOf(r).token)
+		writeJSON(w, http.StatusOK, a)
+	case errors.Is(err, alerts.ErrNoAlarm):
+		writeError(w, http.StatusNotFound, err.Error())
+	case errors.Is(err, alerts.ErrAlreadyAcked), errors.Is(err, alerts.ErrAlarmCleared), errors.Is(err, alerts.ErrAlarmPending):
+		writeError(w, http.StatusConflict, err.Error())
+	case errors.Is(err, alerts.ErrAck):
+		writeError(w, http.StatusBadRequest, err.Error())
+	default:
+		s.log.Error("acknowledgement not recorded", "alarm", id, "err", err)
+		writeError(w, errorStatus(err), "acknowledgement not recorded: "+err.Error())
+	}
+}
+
+// identityOf is who a change is attributed to: the token's name, with the
+// request's free-text name as a remark when it adds something; without a
+// token (the open demo) the free text alone.
+func identityOf(r *http.Request, remark string) string {
+	remark = strings.TrimSpace(remark)
+	tok := infoOf(r).token
+	switch {
+	case tok == "":
+		return remark
+	case remark == "" || remark == tok:
+		return tok
+	}
+	return tok + " (" + remark + ")"
+}

@@ -1,0 +1,129 @@
+package main
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"net/http"
+	"strconv"
+	"strings"
+	"time"
+
+	"cleanmon/alerts"
+	"cleanmon/classify"
+	"cleanmon/store"
+)
+
+// decodeStrict reads a small JSON object body: unknown fields, trailing
+// data and oversized bodies are refused with an answer naming the field.
+func decodeStrict(w http.ResponseWriter, r *http.Request, limit int64, v any, fields string) bool {
+	dec := json.NewDecoder(http.MaxBytesReader(w, r.Body, limit))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(v); err != nil {
+		var mbe *http.MaxBytesError
+		switch {
+		case errors.As(err, &mbe):
+			writeError(w, http.StatusRequestEntityTooLarge, fmt.Sprintf("body larger than %d bytes", limit))
+		case strings.HasPrefix(err.Error(), "json: unknown field "):
+			f := strings.Trim(strings.TrimPrefix(err.Error(), "json: unknown field "), `"`)
+			writeFieldError(w, f, "unknown field (want "+fields+")")
+		default:
+			writeError(w, http.StatusBadRequest, "body: want a JSON object with "+fields+": "+err.Error())
+		}
+		return false
+	}
+	if _, err := dec.Token(); err != io.EOF {
+		writeError(w, http.StatusBadRequest, "body: unexpected data after the JSON object")
+		return false
+	}
+	return true
+}
+
+// levelsJSON is the answer of GET /api/v1/zones/{zone}/levels.
+type levelsJSON struct {
+	Zone   string                    `json:"zone"`
+	From   time.Time                 `json:"from"`
+	To     time.Time                 `json:"to"`
+	Days   int                       `json:"days"`
+	Method string                    `json:"method"`
+	Sizes  map[string]sizeLevelsJSON `json:"sizes"`
+	Notes  []string                  `json:"notes"`
+}
+
+type sizeLevelsJSON struct {
+	// Suggested are the zone's alert and action levels from the pooled
+	// history of its locations (never above the limit).
+	Suggested alerts.LevelAdvice `json:"suggested"`
+	// Configured are the levels in force now.
+	ConfiguredAlert  *float64 `json:"configured_alert_per_m3"`
+	ConfiguredAction *float64 `json:"configured_action_per_m3"`
+	// Locations are each location's count baseline: centre c̄ and upper
+	// control limit c̄ + 3√c̄ of the raw counts per sample (Poisson).
+	Locations map[string]alerts.ControlLimits `json:"locations"`
+}
+
+const levelsMethodNote = "alert = 95th and action = 99th percentile of the per-sample concentrations over the period, raised to the mean where below it and never above the class or grade limit (see alerts.SuggestLevels); ISO 14644-2 asks alert and action levels to be set from such history, by the site's qualified people"
+
+// zoneLevels is GET /api/v1/zones/{zone}/levels?days=N (default 30, at
+// most 366): suggested alert and action levels from the stored history,
+// as advice for the people who set them, never applied by itself.
+func (s *server) zoneLevels(w http.ResponseWriter, r *http.Request) {
+	zone, _, ok := s.zoneAndLocation(w, r)
+	if !ok {
+		return
+	}
+	days := 30
+	if v := r.URL.Query().Get("days"); v != "" {
+		n, err := strconv.Atoi(v)
+		if err != nil || n < 1 || n > 366 {
+			writeFieldError(w, "days", fmt.Sprintf("%q: want a whole number of days, 1–366", v))
+			return
+		}
+		days = n
+	}
+	view, _ := s.zones.Zone(zone)
+	to := s.now().UTC()
+	from := to.Add(-time.Duration(days) * 24 * time.Hour)
+	conc := map[float64][]float64{}
+	counts := map[float64]map[string][]float64{}
+	for _, size := range view.Sizes {
+		counts[size] = map[string][]float64{}
+	}
+	for _, c := range s.zoneCounters(zone, "") {
+		err := s.store.ScanReadings(c.id, from, to, func(rd store.Reading) error {
+			if rd.Status == alerts.StatusFault {
+				return nil // a faulty sample says nothing of the room
+			}
+			cum, per := rd.Cumulative(), rd.PerM3()
+			for i, size := range rd.Sizes {
+				if m, judged := counts[size]; judged {
+					conc[size] = append(conc[size], per[i])
+					m[c.location] = append(m[c.location], float64(cum[i]))
+				}
+			}
+			return r.Context().Err()
+		})
+		if err != nil {
+			writeError(w, errorStatus(err), "reading the store: "+err.Error())
+			return
+		}
+	}
+	out := levelsJSON{Zone: zone, From: from, To: to, Days: days, Method: string(alerts.LevelsByPercentile),
+		Sizes: map[string]sizeLevelsJSON{}, Notes: []string{levelsMethodNote}}
+	for _, l := range view.Limits {
+		limit := 0.0
+		if l.Limit != nil {
+			limit = *l.Limit
+		} else {
+			out.Notes = append(out.Notes, classify.FormatSize(l.SizeUM)+" µm: no class or grade limit, levels are not capped")
+		}
+		sl := sizeLevelsJSON{Suggested: alerts.SuggestLevels(conc[l.SizeUM], limit), ConfiguredAlert: l.Alert, ConfiguredAction: l.Action,
+			Locations: map[string]alerts.ControlLimits{}}
+		for loc, cs := range counts[l.SizeUM] {
+			sl.Locations[loc] = alerts.Baseline(cs)
+		}
+		out.Sizes[classify.FormatSize(l.SizeUM)] = sl
+	}
+	writeJSON(w, http.StatusOK, out)
+}

@@ -8,6 +8,7 @@ import (
 	"math"
 	"net/http"
 	"net/http/httptest"
+	"os"
 	"os/exec"
 	"slices"
 	"sort"
@@ -443,6 +444,9 @@ func TestExpositionPassesPromtool(t *testing.T) {
 
 	promtool, err := exec.LookPath("promtool")
 	if err != nil {
+		if os.Getenv("CLEANMON_REQUIRE_TOOLS") != "" {
+			t.Fatal("promtool not on PATH (Debian: prometheus) and CLEANMON_REQUIRE_TOOLS is set")
+		}
 		t.Skip("promtool not on PATH (Debian: prometheus); the client_golang lint above passed")
 	}
 	cmd := exec.Command(promtool, "check", "metrics")

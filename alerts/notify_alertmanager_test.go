@@ -419,6 +419,9 @@ func TestAlertmanagerAgainstRealAlertmanager(t *testing.T) {
 		}
 	}
 	if bin == "" {
+		if os.Getenv("CLEANMON_REQUIRE_TOOLS") != "" {
+			t.Fatal("no alertmanager binary on PATH (Debian: prometheus-alertmanager) and CLEANMON_REQUIRE_TOOLS is set")
+		}
 		t.Skip("no alertmanager binary on PATH (Debian: prometheus-alertmanager)")
 	}
 	dir := t.TempDir()

@@ -120,6 +120,7 @@ func (s *server) routes() http.Handler {
 
 		r.With(withTimeout(backupTimeout), s.auth.require(permAdmin)).Get("/backup", s.backup)
 	})
+	s.pageRoutes(r)
 	return r
 }
 

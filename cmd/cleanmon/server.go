@@ -117,6 +117,8 @@ func (s *server) routes() http.Handler {
 		r.With(short, read).Get("/alarms", s.listAlarms)
 		r.With(short, s.auth.require(permOperate)).Post("/alarms/{id}/ack", s.ackAlarm)
 		r.With(withTimeout(streamTimeout), read).Get("/zones/{zone}/levels", s.zoneLevels)
+		r.With(short, read).Get("/sensors", s.listSensors)
+		r.With(withTimeout(streamTimeout), read).Get("/sensors/{sensor}/pressure", s.sensorPressure)
 
 		r.With(withTimeout(backupTimeout), s.auth.require(permAdmin)).Get("/backup", s.backup)
 	})

@@ -39,19 +39,40 @@ func coverBucket(kind byte) []byte {
 // changed. Encoding:
 //
 //	kind byte | uvarint names | str name… | uvarint records |
-//	  (uvarint name index, zigzag varint key − previous key)… | digest[32]
+//	  (uvarint name index, varint delta of delta)… | digest[32]
 //
-// Each record enters the digest as str(name) ‖ key ‖ str(value); keys are
-// 8-byte big-endian times or sequence numbers.
+// The delta of delta is, within the record's series, (key − previous key)
+// − (previous key − the one before), both 0 before the first: a counter
+// sampling at a steady period costs two bytes a record. Each record
+// enters the digest as str(name) ‖ key ‖ str(value); keys are 8-byte
+// big-endian times or sequence numbers.
 type coverage struct {
 	kind    byte
 	names   []string
 	index   map[string]int
+	last    []keyStep // per name
 	recs    []byte
-	prev    int64
 	n       int
 	h       hash.Hash
 	scratch []byte
+}
+
+// keyStep is the latest key of a series and the step that led to it.
+type keyStep struct{ key, delta int64 }
+
+// next returns the delta of delta of key and moves on to it.
+func (s *keyStep) next(key int64) int64 {
+	delta := key - s.key
+	dod := delta - s.delta
+	s.key, s.delta = key, delta
+	return dod
+}
+
+// back is next's inverse.
+func (s *keyStep) back(dod int64) int64 {
+	s.delta += dod
+	s.key += s.delta
+	return s.key
 }
 
 func newCoverage(kind byte) *coverage {
@@ -63,12 +84,12 @@ func (c *coverage) add(name string, key, val []byte) {
 	if !ok {
 		i = len(c.names)
 		c.names = append(c.names, name)
+		c.last = append(c.last, keyStep{})
 		c.index[name] = i
 	}
 	k := int64(binary.BigEndian.Uint64(key))
 	c.recs = binary.AppendUvarint(c.recs, uint64(i))
-	c.recs = binary.AppendVarint(c.recs, k-c.prev)
-	c.prev = k
+	c.recs = binary.AppendVarint(c.recs, c.last[i].next(k))
 	c.n++
 	c.scratch = recordDigestInput(c.scratch[:0], name, key, val)
 	c.h.Write(c.scratch)
@@ -131,14 +152,16 @@ func decodeCoverage(detail []byte) (covered, error) {
 	if d.err == nil && nr > uint64(len(d.b)) {
 		d.fail("records: %d, more than the detail holds", nr)
 	}
-	var prev int64
+	last := make([]keyStep, len(c.names))
 	for i := uint64(0); i < nr && d.err == nil; i++ {
 		idx := d.uvarint("name index")
-		prev += d.varint("key")
+		dod := d.varint("key")
 		if d.err == nil && idx >= uint64(len(c.names)) {
 			d.fail("record %d: name index %d of %d names", i, idx, len(c.names))
 		}
-		c.recs = append(c.recs, coveredRec{int(idx), prev})
+		if d.err == nil {
+			c.recs = append(c.recs, coveredRec{int(idx), last[idx].back(dod)})
+		}
 	}
 	d.end()
 	return c, d.err

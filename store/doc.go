@@ -1,8 +1,8 @@
 // Package store is the embedded database of the daemon: one bbolt file,
 // dir/cleanmon.db, holding particle-counter readings, differential-pressure
 // samples, per-minute and per-hour rollups, the operating-state history
-// of each zone, the alarm journal with each alarm's latest snapshot, and
-// the notification outbox.
+// of each zone, the alarm journal with each alarm's latest snapshot, the
+// notification outbox, and the audit chain over all of it.
 //
 // # Durability
 //
@@ -53,6 +53,26 @@
 // snapshots by update time) serve the scans by time and the sweep of
 // cleared alarms; each notifier has its own queue, so one that is down
 // does not slow the others' OutboxDue.
+//
+// # Audit chain
+//
+// The audit bucket is a hash chain (AuditEntry documents the link): each
+// entry's SHA-256 covers its content and the hash of the entry before.
+// The store writes its own entries inside the transaction of the change
+// they record, so neither exists without the other: one per
+// AppendReadings or AppendPressure call that stored anything (listing the
+// stored keys with a SHA-256 over their keys and values), per operating
+// state change, per alarm record (acknowledgements included), per Sweep
+// chunk (its horizon and counts), and after each backup. The daemon adds
+// start, stop and configuration loads with AppendAudit. Verify recomputes
+// every link and names the first broken one, recomputes every covered
+// record's digest, and counts that every stored reading, pressure sample,
+// state change and journal entry is covered once, so a record edited,
+// removed or added behind the store's back shows, not only an edited
+// audit entry. A chain rewritten consistently from the edit onwards is
+// caught only by a copy of an earlier AuditHead kept outside the daemon.
+// Listing the keys costs about two bytes a reading at a steady sample
+// period.
 //
 // # Damage
 //

@@ -33,11 +33,11 @@ var (
 	ErrNotFound = errors.New("store: not found")
 )
 
-// RecordError reports the first bad record of an Append call: the index in
+// RecordError reports the first bad record of a write call: the index in
 // the slice given, the field, and why. Nothing of the call was stored.
 // It matches ErrInvalid under errors.Is.
 type RecordError struct {
-	Kind   string // "reading", "pressure", "operating state", "alarm record", "notifier"
+	Kind   string // "reading", "pressure", "operating state", "alarm record", "notifier", "audit entry"
 	Index  int    // position in the slice passed to the call
 	Field  string // field name as in the Go struct, e.g. "Counts"
 	Reason string

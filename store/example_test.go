@@ -80,3 +80,56 @@ func ExampleVerify() {
 	// Output:
 	// 0 problems <nil>
 }
+
+// An excursion alarm in the assembly room is raised and acknowledged;
+// the webhook notifier delivers the first transition and fails the
+// second, which waits for its retry.
+func ExampleStore_RecordAlarms() {
+	dir, err := os.MkdirTemp("", "cleanmon-example-")
+	if err != nil {
+		log.Fatal(err)
+	}
+	defer os.RemoveAll(dir)
+	s, err := store.Open(dir, store.Options{})
+	if err != nil {
+		log.Fatal(err)
+	}
+	defer s.Close()
+	ctx := context.Background()
+	at := time.Date(2026, 3, 2, 10, 0, 0, 0, time.UTC)
+	raised := store.AlarmRecord{AlarmID: "assembly/excursion/pc-asm-1/0.5", Time: at,
+		Snapshot: []byte(`{"state":"active"}`), Entry: []byte(`{"to":"active"}`)}
+	acked := store.AlarmRecord{AlarmID: raised.AlarmID, Time: at.Add(4 * time.Minute), By: "shift-lead",
+		Snapshot: []byte(`{"state":"acknowledged"}`), Entry: []byte(`{"to":"acknowledged"}`)}
+	seqs, err := s.RecordAlarms(ctx, []store.AlarmRecord{raised, acked}, []string{"webhook", "log"})
+	if err != nil {
+		log.Fatal(err)
+	}
+	fmt.Println("journal entries", seqs)
+
+	due, _ := s.OutboxDue("webhook", at.Add(5*time.Minute), 10)
+	_ = s.OutboxDone(ctx, due[0].ID)
+	_ = s.OutboxRetry(ctx, due[1].ID, 1, at.Add(6*time.Minute), "503 Service Unavailable")
+	due, _ = s.OutboxDue("webhook", at.Add(5*time.Minute), 10)
+	fmt.Println("webhook due now", len(due))
+	n, _ := s.OutboxLen("log")
+	fmt.Println("log queue", n)
+
+	_ = s.OpenAlarms(func(id string, snapshot []byte) error {
+		fmt.Println("open", id, string(snapshot))
+		return nil
+	})
+	_ = s.ScanAudit(0, 0, func(e store.AuditEntry) error {
+		if e.Action == store.AuditAlarm {
+			fmt.Println("audit", e.Seq, e.Action, e.Actor, e.Subject)
+		}
+		return nil
+	})
+	// Output:
+	// journal entries [1 2]
+	// webhook due now 0
+	// log queue 2
+	// open assembly/excursion/pc-asm-1/0.5 {"state":"acknowledged"}
+	// audit 2 alarm-transition cleanmon assembly/excursion/pc-asm-1/0.5
+	// audit 3 alarm-transition shift-lead assembly/excursion/pc-asm-1/0.5
+}

@@ -121,6 +121,25 @@ func TestClosedStore(t *testing.T) {
 		"OperatingStateHistory": func() error { return s.OperatingStateHistory("z", func(OperatingState) error { return nil }) },
 		"Sweep":                 func() error { _, err := s.Sweep(ctx, t0); return err },
 		"Backup":                func() error { _, err := s.Backup(new(strings.Builder)); return err },
+		"BackupFile":            func() error { _, err := s.BackupFile(filepath.Join(t.TempDir(), FileName)); return err },
+		"RecordAlarms": func() error {
+			_, err := s.RecordAlarms(ctx, []AlarmRecord{alarmRec("a-1", t0, "active")}, nil)
+			return err
+		},
+		"OpenAlarms": func() error { return s.OpenAlarms(func(string, []byte) error { return nil }) },
+		"ScanAlarms": func() error {
+			return s.ScanAlarms(time.Time{}, func(string, time.Time, []byte, bool) error { return nil })
+		},
+		"ScanAlarmJournal": func() error {
+			return s.ScanAlarmJournal(time.Time{}, time.Time{}, func(uint64, time.Time, string, []byte) error { return nil })
+		},
+		"OutboxDue":   func() error { _, err := s.OutboxDue("webhook", t0, 1); return err },
+		"OutboxLen":   func() error { _, err := s.OutboxLen("webhook"); return err },
+		"OutboxDone":  func() error { return s.OutboxDone(ctx, 1) },
+		"OutboxRetry": func() error { return s.OutboxRetry(ctx, 1, 1, t0, "x") },
+		"AppendAudit": func() error { _, _, err := s.AppendAudit(ctx, configLoadEntry()); return err },
+		"ScanAudit":   func() error { return s.ScanAudit(0, 0, func(AuditEntry) error { return nil }) },
+		"AuditHead":   func() error { _, _, err := s.AuditHead(); return err },
 	}
 	for name, call := range calls {
 		if err := call(); !errors.Is(err, ErrClosed) {

@@ -24,7 +24,9 @@ const maxProblems = 1000
 // count equal to the readings in its bucket (buckets older than the last
 // Sweep excepted), the alarm journal numbered without a gap, the journal,
 // the alarm snapshots, their indexes and the outbox agreeing with each
-// other (verify_alarm.go). path is the file or its data directory.
+// other (verify_alarm.go), and the audit chain whole, with every record
+// it covers unchanged and every record covered (verify_audit.go). path is
+// the file or its data directory.
 //
 // It returns every problem found, at most 1000 listed. The error is for a
 // check that could not run: the file missing or held by a daemon

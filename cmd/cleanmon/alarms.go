@@ -35,7 +35,8 @@ func (a alarmStore) RecordTransitions(ctx context.Context, ts []alerts.Transitio
 		if err != nil {
 			return err
 		}
-		recs[i] = store.AlarmRecord{AlarmID: ts[i].AlarmID, Time: ts[i].Time, Cleared: ts[i].To == alerts.StateCleared, Snapshot: snap, Entry: entry}
+		recs[i] = store.AlarmRecord{AlarmID: ts[i].AlarmID, Time: ts[i].Time, Cleared: ts[i].To == alerts.StateCleared,
+			Snapshot: snap, Entry: entry, By: ts[i].By, Reason: ts[i].Comment}
 	}
 	_, err := a.st.RecordAlarms(ctx, recs, notifiers)
 	return err

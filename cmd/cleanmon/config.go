@@ -1,6 +1,7 @@
 package main
 
 import (
+	"crypto/sha256"
 	"encoding/hex"
 	"errors"
 	"fmt"
@@ -43,6 +44,10 @@ type siteConfig struct {
 	PressureSensors []collector.Sensor  `yaml:"pressure_sensors"`
 	Alarms          alerts.AlarmsConfig `yaml:"alarms"`
 	Notifications   alerts.NotifyConfig `yaml:"notifications"`
+
+	// source and sha256 name the file the configuration was read from and
+	// its digest, for the audit trail.
+	source, sha256 string
 }
 
 // accessConfig is who may use the HTTP API.
@@ -141,6 +146,12 @@ func loadConfigFile(path string) (*siteConfig, error) {
 	return loadConfig(path, data)
 }
 
+// configDigest is the SHA-256 of a configuration's bytes, hex.
+func configDigest(data []byte) string {
+	sum := sha256.Sum256(data)
+	return hex.EncodeToString(sum[:])
+}
+
 // loadConfig parses and checks a configuration. The YAML is read into a
 // node tree first and decoded field by field, so that every problem, an
 // unknown key as much as a wrong value or a failed cross-check, is reported
@@ -181,6 +192,7 @@ func loadConfig(name string, data []byte) (*siteConfig, error) {
 		})
 		return nil, &configError{d.problems}
 	}
+	cfg.source, cfg.sha256 = name, configDigest(data)
 	return cfg, nil
 }
 

@@ -189,14 +189,22 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 	srv := &server{cfg: cfg, store: st, zones: zones, ingest: ingest, auth: auth, log: log, metrics: newMetricsRegistry(), now: now,
 		alarms: alarmSvc, alarmLog: st}
 	srv.metrics.MustRegister(
+		auditCollector{st},
 		alerts.NewZoneCollector(zones),
 		alerts.NewPressureCollector(alarmSvc),
 		alerts.NewAlarmCollector(alarmSvc.eng, zoneIDs(cfg)),
 		ingestMetrics,
 		alerts.NewNotifierCollector(alarmSvc.disp),
 	)
+	audit := auditLog{st, log}
+	audit.record(ctx, store.AuditActorSystem, store.AuditConfigLoad, cfg.source, "configuration loaded at start", []byte(cfg.sha256))
 	bg, stopBG := context.WithCancel(context.Background())
 	var wg sync.WaitGroup
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		audit.watchClock(bg)
+	}()
 	if err := alarmSvc.start(bg, &wg, history, states); err != nil {
 		stopBG()
 		return quit(exitFail, "%v", err)
@@ -221,6 +229,7 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 	srv.ready.Store(true)
 	url := "http://" + ln.Addr().String()
 	fmt.Fprintf(stdout, "cleanmon: serving on %s\n", url)
+	audit.record(ctx, store.AuditActorSystem, store.AuditStart, cfg.Site, "cleanmon serve on "+url, nil)
 	log.Info("serving", "url", url, "site", cfg.Site, "data", dataDir, "zones", len(cfg.Zones), "counters", len(cfg.Counters), "sensors", len(cfg.PressureSensors))
 	if !o.demo && len(cfg.Access.Tokens) == 0 {
 		log.Warn("no access tokens configured: nothing can post readings or change a zone", "open_reads", cfg.Access.OpenReads)
@@ -263,6 +272,7 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 		code = exitFail
 	}
 	wg.Wait()
+	audit.record(context.Background(), store.AuditActorSystem, store.AuditStop, cfg.Site, "clean shutdown", nil)
 	storeOpen = false
 	if err := st.Close(); err != nil {
 		log.Error("closing the store", "err", err)

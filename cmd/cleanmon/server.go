@@ -118,6 +118,8 @@ func (s *server) routes() http.Handler {
 		r.With(short, s.auth.require(permOperate)).Post("/alarms/{id}/ack", s.ackAlarm)
 		r.With(withTimeout(streamTimeout), read).Get("/zones/{zone}/levels", s.zoneLevels)
 		r.With(short, read).Get("/sensors", s.listSensors)
+		r.With(withTimeout(streamTimeout), read).Get("/audit", s.listAudit)
+		r.With(short, read).Get("/audit/head", s.auditHead)
 		r.With(withTimeout(streamTimeout), read).Get("/sensors/{sensor}/pressure", s.sensorPressure)
 
 		r.With(withTimeout(backupTimeout), s.auth.require(permAdmin)).Get("/backup", s.backup)

@@ -227,15 +227,15 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 	served := make(chan error, 1)
 	go func() { served <- hs.Serve(ln) }()
 	srv.ready.Store(true)
+	if o.demo {
+		log.Warn("demo: the API is open, no token is asked for any route", "listen", ln.Addr().String(), "speed", o.speed)
+	}
 	url := "http://" + ln.Addr().String()
 	fmt.Fprintf(stdout, "cleanmon: serving on %s\n", url)
 	audit.record(ctx, store.AuditActorSystem, store.AuditStart, cfg.Site, "cleanmon serve on "+url, nil)
 	log.Info("serving", "url", url, "site", cfg.Site, "data", dataDir, "zones", len(cfg.Zones), "counters", len(cfg.Counters), "sensors", len(cfg.PressureSensors))
 	if !o.demo && len(cfg.Access.Tokens) == 0 {
 		log.Warn("no access tokens configured: nothing can post readings or change a zone", "open_reads", cfg.Access.OpenReads)
-	}
-	if o.demo {
-		log.Warn("demo: the API is open, no token is asked for any route", "listen", ln.Addr().String(), "speed", o.speed)
 	}
 
 	wg.Add(1)

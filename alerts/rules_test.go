@@ -605,3 +605,33 @@ func TestLimitsFollowOperatingState(t *testing.T) {
 		t.Fatalf("10 000 /m³ in operation is within 352 000 /m³, yet %+v", h.open(KindExcursion))
 	}
 }
+
+func TestDeviceFault(t *testing.T) {
+	// A poller reports a counter it cannot reach, then reaching it again:
+	// one instrument alarm of cause "device", alert level in an ISO zone
+	// (action only in grade A/B, the engine's documented rule), cleared on
+	// recovery when not latched.
+	h := newHarness(t, nil)
+	ctx := context.Background()
+	if err := h.e.ObserveDevice(ctx, "pc-asm-1", true, "connection refused", h.clk.Now()); err != nil {
+		t.Fatal(err)
+	}
+	a := h.one(KindInstrument)
+	if a.State != StateActive || a.Counter != "pc-asm-1" || a.Level != LevelAlert || !strings.Contains(a.Message, "connection refused") {
+		t.Fatalf("device fault: %+v", a)
+	}
+	h.e.ObserveDevice(ctx, "pc-asm-1", true, "connection refused", h.clk.Now().Add(time.Second))
+	if n := len(h.open(KindInstrument)); n != 1 {
+		t.Errorf("%d instrument alarms for one fault, want one per condition", n)
+	}
+	h.clk.Advance(time.Minute)
+	if err := h.e.ObserveDevice(ctx, "pc-asm-1", false, "", h.clk.Now()); err != nil {
+		t.Fatal(err)
+	}
+	if n := len(h.open(KindInstrument)); n != 0 {
+		t.Errorf("alarm still open after recovery: %d", n)
+	}
+	if err := h.e.ObserveDevice(ctx, "no-such-device", true, "x", h.clk.Now()); err != nil || len(h.open(KindInstrument)) != 0 {
+		t.Errorf("an unknown device raised something: %v", err)
+	}
+}

@@ -27,8 +27,8 @@ const (
 const (
 	// SourcePush: the instrument (or a gateway) posts to the HTTP API.
 	SourcePush = "push"
-	// SourceModbus is reserved for the Modbus TCP poller; configurations
-	// naming it are refused until the poller exists.
+	// SourceModbus: the daemon polls the instrument over Modbus TCP, as
+	// its modbus section ([ModbusSource]) says.
 	SourceModbus = "modbus"
 )
 
@@ -103,7 +103,9 @@ type Counter struct {
 	Mode     Mode     `yaml:"mode"`       // default cumulative
 	Interval Duration `yaml:"interval"`   // expected sample period, default 1m
 	MaxPerM3 float64  `yaml:"max_per_m3"` // stated maximum concentration (ISO 21501-4 coincidence limit); 0 = unknown
-	Source   string   `yaml:"source"`     // "push" (default)
+	Source   string   `yaml:"source"`     // "push" (default), or "modbus" (the default when a modbus section is given)
+	// Modbus is where and how to poll the counter when its source is modbus.
+	Modbus *ModbusSource `yaml:"modbus"`
 }
 
 // Sensor is the configuration of one differential-pressure sensor between
@@ -116,7 +118,9 @@ type Sensor struct {
 	MaxPa    float64  `yaml:"max_pa"`   // maximum DP; 0 = none
 	Delay    Duration `yaml:"delay"`    // how long below min before an alarm, default 30s
 	Interval Duration `yaml:"interval"` // expected reporting period, default 10s
-	Source   string   `yaml:"source"`   // "push" (default)
+	Source   string   `yaml:"source"`   // "push" (default), or "modbus" (the default when a modbus section is given)
+	// Modbus is where and how to poll the sensor when its source is modbus.
+	Modbus *ModbusSource `yaml:"modbus"`
 }
 
 // withDefaults returns the counter with empty fields filled in.
@@ -134,7 +138,7 @@ func (c Counter) withDefaults() Counter {
 		c.Interval = Duration(DefaultCounterInterval)
 	}
 	if c.Source == "" {
-		c.Source = SourcePush
+		c.Source = defaultSource(c.Modbus != nil)
 	}
 	return c
 }
@@ -148,7 +152,7 @@ func (s Sensor) withDefaults() Sensor {
 		s.Interval = Duration(DefaultSensorInterval)
 	}
 	if s.Source == "" {
-		s.Source = SourcePush
+		s.Source = defaultSource(s.Modbus != nil)
 	}
 	return s
 }
@@ -158,7 +162,9 @@ func (s Sensor) withDefaults() Sensor {
 // and well formed, the zone known (zones == nil skips that check), the
 // location unique within its zone, the sizes parseable, inside 0.1–5 µm,
 // ascending and unique, the flow and maximum concentration non-negative
-// and finite, the mode and source known, and the interval at least 1 s.
+// and finite, the mode and source known, the interval at least 1 s, and
+// the modbus section of a polled counter complete and consistent (one
+// register per size, no register mapped twice).
 func ValidateCounters(cs []Counter, zones map[string]bool) []FieldError {
 	var errs []FieldError
 	add := func(path, format string, args ...any) {
@@ -208,7 +214,9 @@ func ValidateCounters(cs []Counter, zones map[string]bool) []FieldError {
 		if math.IsNaN(c.MaxPerM3) || math.IsInf(c.MaxPerM3, 0) || c.MaxPerM3 < 0 {
 			add(p+".max_per_m3", "must be a concentration ≥ 0 particles/m³ (0 = unknown)")
 		}
-		checkSource(p+".source", c.Source, add)
+		if checkSource(p+".source", c.Source, c.Modbus != nil, add) {
+			validateModbusCounter(p+".modbus", &c, add)
+		}
 	}
 	return errs
 }
@@ -217,7 +225,8 @@ func ValidateCounters(cs []Counter, zones map[string]bool) []FieldError {
 // found, each naming its path ("sensors[0].min_pa"). Ids must be unique and
 // well formed, high a known zone (zones == nil skips that check), low any
 // well-formed area id other than high, min_pa finite and ≥ 0, max_pa 0 or
-// above min_pa, delay ≥ 0, the interval at least 1 s, the source known.
+// above min_pa, delay ≥ 0, the interval at least 1 s, the source known,
+// and the modbus section of a polled sensor complete.
 func ValidateSensors(ss []Sensor, zones map[string]bool) []FieldError {
 	var errs []FieldError
 	add := func(path, format string, args ...any) {
@@ -262,7 +271,9 @@ func ValidateSensors(ss []Sensor, zones map[string]bool) []FieldError {
 			add(p+".delay", "must not be negative")
 		}
 		checkInterval(p+".interval", s.Interval, add)
-		checkSource(p+".source", s.Source, add)
+		if checkSource(p+".source", s.Source, s.Modbus != nil, add) {
+			validateModbusSensor(p+".modbus", &s, add)
+		}
 	}
 	return errs
 }
@@ -298,14 +309,32 @@ func checkInterval(p string, d Duration, add func(string, string, ...any)) {
 	}
 }
 
-func checkSource(p, s string, add func(string, string, ...any)) {
+// checkSource checks the source against the presence of a modbus section
+// and tells whether that section is to be checked.
+func checkSource(p, s string, hasModbus bool, add func(string, string, ...any)) bool {
 	switch s {
-	case "", SourcePush:
+	case "":
+		return hasModbus
+	case SourcePush:
+		if hasModbus {
+			add(p, "is %q, but a modbus section is given: set source: %s, or remove the section", s, SourceModbus)
+		}
 	case SourceModbus:
-		add(p, "%q is not available in this build; use %q", s, SourcePush)
+		if !hasModbus {
+			add(p, "%q needs a modbus section: the device's address and register map", s)
+		}
+		return hasModbus
 	default:
-		add(p, "unknown source %q (%q)", s, SourcePush)
+		add(p, "unknown source %q (%q or %q)", s, SourcePush, SourceModbus)
 	}
+	return false
+}
+
+func defaultSource(hasModbus bool) string {
+	if hasModbus {
+		return SourceModbus
+	}
+	return SourcePush
 }
 
 // checkID returns why id cannot name a counter, sensor or area, or "".

@@ -257,6 +257,25 @@ func (s *alarmService) observePressure(ps []collector.Pressure) {
 	})
 }
 
+// Fault implements collector.DeviceEvents: a polled instrument that fails
+// raises an instrument alarm.
+func (s *alarmService) Fault(id, reason string, t time.Time) {
+	s.enqueue(context.Background(), func(ctx context.Context) {
+		if err := s.eng.ObserveDevice(ctx, id, true, reason, t); err != nil {
+			s.log.Error("alarm rules could not judge a device fault", "device", id, "err", err)
+		}
+	})
+}
+
+// Recovered implements collector.DeviceEvents.
+func (s *alarmService) Recovered(id string, t time.Time) {
+	s.enqueue(context.Background(), func(ctx context.Context) {
+		if err := s.eng.ObserveDevice(ctx, id, false, "", t); err != nil {
+			s.log.Error("alarm rules could not judge a device recovery", "device", id, "err", err)
+		}
+	})
+}
+
 // LatestDP is the newest DP per sensor, for the pressure metrics.
 func (s *alarmService) LatestDP() []alerts.SensorDP {
 	s.mu.Lock()

@@ -40,7 +40,7 @@ func demoConfig() (*siteConfig, error) { return loadConfig("demo-site.yaml", dem
 // 24 h through the same ingest path as HTTP, then goes live. Serving does
 // not wait for it.
 func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry, zones *alerts.ZoneTracker,
-	ingest *collector.Ingest, now func() time.Time, speed float64, log *slog.Logger) error {
+	ingest *collector.Ingest, live collector.Submitter, now func() time.Time, speed float64, log *slog.Logger) error {
 	limits := map[string]map[float64]float64{}
 	for _, ci := range reg.Counters() {
 		v, ok := zones.Zone(ci.Zone)
@@ -79,7 +79,7 @@ func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry,
 			return
 		}
 		log.Info("demo backfill done", "readings", n, "took", time.Since(start).Round(time.Millisecond))
-		if err := sim.Run(ctx, speed, ingest); err != nil && ctx.Err() == nil {
+		if err := sim.Run(ctx, speed, live); err != nil && ctx.Err() == nil {
 			log.Error("demo simulator stopped", "err", err)
 		}
 	}()

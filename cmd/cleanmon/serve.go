@@ -36,6 +36,7 @@ type serveOptions struct {
 	listen     string
 	dataDir    string
 	speed      float64
+	demoModbus bool
 }
 
 // runServe is `cleanmon serve`: it runs until SIGINT or SIGTERM.
@@ -48,6 +49,7 @@ func runServe(args []string, stdout, stderr io.Writer) int {
 	fs.StringVar(&o.listen, "listen", "", "address to listen on, host:port (default: the configuration's listen, else "+defaultListen+"; port 0 picks a free one)")
 	fs.StringVar(&o.dataDir, "data", "", "data directory of the store (default: the configuration's data_dir; --demo: a temporary directory)")
 	fs.Float64Var(&o.speed, "speed", 1, "--demo only: how many times faster than the wall clock simulated time runs")
+	fs.BoolVar(&o.demoModbus, "demo-modbus", false, "--demo only: serve the simulated counters as Modbus TCP devices on loopback and poll them")
 	fs.Usage = func() {
 		fmt.Fprintln(fs.Output(), "usage: cleanmon serve --config FILE [--listen ADDR] [--data DIR]")
 		fmt.Fprintln(fs.Output(), "       cleanmon serve --demo [--listen ADDR] [--data DIR] [--speed N]")
@@ -71,6 +73,9 @@ func runServe(args []string, stdout, stderr io.Writer) int {
 		return exitUsage
 	case !o.demo && o.configPath == "":
 		fmt.Fprintln(stderr, "cleanmon serve: --config FILE is required (or --demo)")
+		return exitUsage
+	case !o.demo && o.demoModbus:
+		fmt.Fprintln(stderr, "cleanmon serve: --demo-modbus applies to --demo only")
 		return exitUsage
 	case !o.demo && speedSet:
 		fmt.Fprintln(stderr, "cleanmon serve: --speed applies to --demo only")
@@ -145,6 +150,14 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 		}
 	}()
 
+	var dm *demoModbus
+	if o.demoModbus {
+		if dm, err = startDemoModbus(cfg.Counters, o.speed); err != nil {
+			return quit(exitFail, "%v", err)
+		}
+		defer dm.Stop()
+		cfg.Counters = dm.Counters
+	}
 	reg, err := collector.NewRegistry(cfg.Counters, cfg.PressureSensors)
 	if err != nil {
 		return quit(exitUsage, "%v", err)
@@ -209,10 +222,17 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 		stopBG()
 		return quit(exitFail, "%v", err)
 	}
+	stopModbus, err := startModbus(bg, reg, ingest, log, modbusHooks{Metrics: srv.metrics, Now: now, Events: alarmSvc})
+	if err != nil {
+		stopBG()
+		wg.Wait()
+		return quit(exitUsage, "Modbus: %v", err)
+	}
 
 	ln, err := net.Listen("tcp", listen)
 	if err != nil {
 		stopBG()
+		stopModbus()
 		wg.Wait()
 		return quit(exitFail, "listening on %s: %v", listen, err)
 	}
@@ -244,9 +264,15 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 		sweepLoop(bg, st, cfg.retention(), now, log)
 	}()
 	if o.demo {
-		if err := startDemo(bg, &wg, reg, zones, ingest, now, o.speed, log); err != nil {
+		var live collector.Submitter = ingest
+		if dm != nil {
+			live = dm.Feed(ingest)
+		}
+		if err := startDemo(bg, &wg, reg, zones, ingest, live, now, o.speed, log); err != nil {
 			stopBG()
 			hs.Close()
+			stopModbus()
+			wg.Wait()
 			return quit(exitFail, "demo simulator: %v", err)
 		}
 	}
@@ -264,6 +290,7 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 	// close the store.
 	srv.ready.Store(false)
 	stopBG()
+	stopModbus() // before the store closes: a poll in flight commits or fails first
 	sctx, cancel := context.WithTimeout(context.Background(), shutdownTimeout)
 	defer cancel()
 	if err := hs.Shutdown(sctx); err != nil {

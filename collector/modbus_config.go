@@ -1,0 +1,558 @@
+package collector
+
+import (
+	"fmt"
+	"maps"
+	"math"
+	"net"
+	"slices"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+
+	"cleanmon/classify"
+)
+
+// ModbusSource says where and how the poller reads one counter or DP
+// sensor over Modbus TCP: the yaml key "modbus" of a counter or sensor
+// whose source is modbus. The register map is the project's own schema:
+//
+//	modbus:
+//	  address: "10.0.4.21:502"    # host:port of the instrument or gateway
+//	  unit: 1                     # unit identifier, default 1
+//	  poll: "5s"                  # time between polls
+//	  timeout: "2s"               # per request
+//	  word_order: high-first      # of 32-bit values; low-first for the other
+//	  sample: {addr: 0, bits: 32}            # advanced by one per finished sample
+//	  time: {addr: 2, bits: 32}              # optional: sample time, Unix seconds
+//	  channels:
+//	    "0.5": {addr: 4, bits: 32}
+//	    "5": {addr: 6, bits: 32}
+//	  status: {addr: 8, values: {0: ok, 1: warning, 2: fault}}
+//	  flow: {addr: 9, scale: 0.01}            # L/min
+//	  sample_seconds: {addr: 10}              # s
+//	  volume: {addr: 11, bits: 32, scale: 0.001}  # L
+//
+// A sensor maps pa (and optionally status) instead:
+// pa: {addr: 0, signed: true, scale: 0.1}.
+//
+// Addresses are those on the wire, counted from 0 (a manual's register
+// 30001 or 40001 is addr 0). Registers of one type that follow each other
+// without a gap are read in one request, so a sample's channels are read
+// together; keep a counter's registers contiguous for that.
+type ModbusSource struct {
+	// Address is host:port of the instrument or of its gateway.
+	Address string `yaml:"address"`
+	// Unit is the unit identifier (0–255) the device answers to; default 1.
+	Unit *int `yaml:"unit"`
+	// Poll is the time between polls. Default for a counter: 5 s, or half
+	// its interval when that is shorter; for a sensor: its interval, each
+	// poll being one DP sample.
+	Poll Duration `yaml:"poll"`
+	// Timeout bounds each request; default 2 s, or the poll period when
+	// that is shorter.
+	Timeout Duration `yaml:"timeout"`
+	// WordOrder of 32-bit values: "high-first" (default) or "low-first".
+	WordOrder string `yaml:"word_order"`
+
+	// Sample (counters, required) is the sample number the counter
+	// advances once per finished sample, so that each sample is read once.
+	Sample *ModbusRegister `yaml:"sample"`
+	// Time (counters, optional) is the time of the sample in Unix seconds.
+	// With it, readings carry the counter's own time and the sample shown
+	// when polling starts is read too (the store drops it if it was
+	// stored before); without it they carry the time of the poll that saw
+	// the sample, and the sample shown at start is taken as already seen.
+	Time *ModbusRegister `yaml:"time"`
+	// Channels (counters, required) maps each size of the counter ("0.5",
+	// as in sizes) to the register of its count.
+	Channels map[string]ModbusRegister `yaml:"channels"`
+	// Flow (counters, optional) is the sample flow in L/min after scale.
+	Flow *ModbusRegister `yaml:"flow"`
+	// Volume (counters, optional) is the sampled volume in litres after
+	// scale. Without it the volume is the flow (reported, else nominal)
+	// times the sampling time (reported, else the interval).
+	Volume *ModbusRegister `yaml:"volume"`
+	// SampleSeconds (counters, optional) is the sampling time in seconds
+	// after scale.
+	SampleSeconds *ModbusRegister `yaml:"sample_seconds"`
+	// Status (optional) is the instrument's status code and what each
+	// value means.
+	Status *ModbusStatus `yaml:"status"`
+
+	// Pa (sensors, required) is the differential pressure in Pa after
+	// scale.
+	Pa *ModbusRegister `yaml:"pa"`
+}
+
+// ModbusRegister is one value in a device's registers.
+type ModbusRegister struct {
+	// Addr is the address of the (first) register, 0–65535; required.
+	Addr *int `yaml:"addr"`
+	// Type is "input" (default, function 4) or "holding" (function 3).
+	Type string `yaml:"type"`
+	// Bits is 16 (default) or 32, a 32-bit value taking addr and addr+1.
+	Bits int `yaml:"bits"`
+	// WordOrder overrides the source's word order for this value.
+	WordOrder string `yaml:"word_order"`
+	// Signed reads the value as two's complement (a DP may be negative).
+	Signed bool `yaml:"signed"`
+	// Scale multiplies the raw value into the unit (default 1); counts,
+	// sample numbers, times and status codes take none.
+	Scale float64 `yaml:"scale"`
+}
+
+// ModbusStatus is a status register and the meaning of its values.
+type ModbusStatus struct {
+	Addr *int   `yaml:"addr"` // register address, required
+	Type string `yaml:"type"` // input (default) or holding
+	// Values maps each raw value ("0") to ok, warning or fault; a value
+	// not listed is a fault of the device. Required.
+	Values map[string]string `yaml:"values"`
+}
+
+// Register types and word orders of the register map.
+const (
+	RegInput      = "input"
+	RegHolding    = "holding"
+	WordHighFirst = "high-first"
+	WordLowFirst  = "low-first"
+)
+
+// Defaults and bounds of a Modbus source.
+const (
+	DefaultModbusUnit    = 1
+	DefaultModbusPoll    = 5 * time.Second
+	DefaultModbusTimeout = 2 * time.Second
+	// MinModbusPoll is the shortest poll period accepted: faster polling
+	// loads the instrument without seeing more samples.
+	MinModbusPoll = 100 * time.Millisecond
+	// maxReadRegs is the most registers one read request may ask for
+	// (Modbus Application Protocol Specification V1.1b3, §6.3 and §6.4:
+	// 1 to 125 registers).
+	maxReadRegs = 125
+)
+
+// regField is one mapped value, resolved: which block holds it and where.
+type regField struct {
+	path   string // under the source, for messages: "channels.0.5"
+	input  bool   // input register (else holding)
+	addr   uint16
+	n      uint16 // registers: 1 or 2
+	low    bool   // low word first
+	signed bool
+	scale  float64
+	block  int // index into devicePlan.blocks
+	off    int // offset of addr within the block
+}
+
+// regBlock is one read request: n contiguous registers of one type.
+type regBlock struct {
+	input bool
+	addr  uint16
+	n     uint16
+}
+
+// devicePlan is a validated register map turned into read requests and
+// the place of every value in them.
+type devicePlan struct {
+	unit     uint8
+	poll     time.Duration
+	timeout  time.Duration
+	blocks   []regBlock
+	sample   *regField   // counters
+	time     *regField   // counters, optional
+	channels []*regField // counters, aligned with the counter's sizes
+	flow     *regField
+	volume   *regField
+	secs     *regField
+	status   *regField
+	statuses map[uint64]string
+	pa       *regField // sensors
+}
+
+// raw returns the field's unsigned value from the blocks read.
+func (f *regField) raw(vals [][]uint16) uint64 {
+	v := vals[f.block][f.off:]
+	if f.n == 1 {
+		return uint64(v[0])
+	}
+	hi, lo := v[0], v[1]
+	if f.low {
+		hi, lo = lo, hi
+	}
+	return uint64(hi)<<16 | uint64(lo)
+}
+
+// value returns the field in its unit: signed if so mapped, then scaled.
+func (f *regField) value(vals [][]uint16) float64 {
+	r := f.raw(vals)
+	v := float64(r)
+	if f.signed {
+		bits := 16 * uint(f.n)
+		if r&(1<<(bits-1)) != 0 {
+			v = float64(int64(r) - int64(1)<<bits)
+		}
+	}
+	return v * f.scale
+}
+
+// allOnes is the raw value with every bit set, which instruments commonly
+// show for "no value" (common practice, no source).
+func (f *regField) allOnes() uint64 { return 1<<(16*uint(f.n)) - 1 }
+
+// validateModbusCounter checks the modbus section of counter c at path p
+// ("counters[0].modbus").
+func validateModbusCounter(p string, c *Counter, add func(string, string, ...any)) {
+	checkModbusAddress(p, c.Modbus.Address, add)
+	interval := c.Interval.D()
+	if interval == 0 {
+		interval = DefaultCounterInterval
+	}
+	planModbus(p, c.Modbus, "counter", c.Sizes, interval, add)
+}
+
+// validateModbusSensor checks the modbus section of sensor s at path p.
+func validateModbusSensor(p string, s *Sensor, add func(string, string, ...any)) {
+	checkModbusAddress(p, s.Modbus.Address, add)
+	interval := s.Interval.D()
+	if interval == 0 {
+		interval = DefaultSensorInterval
+	}
+	planModbus(p, s.Modbus, "sensor", nil, interval, add)
+}
+
+func checkModbusAddress(p, addr string, add func(string, string, ...any)) {
+	if addr == "" {
+		add(p+".address", "missing: give host:port of the device, e.g. \"10.0.4.21:502\"")
+		return
+	}
+	host, port, err := net.SplitHostPort(addr)
+	if err != nil {
+		add(p+".address", "%q is not host:port: %v", addr, err)
+		return
+	}
+	if n, err := strconv.Atoi(port); err != nil || n < 1 || n > 65535 {
+		add(p+".address", "%q: the port must be a number 1–65535 (Modbus TCP usually listens on 502)", addr)
+	} else if host == "" {
+		add(p+".address", "%q: the host is missing", addr)
+	}
+}
+
+// planModbus checks a register map for a counter (sizes its channels) or
+// a sensor and turns it into a plan. Problems go to add, with paths under
+// p; the plan is nil when there were any.
+func planModbus(p string, src *ModbusSource, kind string, sizes []string, interval time.Duration, add func(string, string, ...any)) *devicePlan {
+	bad := false
+	addf := func(path, format string, args ...any) {
+		bad = true
+		add(path, format, args...)
+	}
+	plan := &devicePlan{unit: DefaultModbusUnit}
+	if src.Unit != nil {
+		if u := *src.Unit; u < 0 || u > 255 {
+			addf(p+".unit", "%d: a unit identifier is 0–255", u)
+		} else {
+			plan.unit = uint8(u)
+		}
+	}
+
+	switch {
+	case src.Poll < 0:
+		addf(p+".poll", "must not be negative")
+	case src.Poll == 0 && kind == "counter":
+		plan.poll = min(DefaultModbusPoll, interval/2)
+	case src.Poll == 0:
+		plan.poll = interval
+	case src.Poll.D() < MinModbusPoll:
+		addf(p+".poll", "%s is shorter than the %s minimum", src.Poll, MinModbusPoll)
+	case kind == "counter" && src.Poll.D() > interval/2:
+		// A sample number seen only every other sample loses samples.
+		addf(p+".poll", "%s is more than half the interval (%s): poll at least twice per sample so that none is missed", src.Poll, interval)
+	default:
+		plan.poll = src.Poll.D()
+	}
+	switch {
+	case src.Timeout < 0:
+		addf(p+".timeout", "must not be negative")
+	case src.Timeout == 0:
+		plan.timeout = min(DefaultModbusTimeout, max(plan.poll, MinModbusPoll))
+	case plan.poll > 0 && src.Timeout.D() > plan.poll:
+		addf(p+".timeout", "%s is longer than the poll period (%s)", src.Timeout, plan.poll)
+	default:
+		plan.timeout = src.Timeout.D()
+	}
+	lowDefault := false
+	switch src.WordOrder {
+	case "", WordHighFirst:
+	case WordLowFirst:
+		lowDefault = true
+	default:
+		addf(p+".word_order", "unknown word order %q (%s or %s)", src.WordOrder, WordHighFirst, WordLowFirst)
+	}
+
+	var fields []*regField
+	// reg resolves one register; what tells which options make sense.
+	type opts struct{ scale, signed, wide bool }
+	reg := func(name string, r *ModbusRegister, o opts) *regField {
+		fp := p + "." + name
+		f := &regField{path: name, input: true, n: 1, low: lowDefault, scale: 1}
+		ok := true
+		fail := func(path, format string, args ...any) { ok = false; addf(path, format, args...) }
+		switch r.Type {
+		case "", RegInput:
+		case RegHolding:
+			f.input = false
+		default:
+			fail(fp+".type", "unknown register type %q (%s or %s)", r.Type, RegInput, RegHolding)
+		}
+		switch r.Bits {
+		case 0, 16:
+		case 32:
+			f.n = 2
+		default:
+			fail(fp+".bits", "%d: a value is 16 or 32 bits", r.Bits)
+		}
+		switch r.WordOrder {
+		case "":
+		case WordHighFirst:
+			f.low = false
+		case WordLowFirst:
+			f.low = true
+		default:
+			fail(fp+".word_order", "unknown word order %q (%s or %s)", r.WordOrder, WordHighFirst, WordLowFirst)
+		}
+		if r.WordOrder != "" && f.n == 1 {
+			fail(fp+".word_order", "a 16-bit value has no word order: give bits: 32 or drop word_order")
+		}
+		if r.Signed && !o.signed {
+			fail(fp+".signed", "%s cannot be negative", name)
+		}
+		f.signed = r.Signed
+		switch {
+		case r.Scale == 0:
+		case !o.scale:
+			fail(fp+".scale", "%s is a whole number read as it is: it takes no scale", name)
+		case !finite(r.Scale) || r.Scale < 0:
+			fail(fp+".scale", "%g: the scale must be a finite number > 0", r.Scale)
+		default:
+			f.scale = r.Scale
+		}
+		switch {
+		case r.Addr == nil:
+			fail(fp+".addr", "missing: give the register address (0–65535, counted from 0 as on the wire)")
+		case *r.Addr < 0 || *r.Addr+int(f.n)-1 > 65535:
+			fail(fp+".addr", "%d: the %d-bit value must lie within registers 0–65535", *r.Addr, 16*f.n)
+		default:
+			f.addr = uint16(*r.Addr)
+		}
+		if !ok {
+			return nil
+		}
+		fields = append(fields, f)
+		return f
+	}
+	num := opts{scale: true, signed: true}
+	unsigned := opts{scale: true}
+	whole := opts{}
+	none := func(name string, present bool) {
+		if present {
+			addf(p+"."+name, "a %s has no %s register", kind, name)
+		}
+	}
+
+	if src.Status != nil {
+		fp := p + ".status"
+		f := reg("status", &ModbusRegister{Addr: src.Status.Addr, Type: src.Status.Type}, whole)
+		if len(src.Status.Values) == 0 {
+			addf(fp+".values", "missing: say what each status value means, e.g. {0: ok, 1: warning, 2: fault}")
+		}
+		plan.statuses = make(map[uint64]string, len(src.Status.Values))
+		for _, k := range slices.Sorted(maps.Keys(src.Status.Values)) {
+			v := src.Status.Values[k]
+			code, err := strconv.ParseUint(strings.TrimSpace(k), 0, 16)
+			if err != nil {
+				addf(fp+".values."+k, "%q is not a register value 0–65535", k)
+				continue
+			}
+			switch v {
+			case StatusOK, StatusWarning, StatusFault:
+				plan.statuses[code] = v
+			default:
+				addf(fp+".values."+k, "unknown status %q (ok, warning or fault)", v)
+			}
+		}
+		plan.status = f
+	}
+
+	if kind == "counter" {
+		if src.Sample == nil {
+			addf(p+".sample", "missing: give the register of the sample number, so that each sample is read once")
+		} else {
+			plan.sample = reg("sample", src.Sample, whole)
+		}
+		if src.Time != nil {
+			plan.time = reg("time", src.Time, whole)
+			if plan.time != nil && plan.time.n != 2 {
+				addf(p+".time.bits", "a time in Unix seconds needs 32 bits")
+			}
+		}
+		if src.Flow != nil {
+			plan.flow = reg("flow", src.Flow, unsigned)
+		}
+		if src.Volume != nil {
+			plan.volume = reg("volume", src.Volume, unsigned)
+		}
+		if src.SampleSeconds != nil {
+			plan.secs = reg("sample_seconds", src.SampleSeconds, unsigned)
+		}
+		none("pa", src.Pa != nil)
+		planChannels(p, src, sizes, plan, func(key string, r *ModbusRegister) *regField {
+			return reg("channels."+key, r, whole)
+		}, addf)
+	} else {
+		if src.Pa == nil {
+			addf(p+".pa", "missing: give the register of the differential pressure")
+		} else {
+			plan.pa = reg("pa", src.Pa, num)
+		}
+		none("sample", src.Sample != nil)
+		none("time", src.Time != nil)
+		none("channels", len(src.Channels) > 0)
+		none("flow", src.Flow != nil)
+		none("volume", src.Volume != nil)
+		none("sample_seconds", src.SampleSeconds != nil)
+	}
+
+	plan.blocks = planBlocks(p, fields, addf)
+	if bad {
+		return nil
+	}
+	return plan
+}
+
+// planChannels resolves the channel registers against the counter's
+// sizes: exactly one register per size.
+func planChannels(p string, src *ModbusSource, sizes []string, plan *devicePlan, reg func(string, *ModbusRegister) *regField, addf func(string, string, ...any)) {
+	if len(src.Channels) == 0 {
+		addf(p+".channels", "missing: give the count register of each size (%s)", strings.Join(sizes, ", "))
+		return
+	}
+	index := map[string]int{}
+	for i, s := range sizes {
+		if v, err := classify.ParseSize(s); err == nil {
+			index[classify.FormatSize(v)] = i
+		}
+	}
+	plan.channels = make([]*regField, len(sizes))
+	given := make([]string, len(sizes))
+	for _, key := range slices.Sorted(maps.Keys(src.Channels)) {
+		r := src.Channels[key]
+		v, err := classify.ParseSize(key)
+		if err != nil {
+			addf(p+".channels."+key, "%q is not a channel size in µm", key)
+			continue
+		}
+		i, ok := index[classify.FormatSize(v)]
+		switch {
+		case !ok:
+			addf(p+".channels."+key, "the counter has no %s µm channel (its sizes are %s)", classify.FormatSize(v), strings.Join(sizes, ", "))
+			continue
+		case given[i] != "":
+			addf(p+".channels."+key, "names the %s µm channel a second time (also given as %q)", classify.FormatSize(v), given[i])
+			continue
+		}
+		given[i] = key
+		plan.channels[i] = reg(key, &r)
+	}
+	for i, s := range sizes {
+		if given[i] == "" {
+			if _, err := classify.ParseSize(s); err == nil {
+				addf(p+".channels", "missing the register of the %s µm channel", s)
+			}
+		}
+	}
+}
+
+// planBlocks groups the fields into read requests: per register type,
+// registers that follow each other without a gap make one request of at
+// most 125. Two values sharing a register are an error.
+func planBlocks(p string, fields []*regField, addf func(string, string, ...any)) []regBlock {
+	sorted := slices.Clone(fields)
+	sort.SliceStable(sorted, func(i, j int) bool {
+		if sorted[i].input != sorted[j].input {
+			return sorted[i].input
+		}
+		return sorted[i].addr < sorted[j].addr
+	})
+	var blocks []regBlock
+	var prev *regField
+	for _, f := range sorted {
+		if prev != nil && prev.input == f.input && int(f.addr) < int(prev.addr)+int(prev.n) {
+			addf(p+"."+f.path+".addr", "%s register %d is also %s (registers %d–%d)", typeName(f.input), f.addr, prev.path, prev.addr, int(prev.addr)+int(prev.n)-1)
+			continue
+		}
+		last := len(blocks) - 1
+		if last >= 0 && blocks[last].input == f.input && int(blocks[last].addr)+int(blocks[last].n) == int(f.addr) &&
+			int(blocks[last].n)+int(f.n) <= maxReadRegs {
+			blocks[last].n += f.n
+		} else {
+			blocks = append(blocks, regBlock{input: f.input, addr: f.addr, n: f.n})
+			last++
+		}
+		f.block, f.off = last, int(f.addr-blocks[last].addr)
+		prev = f
+	}
+	return blocks
+}
+
+func typeName(input bool) string {
+	if input {
+		return RegInput
+	}
+	return RegHolding
+}
+
+// compileModbus builds the plan of a validated counter or sensor.
+func compileModbus(src *ModbusSource, kind string, sizes []string, interval time.Duration) (*devicePlan, error) {
+	var msgs []string
+	plan := planModbus("modbus", src, kind, sizes, interval, func(path, format string, args ...any) {
+		msgs = append(msgs, path+": "+fmt.Sprintf(format, args...))
+	})
+	if plan == nil {
+		return nil, fmt.Errorf("%w: %s", ErrConfig, strings.Join(msgs, "; "))
+	}
+	return plan, nil
+}
+
+// scaledRaw turns a value in the field's unit back into its raw register
+// value (the slave side of value), rounding to the nearest step.
+func (f *regField) scaledRaw(v float64) (uint64, error) {
+	r := math.Round(v / f.scale)
+	bits := 16 * uint(f.n)
+	lo, hi := 0.0, float64(uint64(1)<<bits-1)
+	if f.signed {
+		lo, hi = -float64(uint64(1)<<(bits-1)), float64(uint64(1)<<(bits-1)-1)
+	}
+	if !finite(r) || r < lo || r > hi {
+		return 0, fmt.Errorf("%g does not fit %s (%d-bit, scale %g)", v, f.path, bits, f.scale)
+	}
+	if r < 0 {
+		return uint64(int64(r) + int64(1)<<bits), nil
+	}
+	return uint64(r), nil
+}
+
+// put writes raw into the registers of f in regs (addr → value).
+func (f *regField) put(regs map[uint16]uint16, raw uint64) {
+	if f.n == 1 {
+		regs[f.addr] = uint16(raw)
+		return
+	}
+	hi, lo := uint16(raw>>16), uint16(raw)
+	if f.low {
+		hi, lo = lo, hi
+	}
+	regs[f.addr], regs[f.addr+1] = hi, lo
+}

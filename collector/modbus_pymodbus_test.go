@@ -28,6 +28,9 @@ func pymodbusPython(t *testing.T) string {
 			return py
 		}
 	}
+	if os.Getenv("CLEANMON_REQUIRE_TOOLS") != "" {
+		t.Fatal("no python3 with pymodbus (Debian: python3-pymodbus) and CLEANMON_REQUIRE_TOOLS is set")
+	}
 	t.Skip("no python3 with pymodbus (apt-get install python3-pymodbus)")
 	return ""
 }

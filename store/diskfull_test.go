@@ -75,6 +75,9 @@ func TestDiskFullMaxBytes(t *testing.T) {
 func TestDiskFullENOSPC(t *testing.T) {
 	root := os.Getenv("CLEANMON_TEST_SMALLFS")
 	if root == "" {
+		if os.Getenv("CLEANMON_REQUIRE_TOOLS") != "" {
+			t.Fatal("CLEANMON_TEST_SMALLFS is not set and CLEANMON_REQUIRE_TOOLS is: .ci/run mounts one")
+		}
 		t.Skip("CLEANMON_TEST_SMALLFS not set: no small file system to fill")
 	}
 	dir, err := os.MkdirTemp(root, "store-enospc-")

@@ -38,26 +38,27 @@ func (a auditLog) record(ctx context.Context, actor, action, subject, reason str
 }
 
 // clockWatch notices a step of the wall clock (an NTP correction, an
-// operator setting the time) by comparing it with the monotonic clock, and
-// records it: readings carry their instruments' times, so nothing is lost
-// or reordered by a step, but an auditor must be able to see that one
-// happened and by how much.
+// operator setting the time) by comparing how far it moved with how far
+// the monotonic clock did, and records it: readings carry their
+// instruments' times, so a step loses or reorders nothing in the store, but
+// an auditor must be able to see that one happened and by how much.
 type clockWatch struct {
-	last      time.Time
+	lastWall  time.Time
+	lastMono  time.Duration
+	started   bool
 	tolerance time.Duration
 }
 
-// check returns the step since the last call (wall clock minus monotonic
-// elapsed time) when it exceeds the tolerance.
-func (c *clockWatch) check(now time.Time) (time.Duration, bool) {
-	if c.last.IsZero() {
-		c.last = now
+// check takes the wall clock and a monotonic reading (time since a fixed
+// start) and returns the step since the last call when it exceeds the
+// tolerance.
+func (c *clockWatch) check(wall time.Time, mono time.Duration) (time.Duration, bool) {
+	if !c.started {
+		c.lastWall, c.lastMono, c.started = wall, mono, true
 		return 0, false
 	}
-	mono := now.Sub(c.last)                   // monotonic where both carry it
-	wall := now.Round(0).Sub(c.last.Round(0)) // Round(0) strips the monotonic reading
-	c.last = now
-	step := wall - mono
+	step := wall.Sub(c.lastWall) - (mono - c.lastMono)
+	c.lastWall, c.lastMono = wall, mono
 	if step > c.tolerance || step < -c.tolerance {
 		return step, true
 	}
@@ -66,24 +67,31 @@ func (c *clockWatch) check(now time.Time) (time.Duration, bool) {
 
 func (a auditLog) watchClock(ctx context.Context) {
 	cw := clockWatch{tolerance: 2 * time.Second}
+	origin := time.Now()
 	t := time.NewTicker(time.Second)
 	defer t.Stop()
-	cw.check(time.Now())
+	// Round(0) strips the monotonic reading, leaving the wall clock alone;
+	// time.Since uses the monotonic one.
+	cw.check(time.Now().Round(0), time.Since(origin))
 	for {
 		select {
 		case <-ctx.Done():
 			return
-		case now := <-t.C:
-			if step, ok := cw.check(now); ok {
-				dir := "forward"
-				if step < 0 {
-					dir = "backward"
-				}
-				a.log.Warn("the wall clock stepped", "by", step, "direction", dir)
-				a.record(ctx, store.AuditActorSystem, "clock-step", "system clock", fmt.Sprintf("wall clock stepped %s by %s", dir, step.Abs()), nil)
+		case <-t.C:
+			if step, ok := cw.check(time.Now().Round(0), time.Since(origin)); ok {
+				a.clockStepped(ctx, step)
 			}
 		}
 	}
+}
+
+func (a auditLog) clockStepped(ctx context.Context, step time.Duration) {
+	dir := "forward"
+	if step < 0 {
+		dir = "backward"
+	}
+	a.log.Warn("the wall clock stepped", "by", step, "direction", dir)
+	a.record(ctx, store.AuditActorSystem, "clock-step", "system clock", fmt.Sprintf("wall clock stepped %s by %s", dir, step.Abs()), nil)
 }
 
 // auditJSON is one entry of GET /api/v1/audit.

@@ -2,6 +2,7 @@ package main
 
 import (
 	"crypto/sha256"
+	"crypto/tls"
 	"encoding/hex"
 	"errors"
 	"fmt"
@@ -44,6 +45,10 @@ type siteConfig struct {
 	PressureSensors []collector.Sensor  `yaml:"pressure_sensors"`
 	Alarms          alerts.AlarmsConfig `yaml:"alarms"`
 	Notifications   alerts.NotifyConfig `yaml:"notifications"`
+	TLS             tlsConfig           `yaml:"tls"`
+	// AllowPlainHTTP permits serving without TLS on an address other than
+	// loopback (a closed instrument network behind its own protection).
+	AllowPlainHTTP bool `yaml:"allow_plain_http"`
 
 	// source and sha256 name the file the configuration was read from and
 	// its digest, for the audit trail.
@@ -53,8 +58,9 @@ type siteConfig struct {
 // accessConfig is who may use the HTTP API.
 type accessConfig struct {
 	// OpenReads lets GET endpoints answer without a token.
-	OpenReads bool          `yaml:"open_reads"`
-	Tokens    []tokenConfig `yaml:"tokens"`
+	OpenReads bool            `yaml:"open_reads"`
+	Tokens    []tokenConfig   `yaml:"tokens"`
+	RateLimit rateLimitConfig `yaml:"rate_limit"`
 }
 
 // tokenConfig is one bearer token: the file keeps only the SHA-256 of the
@@ -498,6 +504,21 @@ func (d *nodeDecoder) check(c *siteConfig) {
 		} else if p, err := strconv.Atoi(port); err != nil || p < 0 || p > 65535 {
 			d.add("listen", "%q: port must be a number 0–65535", c.Listen)
 		}
+	}
+	if c.TLS.enabled() {
+		switch {
+		case c.TLS.CertFile == "":
+			d.add("tls.cert_file", "missing: key_file is given, the certificate is not")
+		case c.TLS.KeyFile == "":
+			d.add("tls.key_file", "missing: cert_file is given, the key is not")
+		default:
+			if _, err := tls.LoadX509KeyPair(c.TLS.CertFile, c.TLS.KeyFile); err != nil {
+				d.add("tls.cert_file", "%v", err)
+			}
+		}
+	}
+	if c.Listen != "" && !c.TLS.enabled() && !c.AllowPlainHTTP && !isLoopback(c.Listen) {
+		d.add("listen", "%q is not a loopback address and no tls is configured: give tls.cert_file and tls.key_file, or set allow_plain_http: true for a closed network", c.Listen)
 	}
 	if c.Retention < 0 {
 		d.add("retention", "%s: must be positive", time.Duration(c.Retention))

@@ -110,7 +110,7 @@ func crashConfig(t *testing.T, counters int) string {
 	t.Helper()
 	sum := sha256.Sum256([]byte(crashToken))
 	var b strings.Builder
-	fmt.Fprintf(&b, "site: \"Veldmark Photonics, building C\"\nretention: \"87600h\"\naccess:\n  tokens:\n    - {name: crash-admin, sha256: %q, role: admin}\n", hex.EncodeToString(sum[:]))
+	fmt.Fprintf(&b, "site: \"Veldmark Photonics, building C\"\nretention: \"87600h\"\naccess:\n  rate_limit: {disabled: true}\n  tokens:\n    - {name: crash-admin, sha256: %q, role: admin}\n", hex.EncodeToString(sum[:]))
 	b.WriteString("zones:\n  - id: assembly\n    name: Assembly hall\n    class: 7\n    operating_state: in-operation\n    area_m2: 60\n    sizes: [\"0.5\", \"5\"]\n    locations:\n")
 	for i := 0; i < counters; i++ {
 		fmt.Fprintf(&b, "      - {id: loc-%d}\n", i)

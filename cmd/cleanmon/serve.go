@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"crypto/tls"
 	"errors"
 	"flag"
 	"fmt"
@@ -12,6 +13,9 @@ import (
 	"net/http"
 	"os"
 	"os/signal"
+	"reflect"
+	"sort"
+	"strings"
 	"sync"
 	"syscall"
 	"time"
@@ -114,6 +118,9 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 	listen := firstOf(o.listen, cfg.Listen, defaultListen)
 	if _, _, err := net.SplitHostPort(listen); err != nil {
 		return quit(exitUsage, "--listen %q: %v", listen, err)
+	}
+	if !o.demo && !isLoopback(listen) && !cfg.TLS.enabled() && !cfg.AllowPlainHTTP {
+		return quit(exitUsage, "refusing plain HTTP on %s, which is not a loopback address: configure tls.cert_file and tls.key_file, or set allow_plain_http: true for a closed network", listen)
 	}
 	if o.demo && !isLoopback(listen) {
 		return quit(exitUsage, "--demo serves an open API (no tokens) and listens on loopback only; %q is not a loopback address", listen)
@@ -229,6 +236,15 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 		return quit(exitUsage, "Modbus: %v", err)
 	}
 
+	var certs certReloader
+	if cfg.TLS.enabled() {
+		if err := certs.load(cfg.TLS); err != nil {
+			stopBG()
+			stopModbus()
+			wg.Wait()
+			return quit(exitUsage, "%v", err)
+		}
+	}
 	ln, err := net.Listen("tcp", listen)
 	if err != nil {
 		stopBG()
@@ -250,9 +266,15 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 	if o.demo {
 		log.Warn("demo: the API is open, no token is asked for any route", "listen", ln.Addr().String(), "speed", o.speed)
 	}
-	url := "http://" + ln.Addr().String()
-	fmt.Fprintf(stdout, "cleanmon: serving on %s\n", url)
+	scheme := "http"
+	if cfg.TLS.enabled() {
+		ln = tls.NewListener(ln, certs.serverTLS())
+		scheme = "https"
+	}
+	url := scheme + "://" + ln.Addr().String()
+	// On record before anyone is told where to connect.
 	audit.record(ctx, store.AuditActorSystem, store.AuditStart, cfg.Site, "cleanmon serve on "+url, nil)
+	fmt.Fprintf(stdout, "cleanmon: serving on %s\n", url)
 	log.Info("serving", "url", url, "site", cfg.Site, "data", dataDir, "zones", len(cfg.Zones), "counters", len(cfg.Counters), "sensors", len(cfg.PressureSensors))
 	if !o.demo && len(cfg.Access.Tokens) == 0 {
 		log.Warn("no access tokens configured: nothing can post readings or change a zone", "open_reads", cfg.Access.OpenReads)
@@ -275,6 +297,24 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 			wg.Wait()
 			return quit(exitFail, "demo simulator: %v", err)
 		}
+	}
+
+	if !o.demo {
+		hup := make(chan os.Signal, 1)
+		signal.Notify(hup, syscall.SIGHUP)
+		defer signal.Stop(hup)
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for {
+				select {
+				case <-bg.Done():
+					return
+				case <-hup:
+					reloadConfig(bg, o.configPath, cfg, auth, &certs, audit, log)
+				}
+			}
+		}()
 	}
 
 	code := exitOK
@@ -442,4 +482,60 @@ func firstOf(vs ...string) string {
 		}
 	}
 	return ""
+}
+
+// reloadConfig re-reads the configuration on SIGHUP. Tokens (added,
+// revoked, new secrets), the rate limit and the TLS certificate take
+// effect at once and the reload is audited; a file with any problem
+// changes nothing. Other sections (zones, counters, sensors, alarms,
+// notifications) are read at start only: a change to them is logged as
+// waiting for a restart rather than applied halfway.
+func reloadConfig(ctx context.Context, path string, running *siteConfig, auth *authorizer, certs *certReloader, audit auditLog, log *slog.Logger) {
+	next, err := loadConfigFile(path)
+	if err != nil {
+		log.Error("configuration not reloaded: it has problems, the running one stays", "file", path, "err", oneLine(err.Error()))
+		audit.record(ctx, store.AuditActorSystem, "config-reload-refused", path, oneLine(err.Error()), nil)
+		return
+	}
+	if next.TLS.enabled() != running.TLS.enabled() {
+		log.Error("configuration not reloaded: turning TLS on or off needs a restart", "file", path)
+		return
+	}
+	if next.TLS.enabled() {
+		if err := certs.load(next.TLS); err != nil {
+			log.Error("configuration not reloaded: the certificate does not load, the running one stays", "err", err)
+			return
+		}
+	}
+	added, removed, err := auth.replace(next.Access)
+	if err != nil {
+		log.Error("tokens not reloaded", "err", err)
+		return
+	}
+	var later []string
+	for name, same := range map[string]bool{
+		"zones": reflect.DeepEqual(next.Zones, running.Zones), "counters": reflect.DeepEqual(next.Counters, running.Counters),
+		"pressure_sensors": reflect.DeepEqual(next.PressureSensors, running.PressureSensors), "alarms": reflect.DeepEqual(next.Alarms, running.Alarms),
+		"notifications": reflect.DeepEqual(next.Notifications, running.Notifications), "listen": next.Listen == running.Listen,
+		"data_dir": next.DataDir == running.DataDir, "retention": next.Retention == running.Retention,
+	} {
+		if !same {
+			later = append(later, name)
+		}
+	}
+	sort.Strings(later)
+	reason := fmt.Sprintf("reloaded on SIGHUP; tokens added: %s; tokens revoked: %s", listOrNone(added), listOrNone(removed))
+	if len(later) > 0 {
+		reason += "; waiting for a restart: " + strings.Join(later, ", ")
+		log.Warn("configuration reloaded; these sections change only at the next restart", "sections", later)
+	}
+	audit.record(ctx, store.AuditActorSystem, store.AuditConfigLoad, next.source, reason, []byte(next.sha256))
+	log.Info("configuration reloaded", "tokens_added", added, "tokens_revoked", removed)
+}
+
+func listOrNone(v []string) string {
+	if len(v) == 0 {
+		return "none"
+	}
+	return strings.Join(v, ", ")
 }

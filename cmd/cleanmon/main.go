@@ -34,6 +34,7 @@ func commands() []command {
 		{"backup", "write a consistent copy of a store to a file", runBackup},
 		{"verify", "check a store's consistency and integrity", runVerify},
 		{"bench", "measure ingest throughput and latency on loopback", runBench},
+		{"soak", "run ingest and queries together on loopback for a bounded time", runSoak},
 	}
 }
 

@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"log/slog"
 	"net/http"
+	"net/url"
 	"sort"
 	"strings"
 	"sync"
@@ -381,6 +382,9 @@ func (s *server) ackAlarm(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	id := chi.URLParam(r, "id")
+	if u, err := url.PathUnescape(id); err == nil {
+		id = u // an id sent with %3A for its colons names the same alarm
+	}
 	who := identityOf(r, req.By)
 	if strings.TrimSpace(who) == "" {
 		writeFieldError(w, "by", "missing: say who acknowledges")

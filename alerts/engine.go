@@ -547,19 +547,29 @@ func (e *Engine) ObserveCounterReadings(ctx context.Context, rs []CounterReading
 	e.touched = true
 	e.tracker.Observe(obs...)
 	t := e.begin()
-	views := map[string]ZoneView{}
+	// Only the locations this batch touched are judged (and viewed): a
+	// zone of thousands of locations is not recomputed for every request;
+	// Tick judges the whole zone every second.
+	touched := map[string]map[string]bool{}
+	for i := range rs {
+		if c, ok := e.counters[rs[i].Counter]; ok {
+			if touched[c.Zone] == nil {
+				touched[c.Zone] = map[string]bool{}
+			}
+			touched[c.Zone][c.Location] = true
+		}
+	}
+	views := make(map[string]ZoneView, len(touched))
+	for zone, locs := range touched {
+		views[zone], _ = e.tracker.ZonePart(zone, locs)
+	}
 	for _, i := range order {
 		r := &rs[i]
 		c, ok := e.counters[r.Counter]
 		if !ok {
 			continue
 		}
-		v, ok := views[c.Zone]
-		if !ok {
-			v, _ = e.tracker.Zone(c.Zone)
-			views[c.Zone] = v
-		}
-		e.judgeReading(t, c, r, v)
+		e.judgeReading(t, c, r, views[c.Zone])
 	}
 	for _, id := range e.zoneIDs {
 		if v, ok := views[id]; ok {

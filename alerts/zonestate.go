@@ -331,6 +331,19 @@ func (t *ZoneTracker) Zone(id string) (ZoneView, bool) {
 	return z.view(t.now()), true
 }
 
+// ZonePart returns the view of zone id restricted to the given locations:
+// its limits, levels and those locations' rolling means. Its State and
+// Notes describe only those locations; use Zone for the zone's state.
+func (t *ZoneTracker) ZonePart(id string, locations map[string]bool) (ZoneView, bool) {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	z, ok := t.byID[id]
+	if !ok {
+		return ZoneView{}, false
+	}
+	return z.partView(t.now(), locations), true
+}
+
 // ParseOperatingState checks an operating state name.
 func ParseOperatingState(s string) (string, error) {
 	switch s {
@@ -395,7 +408,13 @@ func (z *liveZone) apply(ch OperatingChange) {
 	z.op = ch
 }
 
-func (z *liveZone) view(now time.Time) ZoneView {
+func (z *liveZone) view(now time.Time) ZoneView { return z.partView(now, nil) }
+
+// partView is view restricted to the locations in only (nil: all). The
+// state and notes of a restricted view are not the zone's: it serves the
+// alarm rules, which judge the locations a batch of readings touched
+// without recomputing a zone of thousands of locations for every batch.
+func (z *liveZone) partView(now time.Time, only map[string]bool) ZoneView {
 	s := z.spec
 	v := ZoneView{
 		ID:             s.cfg.ID,
@@ -434,6 +453,9 @@ func (z *liveZone) view(now time.Time) ZoneView {
 	}
 	worst, fresh := StatusInClass, 0
 	for _, l := range z.locs {
+		if only != nil && !only[l.cfg.ID] {
+			continue
+		}
 		lv := l.view(now, limits)
 		if lv.Fresh {
 			fresh++

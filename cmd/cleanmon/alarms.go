@@ -11,7 +11,10 @@ import (
 	"sort"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
 
 	"github.com/go-chi/chi/v5"
 
@@ -116,6 +119,8 @@ type alarmService struct {
 	log       *slog.Logger
 	work      chan func(context.Context)
 
+	busy atomic.Int32 // a queued task is running
+
 	mu sync.Mutex
 	dp map[string]alerts.SensorDP // latest DP per sensor, for metrics
 }
@@ -180,7 +185,9 @@ func (s *alarmService) start(ctx context.Context, wg *sync.WaitGroup, history []
 					}
 				}
 			case f := <-s.work:
+				s.busy.Store(1)
 				f(ctx)
+				s.busy.Store(0)
 			}
 		}
 	}()
@@ -289,6 +296,17 @@ func (s *alarmService) LatestDP() []alerts.SensorDP {
 	}
 	sort.Slice(out, func(i, j int) bool { return out[i].Sensor < out[j].Sensor })
 	return out
+}
+
+var descRulesQueue = prometheus.NewDesc("cleanmon_rules_queue", "Batches of committed readings and DP samples waiting for the alarm rules.", nil, nil)
+
+// Describe and Collect export the rules' queue length: a queue that stays
+// long means the rules fall behind the ingest.
+func (s *alarmService) Describe(ch chan<- *prometheus.Desc) { ch <- descRulesQueue }
+
+// Collect implements prometheus.Collector.
+func (s *alarmService) Collect(ch chan<- prometheus.Metric) {
+	ch <- prometheus.MustNewConstMetric(descRulesQueue, prometheus.GaugeValue, float64(len(s.work)+int(s.busy.Load())))
 }
 
 // zoneAlarms are the open alarms of one zone, newest first.

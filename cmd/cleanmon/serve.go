@@ -210,6 +210,7 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 		alarms: alarmSvc, alarmLog: st}
 	srv.metrics.MustRegister(
 		auditCollector{st},
+		alarmSvc,
 		alerts.NewZoneCollector(zones),
 		alerts.NewPressureCollector(alarmSvc),
 		alerts.NewAlarmCollector(alarmSvc.eng, zoneIDs(cfg)),

@@ -112,7 +112,7 @@ func soak(o soakOptions, out io.Writer) (int64, error) {
 				b.Reset()
 				for i := 0; i < o.batch; i++ {
 					k := seq.Add(1)
-					benchReading(&b, 1+int(k%int64(o.counters-1)), base.Add(time.Duration(k)*time.Millisecond), k)
+					benchReading(&b, 1+int(k%int64(o.counters-1)), base.Add(time.Duration(k)*time.Millisecond), k) // one sample per counter per turn, as live counters report
 				}
 				if err := c.post(context.Background(), b.Bytes()); err != nil {
 					ingestErr.Add(1)

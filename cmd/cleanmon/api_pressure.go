@@ -90,14 +90,7 @@ func (s *server) listSensors(w http.ResponseWriter, r *http.Request) {
 // DP samples of one sensor, oldest first, streamed.
 func (s *server) sensorPressure(w http.ResponseWriter, r *http.Request) {
 	id := chi.URLParam(r, "sensor")
-	var sensor *collector.Sensor
-	for i := range s.cfg.PressureSensors {
-		if s.cfg.PressureSensors[i].ID == id {
-			sensor = &s.cfg.PressureSensors[i]
-		}
-	}
-	if sensor == nil {
-		writeError(w, http.StatusNotFound, fmt.Sprintf("unknown sensor %q", id))
+	if _, ok := s.sensorOf(w, id); !ok {
 		return
 	}
 	from, to, ok := s.queryRange(w, r)
@@ -127,4 +120,15 @@ func (s *server) sensorPressure(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	rs.end()
+}
+
+// sensorOf finds a configured DP sensor, or answers 404 naming it.
+func (s *server) sensorOf(w http.ResponseWriter, id string) (*collector.Sensor, bool) {
+	for i := range s.cfg.PressureSensors {
+		if s.cfg.PressureSensors[i].ID == id {
+			return &s.cfg.PressureSensors[i], true
+		}
+	}
+	writeError(w, http.StatusNotFound, fmt.Sprintf("unknown DP sensor %q", id))
+	return nil, false
 }

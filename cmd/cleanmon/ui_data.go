@@ -180,14 +180,8 @@ var errPressureUnavailable = errors.New("this store keeps no differential pressu
 // with its count, minimum, mean and maximum; empty buckets are left out.
 func (s *server) uiPressure(w http.ResponseWriter, r *http.Request) {
 	id := chi.URLParam(r, "sensor")
-	var sensor *collector.Sensor
-	for i := range s.cfg.PressureSensors {
-		if s.cfg.PressureSensors[i].ID == id {
-			sensor = &s.cfg.PressureSensors[i]
-		}
-	}
-	if sensor == nil {
-		writeError(w, http.StatusNotFound, fmt.Sprintf("unknown DP sensor %q", id))
+	sensor, ok := s.sensorOf(w, id)
+	if !ok {
 		return
 	}
 	points := defaultDPPoints

@@ -68,8 +68,10 @@ function zoneCard(z, now) {
   if (latest) meta.push("reading " + ago(latest, now));
   if (meta.length) card.append(el("div", { class: "zc-meta" }, meta.join(" · ")));
   if (alarms.length) {
-    const worst = alarms.some((a) => a.level === "action") ? "action" : "alert";
-    card.append(el("div", { class: "zc-alarm" }, levelBadge(worst), " ", alarms[0].kind + (alarms[0].location ? " at " + alarms[0].location : "")));
+    // The most severe open alarm (the newest of its level), named with its
+    // own level: a badge and a name that disagree would mislead.
+    const top = alarms.find((a) => a.level === "action") || alarms[0];
+    card.append(el("div", { class: "zc-alarm" }, levelBadge(top.level), " ", top.kind + (top.location ? " at " + top.location : "")));
   }
   return card;
 }

@@ -74,6 +74,12 @@ type EngineConfig struct {
 	// Latch says per kind whether alarms of that kind latch; a kind left
 	// out latches when its alarm is at the action level.
 	Latch map[string]bool
+	// Tracker, when set, is the live zone state the engine judges on (the
+	// daemon's own, so that the zone state shown and the out-of-class
+	// alarm come from one computation, kept once in memory). Its owner
+	// feeds it readings and operating states; the engine only reads it.
+	// Nil: the engine keeps a tracker of its own and feeds it.
+	Tracker *ZoneTracker
 }
 
 // CounterRule is what the rules know of one particle counter.
@@ -149,14 +155,16 @@ type CounterReading struct {
 // paged for them. When the journal fails, the method returns the error and
 // the engine is as it was before the call, so the same call may be retried.
 type Engine struct {
-	j         Journal
-	now       func() time.Time
-	tracker   *ZoneTracker
-	notifiers []string
-	latch     map[string]bool
-	nConsec   int
-	trendRun  int
-	trendBase int
+	j       Journal
+	now     func() time.Time
+	tracker *ZoneTracker
+	// ownTracker: the engine feeds its tracker (else its owner does).
+	ownTracker bool
+	notifiers  []string
+	latch      map[string]bool
+	nConsec    int
+	trendRun   int
+	trendBase  int
 
 	zones    map[string]*engineZone
 	counters map[string]*counterSpec
@@ -366,9 +374,13 @@ func NewEngine(cfg EngineConfig, j Journal, now func() time.Time) (*Engine, erro
 	if len(errs) > 0 {
 		return nil, configError(errs)
 	}
-	tr, err := NewZoneTracker(cfg.Zones, bindings, ZoneTrackerOptions{Now: now})
-	if err != nil {
-		return nil, fmt.Errorf("%w: %w", ErrEngineConfig, err)
+	tr := cfg.Tracker
+	e.ownTracker = tr == nil
+	if tr == nil {
+		var err error
+		if tr, err = NewZoneTracker(cfg.Zones, bindings, ZoneTrackerOptions{Now: now}); err != nil {
+			return nil, fmt.Errorf("%w: %w", ErrEngineConfig, err)
+		}
 	}
 	e.tracker = tr
 	for _, v := range tr.Zones() {
@@ -478,7 +490,9 @@ func (e *Engine) Prime(obs []Observation) error {
 	sorted := sortedByTime(obs)
 	e.mu.Lock()
 	defer e.mu.Unlock()
-	e.tracker.Observe(sorted...)
+	if e.ownTracker {
+		e.tracker.Observe(sorted...)
+	}
 	for _, o := range sorted {
 		c, ok := e.counters[o.Counter]
 		if !ok {
@@ -545,7 +559,9 @@ func (e *Engine) ObserveCounterReadings(ctx context.Context, rs []CounterReading
 
 	e.mu.Lock()
 	e.touched = true
-	e.tracker.Observe(obs...)
+	if e.ownTracker {
+		e.tracker.Observe(obs...)
+	}
 	t := e.begin()
 	// Only the locations this batch touched are judged (and viewed): a
 	// zone of thousands of locations is not recomputed for every request;
@@ -671,9 +687,11 @@ func (e *Engine) SetOperatingState(ctx context.Context, zone, state string) erro
 		return err
 	}
 	if state != z.op {
-		if err := e.tracker.RestoreOperatingState(OperatingChange{Zone: zone, State: state, Time: t.now}); err != nil {
-			e.mu.Unlock()
-			return err
+		if e.ownTracker {
+			if err := e.tracker.RestoreOperatingState(OperatingChange{Zone: zone, State: state, Time: t.now}); err != nil {
+				e.mu.Unlock()
+				return err
+			}
 		}
 		z.op = state
 		for k, s := range e.series {

@@ -129,11 +129,42 @@ func TestConsecutive(t *testing.T) {
 // The out-of-class alarm and the zone state agree: both are judged on the
 // same rolling means. An independent ZoneTracker fed the same readings is
 // the reference.
-func TestOutOfClassAgreesWithZoneState(t *testing.T) {
-	h := newHarness(t, nil)
-	ref, err := NewZoneTracker(engineZones(), []Binding{{"pc-asm-1", "assembly", "asm-1"}, {"pc-asm-2", "assembly", "asm-2"}}, ZoneTrackerOptions{Now: h.clk.Now})
+//
+// With a shared tracker (EngineConfig.Tracker, as the daemon runs it) the
+// owner feeds the tracker and the engine only reads it: the same alarms
+// must follow.
+func newRefTracker(t *testing.T, now func() time.Time) *ZoneTracker {
+	t.Helper()
+	ref, err := NewZoneTracker(engineZones(), []Binding{{"pc-asm-1", "assembly", "asm-1"}, {"pc-asm-2", "assembly", "asm-2"}}, ZoneTrackerOptions{Now: now})
 	if err != nil {
 		t.Fatal(err)
+	}
+	return ref
+}
+
+func TestOutOfClassAgreesWithZoneState(t *testing.T) {
+	for _, shared := range []bool{false, true} {
+		t.Run(map[bool]string{false: "own tracker", true: "shared tracker"}[shared], func(t *testing.T) { outOfClassAgrees(t, shared) })
+	}
+}
+
+func outOfClassAgrees(t *testing.T, shared bool) {
+	// One clock for the reference tracker and the engine. A shared tracker
+	// is made before the harness, so it gets a clock of its own, which the
+	// engine then takes too.
+	var ref *ZoneTracker
+	clk := &engClock{t: engT0}
+	h := newHarness(t, func(cfg *EngineConfig) {
+		if shared {
+			cfg.Tracker = newRefTracker(t, clk.Now)
+			ref = cfg.Tracker
+		}
+	})
+	if shared {
+		h.clk = clk
+		h.e.now = clk.Now
+	} else {
+		ref = newRefTracker(t, h.clk.Now)
 	}
 	// asm-1's mean over the 10-minute window: 300 000; (300 000 + 420 000)/2
 	// = 360 000 > 352 000 (ISO 7 limit); (300 000 + 420 000 + 300 000)/3 =

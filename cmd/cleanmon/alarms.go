@@ -88,9 +88,9 @@ func (a alarmStore) Pending(ctx context.Context, notifier string) (int, error) {
 }
 
 // engineConfig is the alarm engine's view of the site configuration.
-func engineConfig(cfg *siteConfig, notifiers []string) alerts.EngineConfig {
+func engineConfig(cfg *siteConfig, notifiers []string, zones *alerts.ZoneTracker) alerts.EngineConfig {
 	ec := alerts.EngineConfig{
-		Zones: cfg.Zones, Notifiers: notifiers,
+		Zones: cfg.Zones, Notifiers: notifiers, Tracker: zones,
 		Consecutive: cfg.Alarms.Consecutive, TrendRun: cfg.Alarms.TrendRun, TrendBaseline: cfg.Alarms.TrendBaseline, Latch: cfg.Alarms.Latch,
 	}
 	for _, k := range cfg.Counters {
@@ -127,7 +127,7 @@ type alarmService struct {
 
 const alarmQueue = 4096
 
-func newAlarmService(cfg *siteConfig, st *store.Store, now func() time.Time, log *slog.Logger) (*alarmService, error) {
+func newAlarmService(cfg *siteConfig, st *store.Store, zones *alerts.ZoneTracker, now func() time.Time, log *slog.Logger) (*alarmService, error) {
 	notifiers, err := alerts.BuildNotifiers(cfg.Notifications, &http.Client{Timeout: 30 * time.Second}, log)
 	if err != nil {
 		return nil, err
@@ -135,7 +135,7 @@ func newAlarmService(cfg *siteConfig, st *store.Store, now func() time.Time, log
 	opt := cfg.Notifications.DispatcherOptions()
 	opt.Now, opt.Logger = now, log
 	disp := alerts.NewDispatcher(alarmStore{st}, notifiers, opt)
-	eng, err := alerts.NewEngine(engineConfig(cfg, disp.Names()), alarmStore{st}, now)
+	eng, err := alerts.NewEngine(engineConfig(cfg, disp.Names(), zones), alarmStore{st}, now)
 	if err != nil {
 		return nil, err
 	}

@@ -177,7 +177,7 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 	if err != nil {
 		return quit(exitFail, "restoring zone state from the store: %v", err)
 	}
-	alarmSvc, err := newAlarmService(cfg, st, now, log)
+	alarmSvc, err := newAlarmService(cfg, st, zones, now, log)
 	if err != nil {
 		return quit(exitUsage, "%v", err)
 	}

@@ -196,6 +196,10 @@ type condition struct {
 	// delay, when positive, keeps a new alarm pending until the condition
 	// has lasted that long.
 	delay time.Duration
+	// msg, when set, writes tmpl.Message. It runs only when the condition
+	// touches an alarm: most readings raise nothing and clear nothing, and
+	// formatting a message for each of them was most of the rules' cost.
+	msg func() string
 }
 
 func levelRank(l string) int {
@@ -241,6 +245,9 @@ func (t *txn) judge(c condition) {
 	var a Alarm
 	if open {
 		a = e.alarms[id]
+	}
+	if c.msg != nil && (c.present || open) {
+		c.tmpl.Message = c.msg()
 	}
 	if !c.present {
 		if e.suppressed[c.key] {

@@ -39,16 +39,19 @@ type seriesState struct {
 	runStart   time.Time
 	trendRun   int // samples in a row above the centre line
 	trendStart time.Time
-	// hist holds the latest TrendBaseline+TrendRun−1 trusted samples. It is
-	// never changed in place (push copies), so a copy of the state is an
-	// undo.
+	// hist holds the latest TrendBaseline+TrendRun−1 trusted samples. No
+	// element inside any state's window is ever written again (push only
+	// appends past the end, and moves the start), so a copy of the state is
+	// an undo, without copying the history on every sample.
 	hist []histPoint
 }
 
 type histPoint struct{ count, volL float64 }
 
 func (s seriesState) push(p histPoint, max int) []histPoint {
-	h := append(s.hist[:len(s.hist):len(s.hist)], p)
+	// Appending writes past this state's window only; when the backing
+	// array is full, append moves the window to a new one (amortised).
+	h := append(s.hist, p)
 	if len(h) > max {
 		h = h[len(h)-max:]
 	}
@@ -97,7 +100,7 @@ func (e *Engine) judgeReading(t *txn, c *counterSpec, r *CounterReading, v ZoneV
 		s.last = r.Time
 		sz := size
 		tmpl := Alarm{Zone: c.Zone, Location: c.Location, Counter: c.ID, SizeUM: &sz, Value: val, Unit: unitPerM3}
-		where := fmt.Sprintf("%s µm at %s (%s)", classify.FormatSize(size), c.Location, c.ID)
+		where := func() string { return fmt.Sprintf("%s µm at %s (%s)", classify.FormatSize(size), c.Location, c.ID) }
 		sl := v.Limits[i]
 		e.judgeExcursion(t, k, tmpl, sl, where, r.Time)
 		if sl.Alert != nil {
@@ -111,60 +114,58 @@ func (e *Engine) judgeReading(t *txn, c *counterSpec, r *CounterReading, v ZoneV
 			}
 			a := tmpl
 			a.Kind, a.Threshold = KindConsecutive, *sl.Alert
-			if s.run >= e.nConsec {
-				a.Message = fmt.Sprintf("%s: %d samples in a row above the alert level %s /m³ (latest %s /m³)", where, s.run, num(*sl.Alert), num(val))
-			} else {
-				a.Message = fmt.Sprintf("%s: %s /m³, the run above the alert level %s /m³ is broken", where, num(val), num(*sl.Alert))
+			run, alert := s.run, *sl.Alert
+			msg := func() string {
+				if run >= e.nConsec {
+					return fmt.Sprintf("%s: %d samples in a row above the alert level %s /m³ (latest %s /m³)", where(), run, num(alert), num(val))
+				}
+				return fmt.Sprintf("%s: %s /m³, the run above the alert level %s /m³ is broken", where(), num(val), num(alert))
 			}
-			t.judge(condition{key: k + ":" + KindConsecutive, present: s.run >= e.nConsec, level: LevelAction, tmpl: a, since: s.runStart, at: r.Time})
+			t.judge(condition{key: k + ":" + KindConsecutive, present: s.run >= e.nConsec, level: LevelAction, tmpl: a, since: s.runStart, at: r.Time, msg: msg})
 		}
 		s = e.judgeTrend(t, k, s, tmpl, where, r, val, z.op == Maintenance)
 		setUndo(t, e.series, k, s)
 	}
 }
 
-func (e *Engine) judgeExcursion(t *txn, k string, tmpl Alarm, sl SizeLimit, where string, at time.Time) {
+func (e *Engine) judgeExcursion(t *txn, k string, tmpl Alarm, sl SizeLimit, where func() string, at time.Time) {
 	if sl.Alert == nil && sl.Action == nil {
 		return
 	}
 	val := tmpl.Value
 	a := tmpl
 	a.Kind = KindExcursion
-	level := ""
+	level, how := "", ""
 	switch {
 	case sl.Action != nil && val > *sl.Action:
-		level, a.Threshold = LevelAction, *sl.Action
-		a.Message = fmt.Sprintf("%s: %s /m³ is above the action level %s /m³", where, num(val), num(*sl.Action))
+		level, a.Threshold, how = LevelAction, *sl.Action, "is above the action level"
 	case sl.Alert != nil && val > *sl.Alert:
-		level, a.Threshold = LevelAlert, *sl.Alert
-		a.Message = fmt.Sprintf("%s: %s /m³ is above the alert level %s /m³", where, num(val), num(*sl.Alert))
+		level, a.Threshold, how = LevelAlert, *sl.Alert, "is above the alert level"
 	default:
 		low := sl.Action
 		if sl.Alert != nil {
 			low = sl.Alert
 		}
-		a.Threshold = *low
-		a.Message = fmt.Sprintf("%s: %s /m³ is back at or below %s /m³", where, num(val), num(*low))
+		a.Threshold, how = *low, "is back at or below"
 	}
-	t.judge(condition{key: k + ":" + KindExcursion, present: level != "", level: level, tmpl: a, since: at, at: at})
+	threshold := a.Threshold
+	msg := func() string { return fmt.Sprintf("%s: %s /m³ %s %s /m³", where(), num(val), how, num(threshold)) }
+	t.judge(condition{key: k + ":" + KindExcursion, present: level != "", level: level, tmpl: a, since: at, at: at, msg: msg})
 }
 
 // judgeTrend runs the run rule against the baseline of the samples before
 // the run, then adds the sample to the history (not in maintenance: what
 // happens then is not the zone's normal).
-func (e *Engine) judgeTrend(t *txn, k string, s seriesState, tmpl Alarm, where string, r *CounterReading, val float64, maint bool) seriesState {
+func (e *Engine) judgeTrend(t *txn, k string, s seriesState, tmpl Alarm, where func() string, r *CounterReading, val float64, maint bool) seriesState {
 	need := e.trendBase + e.trendRun - 1
 	count := val * r.VolumeL / 1000
 	if len(s.hist) == need {
 		base := s.hist[:e.trendBase]
-		counts := make([]float64, len(base))
 		var sumC, sumV float64
-		for i, p := range base {
-			counts[i] = p.count
+		for _, p := range base {
 			sumC += p.count
 			sumV += p.volL
 		}
-		cl := Baseline(counts)
 		centre := sumC / sumV * 1000
 		// Above by more than rounding: a steady concentration is not a run.
 		if val > centre*(1+1e-9)+1e-9 {
@@ -177,12 +178,19 @@ func (e *Engine) judgeTrend(t *txn, k string, s seriesState, tmpl Alarm, where s
 		}
 		a := tmpl
 		a.Kind, a.Threshold = KindTrend, centre
-		if s.trendRun >= e.trendRun {
-			a.Message = fmt.Sprintf("%s: %d samples in a row above the centre line %s /m³ of the previous %d samples (%s counts per sample, UCL %s)", where, s.trendRun, num(centre), cl.Samples, num(cl.Centre), num(cl.UCL))
-		} else {
-			a.Message = fmt.Sprintf("%s: %s /m³ is at or below the centre line %s /m³", where, num(val), num(centre))
+		run := s.trendRun
+		msg := func() string {
+			if run >= e.trendRun {
+				counts := make([]float64, len(base))
+				for i, p := range base {
+					counts[i] = p.count
+				}
+				cl := Baseline(counts)
+				return fmt.Sprintf("%s: %d samples in a row above the centre line %s /m³ of the previous %d samples (%s counts per sample, UCL %s)", where(), run, num(centre), cl.Samples, num(cl.Centre), num(cl.UCL))
+			}
+			return fmt.Sprintf("%s: %s /m³ is at or below the centre line %s /m³", where(), num(val), num(centre))
 		}
-		t.judge(condition{key: k + ":" + KindTrend, present: s.trendRun >= e.trendRun, level: LevelAlert, tmpl: a, since: s.trendStart, at: r.Time})
+		t.judge(condition{key: k + ":" + KindTrend, present: s.trendRun >= e.trendRun, level: LevelAlert, tmpl: a, since: s.trendStart, at: r.Time, msg: msg})
 	}
 	if !maint {
 		s.hist = s.push(histPoint{count: count, volL: r.VolumeL}, need)

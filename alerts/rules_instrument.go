@@ -61,16 +61,17 @@ func (e *Engine) judgeStale(t *txn, zone, sensor, counter string, st instrState,
 	}
 	a := Alarm{Zone: zone, Kind: KindStale, Counter: counter, Sensor: sensor,
 		Value: silence.Seconds(), Threshold: gap.Seconds(), Unit: "s"}
-	switch {
-	case !present:
-		a.Message = fmt.Sprintf("%s reports again (last reading %s)", subject, st.last.UTC().Format(time.RFC3339))
-	case !st.last.IsZero():
-		a.Message = fmt.Sprintf("no reading from %s for %s (allowed %s); last at %s", subject, silence.Round(time.Second), gap, st.last.UTC().Format(time.RFC3339))
-	default:
-		a.Message = fmt.Sprintf("no reading from %s since monitoring started %s ago (allowed %s)", subject, silence.Round(time.Second), gap)
+	msg := func() string {
+		switch {
+		case !present:
+			return fmt.Sprintf("%s reports again (last reading %s)", subject, st.last.UTC().Format(time.RFC3339))
+		case !st.last.IsZero():
+			return fmt.Sprintf("no reading from %s for %s (allowed %s); last at %s", subject, silence.Round(time.Second), gap, st.last.UTC().Format(time.RFC3339))
+		}
+		return fmt.Sprintf("no reading from %s since monitoring started %s ago (allowed %s)", subject, silence.Round(time.Second), gap)
 	}
 	t.judge(condition{key: zone + ":" + subject + ":" + KindStale, present: present, level: e.instrumentLevel(zone),
-		tmpl: a, since: ref.Add(gap), at: t.now})
+		tmpl: a, since: ref.Add(gap), at: t.now, msg: msg})
 }
 
 // judgeInstrument judges the causes of an instrument alarm on one counter
@@ -82,11 +83,14 @@ func (e *Engine) judgeInstrument(t *txn, c *counterSpec, r *CounterReading) {
 
 	a := base
 	fault := r.Status == StatusFault
-	a.Message = fmt.Sprintf("%s reports status %q", c.ID, r.Status)
-	if fault {
-		a.Message += ": its readings are not trusted"
-	}
-	t.judge(condition{key: key + "fault", present: fault, level: level, tmpl: a, since: r.Time, at: r.Time})
+	status := r.Status
+	t.judge(condition{key: key + "fault", present: fault, level: level, tmpl: a, since: r.Time, at: r.Time, msg: func() string {
+		m := fmt.Sprintf("%s reports status %q", c.ID, status)
+		if fault {
+			m += ": its readings are not trusted"
+		}
+		return m
+	}})
 
 	if c.MaxPerM3 > 0 {
 		peak, at := 0.0, 0.0
@@ -98,12 +102,12 @@ func (e *Engine) judgeInstrument(t *txn, c *counterSpec, r *CounterReading) {
 		a := base
 		a.Value, a.Threshold, a.Unit = peak, c.MaxPerM3, unitPerM3
 		over := peak >= c.MaxPerM3
-		if over {
-			a.Message = fmt.Sprintf("%s: %s /m³ at %s µm is at or beyond the counter's maximum %s /m³: coincidence makes the counts untrustworthy", c.ID, num(peak), classify.FormatSize(at), num(c.MaxPerM3))
-		} else {
-			a.Message = fmt.Sprintf("%s: concentrations back below the counter's maximum %s /m³", c.ID, num(c.MaxPerM3))
-		}
-		t.judge(condition{key: key + "overrange", present: over, level: level, tmpl: a, since: r.Time, at: r.Time})
+		t.judge(condition{key: key + "overrange", present: over, level: level, tmpl: a, since: r.Time, at: r.Time, msg: func() string {
+			if over {
+				return fmt.Sprintf("%s: %s /m³ at %s µm is at or beyond the counter's maximum %s /m³: coincidence makes the counts untrustworthy", c.ID, num(peak), classify.FormatSize(at), num(c.MaxPerM3))
+			}
+			return fmt.Sprintf("%s: concentrations back below the counter's maximum %s /m³", c.ID, num(c.MaxPerM3))
+		}})
 	}
 
 	if c.NominalFlowLPM > 0 && r.FlowLPM > 0 {
@@ -111,12 +115,14 @@ func (e *Engine) judgeInstrument(t *txn, c *counterSpec, r *CounterReading) {
 		a := base
 		a.Value, a.Threshold, a.Unit = r.FlowLPM, c.NominalFlowLPM, "L/min"
 		off := math.Abs(dev) > FlowTolerance
-		rel := "within"
-		if off {
-			rel = "outside"
-		}
-		a.Message = fmt.Sprintf("%s: flow %s L/min is %+.1f %% off the nominal %s L/min, %s the ±%g %% allowed", c.ID, num(r.FlowLPM), dev*100, num(c.NominalFlowLPM), rel, FlowTolerance*100)
-		t.judge(condition{key: key + "flow", present: off, level: level, tmpl: a, since: r.Time, at: r.Time})
+		flow := r.FlowLPM
+		t.judge(condition{key: key + "flow", present: off, level: level, tmpl: a, since: r.Time, at: r.Time, msg: func() string {
+			rel := "within"
+			if off {
+				rel = "outside"
+			}
+			return fmt.Sprintf("%s: flow %s L/min is %+.1f %% off the nominal %s L/min, %s the ±%g %% allowed", c.ID, num(flow), dev*100, num(c.NominalFlowLPM), rel, FlowTolerance*100)
+		}})
 	}
 }
 

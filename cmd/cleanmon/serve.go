@@ -389,8 +389,12 @@ func restoreZones(st *store.Store, zones *alerts.ZoneTracker, cfg *siteConfig, n
 			states[zone] = s.State
 		}
 	}
+	windows := map[string]time.Duration{} // a zone view per zone, not per counter
+	for _, v := range zones.Zones() {
+		windows[v.ID] = v.Window
+	}
 	for _, k := range cfg.Counters {
-		v, ok := zones.Zone(k.Zone)
+		window, ok := windows[k.Zone]
 		if !ok {
 			continue
 		}
@@ -400,7 +404,7 @@ func restoreZones(st *store.Store, zones *alerts.ZoneTracker, cfg *siteConfig, n
 			zones.Observe(storedObservation(r))
 		}
 		var obs []alerts.Observation
-		err := st.ScanReadings(k.ID, now.Add(-v.Window), time.Time{}, func(r store.Reading) error {
+		err := st.ScanReadings(k.ID, now.Add(-window), time.Time{}, func(r store.Reading) error {
 			obs = append(obs, storedObservation(r))
 			return nil
 		})

@@ -9,7 +9,8 @@ import { el, svgEl, num } from "./common.js";
 
 const W = 1000;
 const H = 330;
-const M = { left: 78, right: 118, top: 30, bottom: 40 };
+// The right margin holds the threshold labels ("action 280 000").
+const M = { left: 78, right: 150, top: 30, bottom: 40 };
 
 // Series styles: colour, dash pattern and marker shape.
 const STYLES = [

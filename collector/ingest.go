@@ -19,6 +19,14 @@ type Sink interface {
 	CommitPressure(ctx context.Context, ps []Pressure) (accepted, duplicates int, err error)
 }
 
+// MarkingSink is a Sink that can also say which readings of a commit were
+// new: stored[i] is false for a duplicate. With it, the observers see only
+// readings stored by the request, so a resent batch feeds no rule and no
+// metric twice.
+type MarkingSink interface {
+	CommitReadingsMarked(ctx context.Context, rs []Reading) (stored []bool, err error)
+}
+
 // Result is the answer to an accepted request, also its JSON body.
 type Result struct {
 	Accepted   int `json:"accepted"`
@@ -242,7 +250,23 @@ func (in *Ingest) commitReadings(ctx context.Context, rs []Reading) (Result, err
 			uniq = append(uniq, rs[i])
 		}
 	}
-	acc, sdup, err := in.sink.CommitReadings(ctx, uniq)
+	var acc, sdup int
+	var err error
+	fresh := uniq
+	if ms, ok := in.sink.(MarkingSink); ok {
+		var stored []bool
+		if stored, err = ms.CommitReadingsMarked(ctx, uniq); err == nil {
+			fresh = uniq[:0:0]
+			for i, ok := range stored {
+				if ok {
+					fresh = append(fresh, uniq[i])
+				}
+			}
+			acc, sdup = len(fresh), len(uniq)-len(fresh)
+		}
+	} else {
+		acc, sdup, err = in.sink.CommitReadings(ctx, uniq)
+	}
 	if err != nil {
 		err = fmt.Errorf("%w: %w", ErrCommit, err)
 		in.rejected("readings", "", err)
@@ -250,7 +274,7 @@ func (in *Ingest) commitReadings(ctx context.Context, rs []Reading) (Result, err
 	}
 	if acc > 0 {
 		for _, f := range in.onRead {
-			f(uniq)
+			f(fresh)
 		}
 	}
 	return Result{Accepted: acc, Duplicates: sdup + dups}, nil

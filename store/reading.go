@@ -142,29 +142,47 @@ func prepareReadings(rs []Reading) ([]preparedReading, error) {
 // stored again; its content is not compared. Any invalid reading fails
 // the call with a *RecordError and nothing is stored.
 func (s *Store) AppendReadings(ctx context.Context, rs []Reading) (accepted, duplicates int, err error) {
+	acc, dup, _, err := s.appendReadings(ctx, rs, false)
+	return acc, dup, err
+}
+
+// AppendReadingsMarked is AppendReadings that also says which readings it
+// stored: stored[i] is true when rs[i] was stored by this call, false when
+// it was a duplicate. Callers that act on new readings only (alarm rules,
+// per-counter metrics) need that per reading, not as a count.
+func (s *Store) AppendReadingsMarked(ctx context.Context, rs []Reading) (stored []bool, err error) {
+	_, _, stored, err = s.appendReadings(ctx, rs, true)
+	return stored, err
+}
+
+func (s *Store) appendReadings(ctx context.Context, rs []Reading, mark bool) (accepted, duplicates int, stored []bool, err error) {
 	if err := s.enter(); err != nil {
-		return 0, 0, err
+		return 0, 0, nil, err
 	}
 	defer s.exit()
 	if len(rs) == 0 {
-		return 0, 0, ctx.Err()
+		return 0, 0, nil, ctx.Err()
 	}
 	prep, err := prepareReadings(rs)
 	if err != nil {
-		return 0, 0, err
+		return 0, 0, nil, err
 	}
 	var acc, dup int
+	if mark {
+		stored = make([]bool, len(rs))
+	}
 	err = s.submit(ctx, len(prep), func(tx *bolt.Tx) error {
 		acc, dup = 0, 0
-		return s.putReadings(tx, prep, &acc, &dup)
+		clear(stored) // the group may run the call again after another member failed
+		return s.putReadings(tx, prep, &acc, &dup, stored)
 	})
 	if err != nil {
-		return 0, 0, err
+		return 0, 0, nil, err
 	}
-	return acc, dup, nil
+	return acc, dup, stored, nil
 }
 
-func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int) error {
+func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int, stored []bool) error {
 	series := newSeriesBuckets(tx, bucketReadings)
 	rollups := newRollupSet(tx, s.log)
 	cov := newCoverage(coverReadings)
@@ -182,6 +200,9 @@ func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int) 
 			return fmt.Errorf("store: put reading of %q: %w", p.counter, err)
 		}
 		*acc++
+		if stored != nil {
+			stored[i] = true
+		}
 		cov.add(p.counter, p.key, p.val)
 		if err := rollups.add(b, p); err != nil {
 			return err

@@ -7,7 +7,6 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
-	"math"
 	"net/http"
 	"runtime/debug"
 	"sync/atomic"
@@ -284,10 +283,29 @@ type storeSink struct {
 	m  *alerts.IngestMetrics // nil: no metrics
 }
 
-var _ collector.Sink = storeSink{}
+var (
+	_ collector.Sink        = storeSink{}
+	_ collector.MarkingSink = storeSink{}
+)
 
 // CommitReadings implements collector.Sink.
 func (s storeSink) CommitReadings(ctx context.Context, rs []collector.Reading) (int, int, error) {
+	stored, err := s.CommitReadingsMarked(ctx, rs)
+	if err != nil {
+		return 0, 0, err
+	}
+	acc := 0
+	for _, ok := range stored {
+		if ok {
+			acc++
+		}
+	}
+	return acc, len(rs) - acc, nil
+}
+
+// CommitReadingsMarked implements collector.MarkingSink, and counts every
+// reading in cleanmon_readings_total as accepted or duplicate, per counter.
+func (s storeSink) CommitReadingsMarked(ctx context.Context, rs []collector.Reading) ([]bool, error) {
 	out := make([]store.Reading, len(rs))
 	for i := range rs {
 		r := &rs[i]
@@ -297,32 +315,18 @@ func (s storeSink) CommitReadings(ctx context.Context, rs []collector.Reading) (
 			Sizes: r.Sizes, Counts: r.Counts,
 		}
 	}
-	acc, dup, err := s.st.AppendReadings(ctx, out)
+	stored, err := s.st.AppendReadingsMarked(ctx, out)
 	if err == nil && s.m != nil {
-		s.count(rs, acc, dup)
-	}
-	return acc, dup, err
-}
-
-// count feeds cleanmon_readings_total and the per-counter last-reading
-// metrics. The store reports duplicates per call, not per reading: a call
-// that mixes new and repeated readings is counted per counter in the
-// proportion of the call (exact whenever a counter's readings are all new
-// or all repeated, which is how resent batches arrive).
-func (s storeSink) count(rs []collector.Reading, acc, dup int) {
-	per := map[string]int{}
-	for i := range rs {
-		per[rs[i].Counter]++
-		s.m.Observe(rs[i].Counter, rs[i].Time, rs[i].FlowLPM)
-	}
-	for c, n := range per {
-		a := n
-		if dup > 0 {
-			a = int(math.Round(float64(n) * float64(acc) / float64(acc+dup)))
+		for i := range rs {
+			if stored[i] {
+				s.m.Count(rs[i].Counter, alerts.IngestAccepted, 1)
+				s.m.Observe(rs[i].Counter, rs[i].Time, rs[i].FlowLPM)
+			} else {
+				s.m.Count(rs[i].Counter, alerts.IngestDuplicate, 1)
+			}
 		}
-		s.m.Count(c, alerts.IngestAccepted, a)
-		s.m.Count(c, alerts.IngestDuplicate, n-a)
 	}
+	return stored, err
 }
 
 // CommitPressure implements collector.Sink.

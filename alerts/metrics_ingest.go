@@ -15,6 +15,9 @@ const (
 	IngestAccepted  = "accepted"
 	IngestDuplicate = "duplicate"
 	IngestRejected  = "rejected"
+	// IngestConflict is a reading with the time of a stored one but other
+	// values: not stored (the first stays), counted apart so it is seen.
+	IngestConflict = "conflict"
 )
 
 // UnknownLabel stands for a label value outside the configuration (a
@@ -78,7 +81,7 @@ func (m *IngestMetrics) Count(counter, result string, n int) {
 		return
 	}
 	switch result {
-	case IngestAccepted, IngestDuplicate, IngestRejected:
+	case IngestAccepted, IngestDuplicate, IngestRejected, IngestConflict:
 	default:
 		result = UnknownLabel
 	}

@@ -1,6 +1,7 @@
 package store
 
 import (
+	"bytes"
 	"context"
 	"fmt"
 	"math/bits"
@@ -146,16 +147,30 @@ func (s *Store) AppendReadings(ctx context.Context, rs []Reading) (accepted, dup
 	return acc, dup, err
 }
 
-// AppendReadingsMarked is AppendReadings that also says which readings it
-// stored: stored[i] is true when rs[i] was stored by this call, false when
-// it was a duplicate. Callers that act on new readings only (alarm rules,
+// Outcome is what AppendReadingsMarked did with one reading.
+type Outcome uint8
+
+// Outcomes of a reading: stored by this call; a duplicate of a stored one
+// (same counter, time and content); or a conflict: same counter and time
+// as a stored reading but different content. A conflict is not stored
+// either (the first reading stays, readings are never overwritten), but it
+// says something an auditor should hear of: an instrument or gateway
+// re-sent a sample with other values, or two samples carry one time.
+const (
+	Stored Outcome = iota + 1
+	Duplicate
+	Conflict
+)
+
+// AppendReadingsMarked is AppendReadings that also says what happened to
+// each reading. Callers that act on new readings only (alarm rules,
 // per-counter metrics) need that per reading, not as a count.
-func (s *Store) AppendReadingsMarked(ctx context.Context, rs []Reading) (stored []bool, err error) {
-	_, _, stored, err = s.appendReadings(ctx, rs, true)
-	return stored, err
+func (s *Store) AppendReadingsMarked(ctx context.Context, rs []Reading) (outcomes []Outcome, err error) {
+	_, _, outcomes, err = s.appendReadings(ctx, rs, true)
+	return outcomes, err
 }
 
-func (s *Store) appendReadings(ctx context.Context, rs []Reading, mark bool) (accepted, duplicates int, stored []bool, err error) {
+func (s *Store) appendReadings(ctx context.Context, rs []Reading, mark bool) (accepted, duplicates int, stored []Outcome, err error) {
 	if err := s.enter(); err != nil {
 		return 0, 0, nil, err
 	}
@@ -169,7 +184,7 @@ func (s *Store) appendReadings(ctx context.Context, rs []Reading, mark bool) (ac
 	}
 	var acc, dup int
 	if mark {
-		stored = make([]bool, len(rs))
+		stored = make([]Outcome, len(rs))
 	}
 	err = s.submit(ctx, len(prep), func(tx *bolt.Tx) error {
 		acc, dup = 0, 0
@@ -182,7 +197,7 @@ func (s *Store) appendReadings(ctx context.Context, rs []Reading, mark bool) (ac
 	return acc, dup, stored, nil
 }
 
-func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int, stored []bool) error {
+func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int, stored []Outcome) error {
 	series := newSeriesBuckets(tx, bucketReadings)
 	rollups := newRollupSet(tx, s.log)
 	cov := newCoverage(coverReadings)
@@ -192,8 +207,15 @@ func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int, 
 		if err != nil {
 			return err
 		}
-		if b.Get(p.key) != nil {
+		if old := b.Get(p.key); old != nil {
 			*dup++
+			if stored != nil {
+				// The encoding is deterministic: equal content, equal bytes.
+				stored[i] = Duplicate
+				if !bytes.Equal(old, p.val) {
+					stored[i] = Conflict
+				}
+			}
 			continue
 		}
 		if err := b.Put(p.key, p.val); err != nil {
@@ -201,7 +223,7 @@ func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int, 
 		}
 		*acc++
 		if stored != nil {
-			stored[i] = true
+			stored[i] = Stored
 		}
 		cov.add(p.counter, p.key, p.val)
 		if err := rollups.add(b, p); err != nil {

@@ -101,3 +101,34 @@ func TestIngestRefusesBadRequests(t *testing.T) {
 		t.Error("a stored reading left the audit head unchanged: the check above proves nothing")
 	}
 }
+
+// A reading re-sent with the time of a stored one but other values is
+// answered as a duplicate (DESIGN.md §4), the stored reading stays, and it
+// is counted as a conflict so that someone looks at the instrument.
+func TestIngestConflictKeepsTheFirstReading(t *testing.T) {
+	d := startSite(t, apiSite(false), "")
+	at := time.Now().UTC().Add(-time.Minute).Truncate(time.Second).Format(time.RFC3339)
+	first := `{"counter":"pc-hood","time":"` + at + `","volume_l":28.3,"counts":{"0.3":120,"0.5":40,"1":9,"5":1}}`
+	other := `{"counter":"pc-hood","time":"` + at + `","volume_l":28.3,"counts":{"0.3":900,"0.5":400,"1":90,"5":9}}`
+	for i, body := range []string{first, first, other} {
+		code, _, b := d.do("POST", "/api/v1/readings", secretIngest, "application/json", []byte(body))
+		want := map[int]string{0: `"accepted":1,"duplicates":0`, 1: `"accepted":0,"duplicates":1`, 2: `"accepted":0,"duplicates":1`}[i]
+		if code != 200 || !strings.Contains(string(b), want) {
+			t.Fatalf("post %d: %d %s, want %s", i, code, b, want)
+		}
+	}
+	_, _, b := d.do("GET", "/api/v1/zones/hood/readings?location=hood-1", secretViewer, "", nil)
+	if strings.Count(string(b), `"counter":"pc-hood"`) != 1 || !strings.Contains(string(b), `"0.5":40`) {
+		t.Errorf("the stored reading changed or doubled: %s", b)
+	}
+	_, _, m := d.do("GET", "/metrics", secretViewer, "", nil)
+	for _, want := range []string{`cleanmon_readings_total{counter="pc-hood",result="accepted"} 1`, `cleanmon_readings_total{counter="pc-hood",result="duplicate"} 1`,
+		`cleanmon_readings_total{counter="pc-hood",result="conflict"} 1`} {
+		if !strings.Contains(string(m), want) {
+			t.Errorf("metrics lack %s", want)
+		}
+	}
+	if !strings.Contains(d.stderr.String(), "stored with other values") {
+		t.Error("the conflict is not logged")
+	}
+}

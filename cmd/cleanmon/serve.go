@@ -182,7 +182,7 @@ func serve(ctx context.Context, o serveOptions, stdout, stderr io.Writer) int {
 		return quit(exitUsage, "%v", err)
 	}
 	ingestMetrics := alerts.NewIngestMetrics(counterIDs(cfg))
-	ingest := collector.NewIngest(reg, storeSink{st, ingestMetrics}, collector.IngestOptions{Retention: cfg.retention(), Now: now})
+	ingest := collector.NewIngest(reg, storeSink{st, ingestMetrics, log}, collector.IngestOptions{Retention: cfg.retention(), Now: now})
 	ingest.OnReadings(func(rs []collector.Reading) {
 		obs := make([]alerts.Observation, len(rs))
 		for i := range rs {

@@ -279,8 +279,9 @@ func (s *server) backup(w http.ResponseWriter, r *http.Request) {
 // storeSink commits the collector's readings to the store: the collector
 // acknowledges a sender only once this returns.
 type storeSink struct {
-	st *store.Store
-	m  *alerts.IngestMetrics // nil: no metrics
+	st  *store.Store
+	m   *alerts.IngestMetrics // nil: no metrics
+	log *slog.Logger          // nil: conflicts are not logged
 }
 
 var (
@@ -304,7 +305,10 @@ func (s storeSink) CommitReadings(ctx context.Context, rs []collector.Reading) (
 }
 
 // CommitReadingsMarked implements collector.MarkingSink, and counts every
-// reading in cleanmon_readings_total as accepted or duplicate, per counter.
+// reading in cleanmon_readings_total as accepted, duplicate or conflict,
+// per counter. A conflict (the time of a stored reading, other values) is
+// answered as a duplicate, as DESIGN.md §4 asks, but logged: the stored
+// reading stays, and someone must look at the instrument.
 func (s storeSink) CommitReadingsMarked(ctx context.Context, rs []collector.Reading) ([]bool, error) {
 	out := make([]store.Reading, len(rs))
 	for i := range rs {
@@ -315,18 +319,31 @@ func (s storeSink) CommitReadingsMarked(ctx context.Context, rs []collector.Read
 			Sizes: r.Sizes, Counts: r.Counts,
 		}
 	}
-	stored, err := s.st.AppendReadingsMarked(ctx, out)
-	if err == nil && s.m != nil {
-		for i := range rs {
-			if stored[i] {
-				s.m.Count(rs[i].Counter, alerts.IngestAccepted, 1)
-				s.m.Observe(rs[i].Counter, rs[i].Time, rs[i].FlowLPM)
-			} else {
-				s.m.Count(rs[i].Counter, alerts.IngestDuplicate, 1)
-			}
+	outcomes, err := s.st.AppendReadingsMarked(ctx, out)
+	if err != nil {
+		return nil, err
+	}
+	stored := make([]bool, len(rs))
+	for i, o := range outcomes {
+		stored[i] = o == store.Stored
+		if o == store.Conflict && s.log != nil {
+			s.log.Warn("reading not stored: a reading of this counter at this time is stored with other values",
+				"counter", rs[i].Counter, "time", rs[i].Time)
+		}
+		if s.m == nil {
+			continue
+		}
+		switch o {
+		case store.Stored:
+			s.m.Count(rs[i].Counter, alerts.IngestAccepted, 1)
+			s.m.Observe(rs[i].Counter, rs[i].Time, rs[i].FlowLPM)
+		case store.Conflict:
+			s.m.Count(rs[i].Counter, alerts.IngestConflict, 1)
+		default:
+			s.m.Count(rs[i].Counter, alerts.IngestDuplicate, 1)
 		}
 	}
-	return stored, err
+	return stored, nil
 }
 
 // CommitPressure implements collector.Sink.

@@ -5,7 +5,7 @@
 // the streaming JSON/NDJSON decoding behind them, and the simulator that
 // feeds the demo site.
 //
-// Every path in (HTTP, the simulator, later the Modbus poller) goes through
+// Every path in (HTTP, the simulator, the Modbus poller) goes through
 // the same [Ingest]: decode, validate every element, and only when the whole
 // request is good hand it to a [Sink], which returns once the data is
 // durable. A request is all-or-nothing: the first bad element is reported as

@@ -31,7 +31,7 @@ type permission int
 const (
 	permRead    permission = iota // GET endpoints
 	permIngest                    // POST readings and pressure
-	permOperate                   // operating-state changes, later alarm acks
+	permOperate                   // operating-state changes and alarm acknowledgements
 	permAdmin                     // backup and everything else
 )
 

@@ -65,6 +65,16 @@ notifications:
 		}
 		return false
 	})
+	// The receiver is down: /readyz says so (the daemon stays ready: it
+	// keeps taking readings, and the deliveries wait in the outbox).
+	waitFor(t, 10*time.Second, "the failing notifier in /readyz", func() bool {
+		code, b := call(t, "GET", d.url+"/readyz", "", "")
+		return code == 200 && strings.Contains(string(b), `ready, notifier failing`) && strings.Contains(string(b), `"up":false`)
+	})
+	_, m := call(t, "GET", d.url+"/metrics", e2eOperator, "")
+	if !strings.Contains(string(m), `cleanmon_notifier_up{notifier="pager"} 0`) {
+		t.Error("the failing notifier does not show in the metrics")
+	}
 	d.kill() // SIGKILL, the receiver still down: nothing was delivered
 
 	srv := &http.Server{Handler: hook}

@@ -82,8 +82,8 @@ func startTool(t *testing.T, ready string, bin string, args ...string) {
 	t.Helper()
 	ctx, cancel := context.WithCancel(context.Background())
 	cmd := exec.CommandContext(ctx, bin, args...)
-	var logs bytes.Buffer
-	cmd.Stdout, cmd.Stderr = &lockedWriter{w: &logs}, &lockedWriter{w: &logs}
+	logs := &lockedWriter{}
+	cmd.Stdout, cmd.Stderr = logs, logs
 	if err := cmd.Start(); err != nil {
 		t.Fatal(err)
 	}

@@ -1,44 +1,15 @@
 package main
 
 import (
-	"encoding/json"
-	"errors"
 	"fmt"
-	"io"
 	"net/http"
 	"strconv"
-	"strings"
 	"time"
 
 	"cleanmon/alerts"
 	"cleanmon/classify"
 	"cleanmon/store"
 )
-
-// decodeStrict reads a small JSON object body: unknown fields, trailing
-// data and oversized bodies are refused with an answer naming the field.
-func decodeStrict(w http.ResponseWriter, r *http.Request, limit int64, v any, fields string) bool {
-	dec := json.NewDecoder(http.MaxBytesReader(w, r.Body, limit))
-	dec.DisallowUnknownFields()
-	if err := dec.Decode(v); err != nil {
-		var mbe *http.MaxBytesError
-		switch {
-		case errors.As(err, &mbe):
-			writeError(w, http.StatusRequestEntityTooLarge, fmt.Sprintf("body larger than %d bytes", limit))
-		case strings.HasPrefix(err.Error(), "json: unknown field "):
-			f := strings.Trim(strings.TrimPrefix(err.Error(), "json: unknown field "), `"`)
-			writeFieldError(w, f, "unknown field (want "+fields+")")
-		default:
-			writeError(w, http.StatusBadRequest, "body: want a JSON object with "+fields+": "+err.Error())
-		}
-		return false
-	}
-	if _, err := dec.Token(); err != io.EOF {
-		writeError(w, http.StatusBadRequest, "body: unexpected data after the JSON object")
-		return false
-	}
-	return true
-}
 
 // levelsJSON is the answer of GET /api/v1/zones/{zone}/levels.
 type levelsJSON struct {

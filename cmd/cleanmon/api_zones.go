@@ -1,10 +1,8 @@
 package main
 
 import (
-	"encoding/json"
 	"errors"
 	"fmt"
-	"io"
 	"net/http"
 	"strings"
 	"time"
@@ -142,24 +140,8 @@ func (s *server) putZoneState(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusNotFound, fmt.Sprintf("unknown zone %q", id))
 		return
 	}
-	dec := json.NewDecoder(http.MaxBytesReader(w, r.Body, maxStateBody))
-	dec.DisallowUnknownFields()
 	var req stateRequest
-	if err := dec.Decode(&req); err != nil {
-		var mbe *http.MaxBytesError
-		switch {
-		case errors.As(err, &mbe):
-			writeError(w, http.StatusRequestEntityTooLarge, fmt.Sprintf("body larger than %d bytes", maxStateBody))
-		case strings.HasPrefix(err.Error(), "json: unknown field "):
-			f := strings.Trim(strings.TrimPrefix(err.Error(), "json: unknown field "), `"`)
-			writeFieldError(w, f, "unknown field (want state, by, reason)")
-		default:
-			writeError(w, http.StatusBadRequest, "body: want a JSON object {\"state\":..., \"by\":..., \"reason\":...}: "+err.Error())
-		}
-		return
-	}
-	if _, err := dec.Token(); err != io.EOF {
-		writeError(w, http.StatusBadRequest, "body: unexpected data after the JSON object")
+	if !decodeStrict(w, r, maxStateBody, &req, "state, by, reason") {
 		return
 	}
 	if _, err := alerts.ParseOperatingState(req.State); err != nil {

@@ -425,21 +425,24 @@ func rawBolt(path string, o benchOptions, base time.Time, n int) (float64, error
 type child struct {
 	cmd  *exec.Cmd
 	url  string
+	logs *lockedWriter // its stderr
 	done chan struct{}
 }
 
+// startChild runs the binary and waits (bounded) for the line that gives
+// its address.
 func startChild(bin string, args ...string) (*child, error) {
 	cmd := exec.Command(bin, args...)
 	out, err := cmd.StdoutPipe()
 	if err != nil {
 		return nil, err
 	}
-	var logs bytes.Buffer
-	cmd.Stderr = &lockedWriter{w: &logs}
+	logs := &lockedWriter{}
+	cmd.Stderr = logs
 	if err := cmd.Start(); err != nil {
 		return nil, err
 	}
-	c := &child{cmd: cmd, done: make(chan struct{})}
+	c := &child{cmd: cmd, logs: logs, done: make(chan struct{})}
 	urlc := make(chan string, 1)
 	go func() {
 		sc := bufio.NewScanner(out)
@@ -463,6 +466,12 @@ func startChild(bin string, args ...string) (*child, error) {
 		return nil, errors.New("the daemon did not start within 60 s")
 	}
 	return c, nil
+}
+
+// kill ends the child at once (SIGKILL) and waits for it.
+func (c *child) kill() {
+	c.cmd.Process.Signal(syscall.SIGKILL)
+	<-c.done
 }
 
 func (c *child) stop() {
@@ -500,16 +509,24 @@ func (c *child) status() map[string]int64 {
 	return out
 }
 
-// lockedWriter serialises writes from the child's stderr copier.
+// lockedWriter collects a child's output; the test or bench reads it
+// while the child still writes.
 type lockedWriter struct {
-	mu sync.Mutex
-	w  io.Writer
+	mu  sync.Mutex
+	buf bytes.Buffer
 }
 
 func (l *lockedWriter) Write(p []byte) (int, error) {
 	l.mu.Lock()
 	defer l.mu.Unlock()
-	return l.w.Write(p)
+	return l.buf.Write(p)
+}
+
+// String is what was written so far.
+func (l *lockedWriter) String() string {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.buf.String()
 }
 
 func machine() string {

@@ -1,7 +1,6 @@
 package main
 
 import (
-	"bufio"
 	"bytes"
 	"context"
 	"crypto/sha256"
@@ -16,7 +15,6 @@ import (
 	"path/filepath"
 	"strings"
 	"sync"
-	"syscall"
 	"testing"
 	"time"
 )
@@ -48,59 +46,18 @@ func cleanmonBinary(t *testing.T) string {
 	return binPath
 }
 
-// daemon is one running cleanmon process on loopback.
-type daemon struct {
-	cmd  *exec.Cmd
-	url  string
-	logs *bytes.Buffer
-	done chan struct{}
-}
+// daemon is one running cleanmon process on loopback (the bench's child).
+type daemon = child
 
-// startDaemon runs `cleanmon serve` and waits (bounded) for the line that
-// gives its address.
+// startDaemon runs `cleanmon serve` until the test ends.
 func startDaemon(t *testing.T, args ...string) *daemon {
 	t.Helper()
-	cmd := exec.Command(cleanmonBinary(t), append([]string{"serve", "--listen", "127.0.0.1:0"}, args...)...)
-	stdout, err := cmd.StdoutPipe()
+	d, err := startChild(cleanmonBinary(t), append([]string{"serve", "--listen", "127.0.0.1:0"}, args...)...)
 	if err != nil {
 		t.Fatal(err)
 	}
-	d := &daemon{cmd: cmd, logs: &bytes.Buffer{}, done: make(chan struct{})}
-	cmd.Stderr = &lockedWriter{w: d.logs}
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	urlc := make(chan string, 1)
-	go func() {
-		sc := bufio.NewScanner(stdout)
-		for sc.Scan() {
-			if _, u, ok := strings.Cut(sc.Text(), "serving on "); ok {
-				urlc <- strings.TrimSpace(u)
-			}
-		}
-		close(urlc)
-	}()
-	go func() { cmd.Wait(); close(d.done) }()
-	select {
-	case u, ok := <-urlc:
-		if !ok {
-			<-d.done
-			t.Fatalf("daemon exited before serving: %s", d.logs.String())
-		}
-		d.url = u
-	case <-time.After(30 * time.Second):
-		cmd.Process.Kill()
-		t.Fatalf("daemon did not start in 30 s: %s", d.logs.String())
-	}
-	t.Cleanup(func() { d.kill() })
+	t.Cleanup(d.kill)
 	return d
-}
-
-func (d *daemon) kill() {
-	if d.cmd.Process != nil {
-		d.cmd.Process.Signal(syscall.SIGKILL)
-	}
-	<-d.done
 }
 
 const crashToken = "crash-test-admin-token"

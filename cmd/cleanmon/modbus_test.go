@@ -346,8 +346,8 @@ func startPymodbusCounter(t *testing.T, py, port string, epoch int64) *pymodbusC
 	if err != nil {
 		t.Fatal(err)
 	}
-	var stderr strings.Builder
-	cmd.Stderr = &lockedWriter{w: &stderr}
+	stderr := &lockedWriter{}
+	cmd.Stderr = stderr
 	if err := cmd.Start(); err != nil {
 		t.Fatal(err)
 	}

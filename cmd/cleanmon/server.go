@@ -9,6 +9,7 @@ import (
 	"log/slog"
 	"net/http"
 	"runtime/debug"
+	"strings"
 	"sync/atomic"
 	"time"
 
@@ -138,6 +139,31 @@ func writeError(w http.ResponseWriter, status int, msg string) {
 }
 
 // writeFieldError is a 400 naming the query parameter or body field at fault.
+// decodeStrict reads a small JSON object body: unknown fields, trailing
+// data and oversized bodies are refused with an answer naming the field.
+func decodeStrict(w http.ResponseWriter, r *http.Request, limit int64, v any, fields string) bool {
+	dec := json.NewDecoder(http.MaxBytesReader(w, r.Body, limit))
+	dec.DisallowUnknownFields()
+	if err := dec.Decode(v); err != nil {
+		var mbe *http.MaxBytesError
+		switch {
+		case errors.As(err, &mbe):
+			writeError(w, http.StatusRequestEntityTooLarge, fmt.Sprintf("body larger than %d bytes", limit))
+		case strings.HasPrefix(err.Error(), "json: unknown field "):
+			f := strings.Trim(strings.TrimPrefix(err.Error(), "json: unknown field "), `"`)
+			writeFieldError(w, f, "unknown field (want "+fields+")")
+		default:
+			writeError(w, http.StatusBadRequest, "body: want a JSON object with "+fields+": "+err.Error())
+		}
+		return false
+	}
+	if _, err := dec.Token(); err != io.EOF {
+		writeError(w, http.StatusBadRequest, "body: unexpected data after the JSON object")
+		return false
+	}
+	return true
+}
+
 func writeFieldError(w http.ResponseWriter, field, msg string) {
 	writeJSON(w, http.StatusBadRequest, apiError{Error: field + ": " + msg, Field: field})
 }

@@ -1,6 +1,7 @@
 package investigate
 
 import (
+	"cmp"
 	"fmt"
 	"slices"
 	"time"
@@ -181,15 +182,7 @@ func Peaks(series []LocationSeries, from, to time.Time) []Peak {
 	for _, p := range bySize {
 		out = append(out, *p)
 	}
-	slices.SortFunc(out, func(a, b Peak) int {
-		switch {
-		case a.SizeUM < b.SizeUM:
-			return -1
-		case a.SizeUM > b.SizeUM:
-			return 1
-		}
-		return 0
-	})
+	slices.SortFunc(out, func(a, b Peak) int { return cmp.Compare(a.SizeUM, b.SizeUM) })
 	return out
 }
 

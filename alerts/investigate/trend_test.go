@@ -19,7 +19,7 @@ func TestPercentileAgainstGonum(t *testing.T) {
 		n := 1 + rng.IntN(400)
 		v := make([]float64, n)
 		for i := range v {
-			v[i] = math.Round(rng.ExpFloat64()*1000) // ties happen, as with counts
+			v[i] = math.Round(rng.ExpFloat64() * 1000) // ties happen, as with counts
 		}
 		slices.Sort(v)
 		for _, p := range append(ps, rng.Float64()) {

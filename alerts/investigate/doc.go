@@ -24,8 +24,8 @@
 // concentrations up, flow, temperature and humidity either way) for at
 // least 15 s is an event; a fault status and a change of operating state
 // are events of fixed size (20 and 6). Falls of two or more DP or airflow
-// sensors that begin within two minutes of each other are one supply
-// failure. Each event scores ln(1 + z) × w × p: z its largest robust
+// sensors that begin within two minutes of each other and each last two
+// minutes or more are one supply failure. Each event scores ln(1 + z) × w × p: z its largest robust
 // deviation; w its lead-time weight, 1 when it began up to 15 minutes
 // before the rise and was still under way within a minute of it, decaying
 // with a 5-minute time constant when it began earlier or was over before

@@ -130,8 +130,8 @@ func (x *investigation) pressureFall(p PressureSeries, d deviation, doors []Door
 	return candidate{ev: ev, what: what, say: func(lead time.Duration) string { return what + ", " + x.rel(lead) + ": " + why }}
 }
 
-// groupAir joins falls of different sensors that began within two
-// Simultaneous spans of the first into one supply failure; the others
+// groupAir joins sustained falls of different sensors that began within
+// two Simultaneous spans of the first into one supply failure; the others
 // stay as they are.
 func (x *investigation) groupAir(falls []candidate) []candidate {
 	slices.SortFunc(falls, func(a, b candidate) int { return a.ev.Start.Compare(b.ev.Start) })
@@ -143,8 +143,8 @@ func (x *investigation) groupAir(falls []candidate) []candidate {
 		}
 		group := []int{i}
 		names := map[string]bool{falls[i].ev.Subjects[0]: true}
-		for j := i + 1; j < len(falls); j++ {
-			if used[j] || falls[j].ev.Start.Sub(falls[i].ev.Start) > 2*x.o.Simultaneous || names[falls[j].ev.Subjects[0]] {
+		for j := i + 1; j < len(falls) && sustained(falls[i].ev); j++ {
+			if used[j] || !sustained(falls[j].ev) || falls[j].ev.Start.Sub(falls[i].ev.Start) > 2*x.o.Simultaneous || names[falls[j].ev.Subjects[0]] {
 				continue
 			}
 			group = append(group, j)
@@ -161,6 +161,13 @@ func (x *investigation) groupAir(falls []candidate) []candidate {
 	}
 	return out
 }
+
+// sustainedFall is the shortest fall that can be part of a supply
+// failure: a fan that stops does not come back by itself within seconds,
+// a door passage does.
+const sustainedFall = 2 * time.Minute
+
+func sustained(e Event) bool { return e.End.IsZero() || e.End.Sub(e.Start) >= sustainedFall }
 
 func (x *investigation) supplyFailure(falls []candidate, group []int) candidate {
 	ev := Event{Kind: KindAirSupply, Start: falls[group[0]].ev.Start, Plausible: plausibility[KindAirSupply]}

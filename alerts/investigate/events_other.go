@@ -42,8 +42,13 @@ func (x *investigation) instruments() {
 func (x *investigation) statusFaults(s InstrumentSeries) []candidate {
 	var out []candidate
 	var cur *candidate
+	faultBefore := false
 	for _, st := range s.Status {
-		if st.Time.Before(x.searchFrom) || st.Time.After(x.in.To) {
+		if st.Time.Before(x.searchFrom) {
+			faultBefore = faultBefore || (st.Status != "" && st.Status != "ok")
+			continue
+		}
+		if st.Time.After(x.in.To) {
 			continue
 		}
 		bad := st.Status != "" && st.Status != "ok"
@@ -58,6 +63,9 @@ func (x *investigation) statusFaults(s InstrumentSeries) []candidate {
 	}
 	if cur != nil {
 		out = append(out, *cur)
+	}
+	if faultBefore {
+		x.unknown("%s at %s reported a fault before %s: its readings there are not to be trusted", s.Counter, s.Location, clock(x.searchFrom))
 	}
 	return out
 }

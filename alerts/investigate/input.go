@@ -79,6 +79,19 @@ type InstrumentSeries struct {
 	Status     []StatusPoint
 }
 
+// The window around an alarm that an investigation reads by default: an
+// hour before it, for the baseline and the lead-up, and half an hour
+// after, for what followed.
+const (
+	DefaultBefore = 60 * time.Minute
+	DefaultAfter  = 30 * time.Minute
+)
+
+// DefaultWindow is the window read around an alarm that began at alarm.
+func DefaultWindow(alarm time.Time) (from, to time.Time) {
+	return alarm.Add(-DefaultBefore), alarm.Add(DefaultAfter)
+}
+
 // Input is everything recorded around one alarm. From and To bound the
 // window (the daemon's default is 60 min before the alarm to 30 min after);
 // AlarmTime is when the alarm began, AlarmLocation and SizeUM where it

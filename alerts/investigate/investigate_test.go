@@ -173,3 +173,28 @@ func TestEvidenceWords(t *testing.T) {
 		t.Errorf("%d door openings, want 1", n)
 	}
 }
+
+// A sensor that fell silent, and a counter that faulted before the
+// search span, are named as unknown rather than passed over.
+func TestSilenceAndEarlyFaultAreUnknown(t *testing.T) {
+	in := SimulateIncident(rand.New(rand.NewPCG(9, 9)), CauseNeighbour, alarmAt).Input
+	dp := in.Pressure[0].Points
+	var kept []Point
+	for _, p := range dp {
+		if p.Time.Before(alarmAt.Add(-10*time.Minute)) || p.Time.After(alarmAt.Add(5*time.Minute)) {
+			kept = append(kept, p)
+		}
+	}
+	in.Pressure[0].Points = kept
+	in.Instruments[1].Status[3].Status = "laser-fault"
+	res, err := Investigate(in, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	got := strings.Join(res.Unknown, "\n")
+	for _, want := range []string{in.Pressure[0].Sensor + ": no samples from 09:49:50 to 10:05:10", "pc-asm-2 at asm-2 reported a fault before"} {
+		if !strings.Contains(got, want) {
+			t.Errorf("Unknown %q lacks %q", res.Unknown, want)
+		}
+	}
+}

@@ -161,6 +161,7 @@ func (x *investigation) seriesDeviations(name string, pts []Point, floor float64
 		x.unknown("%s: %d samples before %s, too few to know its baseline", name, b.n, clock(x.searchFrom))
 		return nil, false
 	}
+	x.gaps(name, pts)
 	return deviations(pts, b, tr, dir, x.searchFrom, x.in.To, x.o.Threshold, x.o.MinSpan), true
 }
 
@@ -224,5 +225,28 @@ func (x *investigation) othersRising() {
 				break
 			}
 		}
+	}
+}
+
+// gaps notes where a series fell silent in the search span for longer
+// than five of its sample periods (and at least two minutes): what
+// happened there is unknown, not quiet.
+func (x *investigation) gaps(name string, pts []Point) {
+	limit := max(5*samplePeriod(pts), 2*time.Minute)
+	prev := x.searchFrom
+	for _, p := range pts {
+		if p.Time.Before(x.searchFrom) {
+			continue
+		}
+		if p.Time.After(x.in.To) {
+			break
+		}
+		if p.Time.Sub(prev) > limit {
+			x.unknown("%s: no samples from %s to %s", name, clock(prev), clock(p.Time))
+		}
+		prev = p.Time
+	}
+	if x.in.To.Sub(prev) > limit {
+		x.unknown("%s: no samples from %s to %s", name, clock(prev), clock(x.in.To))
 	}
 }

@@ -47,6 +47,26 @@
 // and the applicable regulations. When a series is missing or too short
 // to judge, Result.Unknown says so rather than leaving it out silently.
 //
+// # Exposure of production runs
+//
+// RunExposure lists, for a production run, the alarms of its zone that
+// overlapped it, edges included (an alarm that cleared the second the run
+// began did overlap it; an open run or alarm lasts until now), its time
+// at each attention level (time with no level on record is "unknown",
+// never "none"), and the peak concentration per size; AlarmRuns gives the
+// runs an alarm overlapped. ReadRunsCSV reads runs to import. The lists
+// are the input to an impact assessment that the site's QA makes and
+// signs; they do not replace it.
+//
+// # A month on one page
+//
+// Month summarises a zone's month beside the month before: per location
+// and size the mean, the 95th and 99th percentiles and the samples above
+// the alert level, the action level and the class limit; alarms by kind
+// and level; door openings per day; time by attention level. Percentiles
+// are nearest-rank (Percentile): always a measured value, the same as
+// the daemon's level advice uses, so a reader can find the sample.
+//
 // SimulateIncident stages incidents of known cause (a door held open, a
 // fan failure, a counter fault, a neighbour's excursion) on the demo
 // site's assembly room, with noise on every series and unrelated door

@@ -2,7 +2,7 @@
 // what else happened around it, which production runs were in the room,
 // and how a month of monitoring looked. It is pure computation over plain
 // series of times and values that the caller reads from the store; it
-// imports nothing of the project but classify, and does no I/O.
+// imports no other package of the project and does no I/O.
 //
 // # Coincident events
 //

@@ -79,6 +79,7 @@ func (s *Store) CreateRuns(ctx context.Context, runs []Run, by string) error {
 	}
 	defer s.exit()
 	now := time.Now().UTC()
+	runs = slices.Clone(runs) // the caller's slice is not changed
 	seen := map[string]bool{}
 	for i := range runs {
 		r := &runs[i]

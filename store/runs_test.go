@@ -32,6 +32,9 @@ func TestRunCreateCloseGetList(t *testing.T) {
 	if err := s.CreateRuns(ctx, runs, "operator-ana"); err != nil {
 		t.Fatal(err)
 	}
+	if runs[0].By != "" || !runs[0].Recorded.IsZero() {
+		t.Errorf("CreateRuns changed the caller's slice: %+v", runs[0])
+	}
 	got, err := s.Run("SF-0313")
 	if err != nil || !got.Open() || got.Lot != "L40-113" || got.By != "operator-ana" || got.Recorded.IsZero() {
 		t.Fatalf("Run = %+v, %v", got, err)

@@ -129,3 +129,38 @@ func CheckPassword(password, name, fullName string, minLen int) error {
 	}
 	return nil
 }
+
+// passwordAlphabet leaves out letters and digits that look alike on a
+// printed sheet or a terminal (0/o, 1/l/i).
+const passwordAlphabet = "abcdefghjkmnpqrstuvwxyz23456789"
+
+// GeneratePassword makes a random password for a new or reset account
+// (the demo's first admin, `user reset`): four groups of five from a
+// 31-character alphabet, about 99 bits, that passes CheckPassword for
+// this name and full name.
+func GeneratePassword(name, fullName string) (string, error) {
+	for try := 0; try < 10; try++ {
+		var b strings.Builder
+		for n := 0; n < 20; {
+			var buf [32]byte
+			if _, err := rand.Read(buf[:]); err != nil {
+				return "", fmt.Errorf("people: random: %w", err)
+			}
+			for _, x := range buf {
+				// Rejection keeps every character equally likely.
+				if n == 20 || int(x) >= 256/len(passwordAlphabet)*len(passwordAlphabet) {
+					continue
+				}
+				if n > 0 && n%5 == 0 {
+					b.WriteByte('-')
+				}
+				b.WriteByte(passwordAlphabet[int(x)%len(passwordAlphabet)])
+				n++
+			}
+		}
+		if p := b.String(); CheckPassword(p, name, fullName, DefaultMinPasswordLen) == nil {
+			return p, nil
+		}
+	}
+	return "", fmt.Errorf("%w: no random password passed the rules for %q in 10 tries", ErrInvalid, name)
+}

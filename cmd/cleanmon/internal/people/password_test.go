@@ -109,3 +109,38 @@ func TestHashCheck(t *testing.T) {
 		}
 	}
 }
+
+func TestGeneratePassword(t *testing.T) {
+	seen := map[string]bool{}
+	for i := 0; i < 50; i++ {
+		p, err := GeneratePassword("admin", "Site Administrator")
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(p) != 23 || strings.Count(p, "-") != 3 || strings.ContainsAny(p, "01ilo") {
+			t.Fatalf("generated %q: want four groups of five from the unambiguous alphabet", p)
+		}
+		if err := CheckPassword(p, "admin", "Site Administrator", DefaultMinPasswordLen); err != nil {
+			t.Fatalf("generated %q fails the rules: %v", p, err)
+		}
+		if seen[p] {
+			t.Fatalf("generated %q twice", p)
+		}
+		seen[p] = true
+	}
+}
+
+// BenchmarkHashDefault shows what one sign-in costs under
+// DefaultHashParams on this machine.
+func BenchmarkHashDefault(b *testing.B) {
+	enc, err := hashPassword(inesPassword, DefaultHashParams)
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.ReportAllocs()
+	for b.Loop() {
+		if ok, _ := checkPasswordHash(inesPassword, enc); !ok {
+			b.Fatal("no match")
+		}
+	}
+}

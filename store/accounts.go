@@ -327,3 +327,21 @@ func accountDiff(old, next *Account) []byte {
 	}
 	return []byte(strings.Join(lines, "\n"))
 }
+
+// verifyAccounts checks every stored account's checksum and encoding
+// and returns one problem a damaged account. It is ready for Verify to
+// call once the verifier walks the accounts bucket.
+func verifyAccounts(tx *bolt.Tx) []string {
+	b := tx.Bucket(bucketAccounts)
+	if b == nil {
+		return nil
+	}
+	var problems []string
+	_ = b.ForEach(func(k, v []byte) error {
+		if _, err := decodeAccount(k, v); err != nil {
+			problems = append(problems, err.Error())
+		}
+		return nil
+	})
+	return problems
+}

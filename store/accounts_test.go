@@ -1,12 +1,15 @@
 package store
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"strings"
 	"sync"
 	"testing"
 	"time"
+
+	bolt "go.etcd.io/bbolt"
 )
 
 func TestAccountCreateGetAndAudit(t *testing.T) {
@@ -193,5 +196,38 @@ func must(t *testing.T, err error) {
 	t.Helper()
 	if err != nil {
 		t.Fatal(err)
+	}
+}
+
+func TestVerifyAccountsFindsAChangedAccount(t *testing.T) {
+	s := quick(t)
+	ctx := context.Background()
+	must(t, s.CreateAccount(ctx, Account{Name: "ines", Role: "qa"}, AccountChange{Action: "add", Time: t0}))
+	must(t, s.CreateAccount(ctx, Account{Name: "piet", Role: "viewer"}, AccountChange{Action: "add", Time: t0}))
+	var problems []string
+	check := func() {
+		must(t, s.db.View(func(tx *bolt.Tx) error { problems = verifyAccounts(tx); return nil }))
+	}
+	check()
+	if len(problems) != 0 {
+		t.Fatalf("clean accounts: %q", problems)
+	}
+	// Raise piet to admin behind the store's back.
+	must(t, s.db.Update(func(tx *bolt.Tx) error {
+		b := tx.Bucket(bucketAccounts)
+		v := append([]byte(nil), b.Get([]byte("piet"))...)
+		i := bytes.Index(v, []byte(`"viewer"`))
+		if i < 0 {
+			t.Fatalf("stored form %q lacks the role", v)
+		}
+		v = append(v[:i:i], append([]byte(`"admin"`), v[i+len(`"viewer"`):]...)...)
+		return b.Put([]byte("piet"), v)
+	}))
+	check()
+	if len(problems) != 1 || !strings.Contains(problems[0], `"piet"`) || !strings.Contains(problems[0], "checksum") {
+		t.Fatalf("problems = %q, want one naming piet's checksum", problems)
+	}
+	if _, err := s.GetAccount("piet"); !errors.Is(err, ErrCorrupt) {
+		t.Fatalf("GetAccount of a changed account = %v, want ErrCorrupt", err)
 	}
 }

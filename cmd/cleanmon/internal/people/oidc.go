@@ -38,7 +38,9 @@ type OIDCConfig struct {
 	NameClaim string
 	// FullNameClaim gives the full name (default "name").
 	FullNameClaim string
-	// RoleClaim names the claim holding a string or a list of strings.
+	// RoleClaim names the claim holding a string or a list of strings;
+	// a dotted path reaches into objects ("realm_access.roles"). A claim
+	// whose own name has a dot is found before the path is walked.
 	RoleClaim string
 	// Roles map claim values to roles, first match in this order wins;
 	// a person none matches is refused, never given a default role.
@@ -306,11 +308,11 @@ func (o *OIDC) exchange(ctx context.Context, code string, f *flight) (Person, ti
 
 // identity reads name, full name and role from the claims.
 func (o *OIDC) identity(issuer, subject string, claims map[string]any) (External, error) {
-	name, _ := claims[o.cfg.NameClaim].(string)
-	full, _ := claims[o.cfg.FullNameClaim].(string)
+	name, _ := claimAt(claims, o.cfg.NameClaim).(string)
+	full, _ := claimAt(claims, o.cfg.FullNameClaim).(string)
 	e := External{Issuer: issuer, Subject: subject, Name: strings.ToLower(name), FullName: full}
 	var values []string
-	switch v := claims[o.cfg.RoleClaim].(type) {
+	switch v := claimAt(claims, o.cfg.RoleClaim).(type) {
 	case string:
 		values = []string{v}
 	case []any:
@@ -329,4 +331,21 @@ func (o *OIDC) identity(issuer, subject string, claims map[string]any) (External
 		}
 	}
 	return External{}, fmt.Errorf("%w: claim %q of %s holds %q, which maps to no role", ErrOIDC, o.cfg.RoleClaim, e.Name, values)
+}
+
+// claimAt finds a claim by its name, or else by a dotted path through
+// nested objects.
+func claimAt(claims map[string]any, path string) any {
+	if v, ok := claims[path]; ok {
+		return v
+	}
+	cur := any(claims)
+	for _, part := range strings.Split(path, ".") {
+		m, ok := cur.(map[string]any)
+		if !ok {
+			return nil
+		}
+		cur = m[part]
+	}
+	return cur
 }

@@ -137,7 +137,13 @@ func (m *Sessions) sweepLocked(now time.Time) {
 // Get returns the live session with this ID and marks it seen now. An
 // unknown ID gives ErrNoSession; a timed-out session is removed and
 // gives ErrExpired.
-func (m *Sessions) Get(id string) (Session, error) {
+func (m *Sessions) Get(id string) (Session, error) { return m.get(id, true) }
+
+// Peek is Get without marking the session seen: a page's automatic
+// refresh must not keep an unattended terminal signed in.
+func (m *Sessions) Peek(id string) (Session, error) { return m.get(id, false) }
+
+func (m *Sessions) get(id string, touch bool) (Session, error) {
 	now := m.clock.Now()
 	m.mu.Lock()
 	defer m.mu.Unlock()
@@ -150,7 +156,9 @@ func (m *Sessions) Get(id string) (Session, error) {
 		delete(m.byID, k)
 		return Session{}, fmt.Errorf("%w: %s", ErrExpired, why)
 	}
-	s.LastSeen = now
+	if touch {
+		s.LastSeen = now
+	}
 	return *s, nil
 }
 
@@ -162,6 +170,19 @@ func (m *Sessions) SignIn(oldID string, p Person, method string) (Session, error
 		m.End(oldID)
 	}
 	return m.insert(&p, method, m.clock.Now())
+}
+
+// Update replaces the person of a signed-in session (a changed role or
+// full name); false if the session is gone.
+func (m *Sessions) Update(id string, p Person) bool {
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	s, ok := m.byID[idKey(id)]
+	if !ok || s.Person == nil {
+		return false
+	}
+	s.Person = &p
+	return true
 }
 
 // Reauthenticated records that the session's person proved who they are

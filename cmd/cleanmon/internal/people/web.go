@@ -15,6 +15,10 @@ const (
 	CookieName = "cleanmon_session" // the session cookie
 	CSRFHeader = "X-CSRF-Token"     // header carrying the session's token (fetch)
 	CSRFField  = "csrf_token"       // form field carrying it (plain forms)
+	// BackgroundHeader, with any value, marks a request the page sends by
+	// itself (a periodic refresh): it does not count as activity for the
+	// idle time-out.
+	BackgroundHeader = "X-Cleanmon-Background"
 )
 
 // Web holds what the sign-in handlers and the session middleware share.
@@ -108,7 +112,14 @@ func (w *Web) Middleware(next http.Handler) http.Handler {
 			next.ServeHTTP(rw, r)
 			return
 		}
-		s, err := w.sessions.Get(c.Value)
+		get := w.sessions.Get
+		if r.Header.Get(BackgroundHeader) != "" {
+			get = w.sessions.Peek
+		}
+		s, err := get(c.Value)
+		if err == nil {
+			s, err = w.current(s)
+		}
 		if err != nil {
 			w.clearCookie(rw, r)
 			next.ServeHTTP(rw, r)
@@ -120,6 +131,32 @@ func (w *Web) Middleware(next http.Handler) http.Handler {
 		}
 		next.ServeHTTP(rw, r.WithContext(context.WithValue(r.Context(), ctxKey{}, s)))
 	})
+}
+
+// current re-reads the account of a signed-in session, so that disabling
+// or locking an account ends its sessions at their next request and a
+// changed role or full name applies at once. An account that cannot be
+// read ends the session: fail safe.
+func (w *Web) current(s Session) (Session, error) {
+	if s.Person == nil || w.dir == nil {
+		return s, nil
+	}
+	a, err := w.dir.Lookup(s.Person.Name)
+	switch {
+	case err != nil:
+		w.sessions.End(s.ID)
+		return Session{}, err
+	case a.Disabled || a.Locked:
+		w.sessions.End(s.ID)
+		return Session{}, fmt.Errorf("%w: account %s is disabled or locked", ErrNoSession, a.Name)
+	}
+	p := *s.Person
+	if p.Role != Role(a.Role) || p.FullName != a.FullName {
+		p.Role, p.FullName = Role(a.Role), a.FullName
+		w.sessions.Update(s.ID, p)
+		s.Person = &p
+	}
+	return s, nil
 }
 
 // PreSession returns the request's session, starting a pre-sign-in one

@@ -8,6 +8,7 @@ import (
 	"net/url"
 	"strings"
 	"testing"
+	"time"
 )
 
 // site is a real HTTP server on loopback with the sign-in routes, a page
@@ -266,4 +267,55 @@ func TestLocalPath(t *testing.T) {
 			t.Errorf("localPath(%q) = %q, want %q", in, got, want)
 		}
 	}
+}
+
+func TestBackgroundRequestsDoNotKeepSessionAlive(t *testing.T) {
+	s := newSite(t, false)
+	_, sess := s.signIn(t, "ines", inesPassword)
+	bg := map[string]string{BackgroundHeader: "1"}
+	for i := 0; i < 2; i++ {
+		s.clock.Add(5 * time.Minute)
+		if _, body := s.do(t, "GET", "/whoami", sess, nil, bg); !strings.HasPrefix(body, "ines|") {
+			t.Fatalf("background refresh at %d min: %q", (i+1)*5, body)
+		}
+	}
+	s.clock.Add(5 * time.Minute)
+	if _, body := s.do(t, "GET", "/whoami", sess, nil, bg); body != "anonymous" {
+		t.Fatalf("15 min of only background refreshes kept the session: %q", body)
+	}
+}
+
+func TestAccountChangesReachLiveSessions(t *testing.T) {
+	s := newSite(t, false)
+	ctx := context.Background()
+	_, sess := s.signIn(t, "piotr", piotrPassword)
+	if err := s.dir.SetRole(ctx, "admin", "piotr", RoleViewer, "moved to another team"); err != nil {
+		t.Fatal(err)
+	}
+	if _, body := s.do(t, "GET", "/whoami", sess, nil, nil); !strings.HasPrefix(body, "piotr|") {
+		t.Fatalf("after the role change: %q", body)
+	}
+	if got, ok := sessionRole(s, sess); !ok || got != RoleViewer {
+		t.Fatalf("role after the change = %q (%v), want viewer", got, ok)
+	}
+	if err := s.dir.Disable(ctx, "admin", "piotr", "left the site"); err != nil {
+		t.Fatal(err)
+	}
+	if _, body := s.do(t, "GET", "/whoami", sess, nil, nil); body != "anonymous" {
+		t.Fatalf("a disabled account's session still works: %q", body)
+	}
+	if err := s.dir.Enable(ctx, "admin", "piotr", "came back"); err != nil {
+		t.Fatal(err)
+	}
+	if _, body := s.do(t, "GET", "/whoami", sess, nil, nil); body != "anonymous" {
+		t.Fatalf("re-enabling revived the old session: %q", body)
+	}
+}
+
+func sessionRole(s *site, id string) (Role, bool) {
+	ses, err := s.web.Sessions().Peek(id)
+	if err != nil || ses.Person == nil {
+		return "", false
+	}
+	return ses.Person.Role, true
 }

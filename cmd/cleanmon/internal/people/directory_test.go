@@ -139,3 +139,44 @@ func TestResetClearsLockAndChecksRules(t *testing.T) {
 		t.Fatalf("new password after reset: %v", err)
 	}
 }
+
+func TestSignInExternalBinding(t *testing.T) {
+	f := newFixture(t)
+	ctx := context.Background()
+	const idp = "https://idp.veldmark.example"
+	lena := External{Issuer: idp, Subject: "u-17", Name: "lena", FullName: "Lena Sorensen", Role: RoleQA}
+	if _, err := f.dir.SignInExternal(ctx, lena); err != nil {
+		t.Fatal(err)
+	}
+	cases := []struct {
+		name string
+		e    External
+		want error
+	}{
+		{"another subject under the same name", External{Issuer: idp, Subject: "u-99", Name: "lena", FullName: "Lena Other", Role: RoleAdmin}, ErrExists},
+		{"another provider", External{Issuer: "https://other.example", Subject: "u-17", Name: "lena", FullName: "Lena Sorensen", Role: RoleQA}, ErrExists},
+		{"a local account's name", External{Issuer: idp, Subject: "u-5", Name: "ines", FullName: "Ines Varga", Role: RoleAdmin}, ErrExists},
+		{"bad name", External{Issuer: idp, Subject: "u-6", Name: "Lena Sorensen", FullName: "Lena Sorensen", Role: RoleQA}, ErrOIDC},
+		{"no full name", External{Issuer: idp, Subject: "u-7", Name: "kai", Role: RoleQA}, ErrOIDC},
+	}
+	for _, tc := range cases {
+		t.Run(tc.name, func(t *testing.T) {
+			if _, err := f.dir.SignInExternal(ctx, tc.e); !errors.Is(err, tc.want) {
+				t.Fatalf("err = %v, want %v", err, tc.want)
+			}
+		})
+	}
+	// The same person again: role and full name follow the provider.
+	lena.Role, lena.FullName = RoleOperator, "Lena Sorensen-Holm"
+	p, err := f.dir.SignInExternal(ctx, lena)
+	if err != nil || p.Role != RoleOperator {
+		t.Fatalf("second sign-in = %+v, %v", p, err)
+	}
+	a, _ := f.dir.Lookup("lena")
+	if a.Role != "operator" || a.FullName != "Lena Sorensen-Holm" || a.Subject != "u-17" {
+		t.Fatalf("account after the second sign-in: %+v", a)
+	}
+	if _, err := f.dir.Authenticate(ctx, "lena", ""); !errors.Is(err, ErrBadCredentials) {
+		t.Fatalf("password sign-in to a provider account = %v, want ErrBadCredentials", err)
+	}
+}

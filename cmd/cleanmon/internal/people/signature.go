@@ -125,7 +125,16 @@ func (g *Signer) reauthenticate(ctx context.Context, s Session, password string)
 		if age := g.clock.Now().Sub(s.AuthTime); age > g.window {
 			return Person{}, fmt.Errorf("%w: last provider sign-in %s ago, more than %s", ErrReauth, age.Round(time.Second), g.window)
 		}
-		return *s.Person, nil
+		a, err := g.dir.Lookup(s.Person.Name)
+		switch {
+		case err != nil:
+			return Person{}, err
+		case a.Disabled:
+			return Person{}, fmt.Errorf("%w: %s", ErrDisabled, a.Name)
+		case a.Issuer != s.Person.Issuer:
+			return Person{}, fmt.Errorf("%w: account %s no longer belongs to %s", ErrReauth, a.Name, s.Person.Issuer)
+		}
+		return Person{Name: a.Name, FullName: a.FullName, Role: Role(a.Role), Issuer: a.Issuer}, nil
 	}
 	p, err := g.dir.Authenticate(ctx, s.Person.Name, password)
 	if err != nil {

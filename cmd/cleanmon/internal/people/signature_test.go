@@ -133,8 +133,13 @@ func TestApproverMustNotBePerformer(t *testing.T) {
 
 func TestProviderSessionSignsOnlyAfterFreshSignIn(t *testing.T) {
 	f := newFixture(t)
+	const issuer = "https://idp.veldmark.example"
+	p, err := f.dir.SignInExternal(context.Background(), External{Issuer: issuer, Subject: "u-17", Name: "lena", FullName: "Lena Sorensen", Role: RoleQA})
+	if err != nil {
+		t.Fatal(err)
+	}
 	m := NewSessions(SessionConfig{}, f.clock)
-	s, _ := m.SignIn("", Person{Name: "lena", FullName: "Lena Sorensen", Role: RoleQA, Issuer: "https://idp.veldmark.example"}, "oidc")
+	s, _ := m.SignIn("", p, "oidc")
 	g := NewSigner(f.dir, f.audit, f.clock, 0)
 	req := SignRequest{Meaning: MeaningReviewed, Subject: "alarm 9", Content: []byte("a")}
 	if _, err := g.Sign(context.Background(), s, req); err != nil {
@@ -147,7 +152,19 @@ func TestProviderSessionSignsOnlyAfterFreshSignIn(t *testing.T) {
 	}
 	m.Reauthenticated(s.ID)
 	s, _ = m.Get(s.ID)
-	if _, err := g.Sign(context.Background(), s, req); err != nil {
+	sig, err := g.Sign(context.Background(), s, req)
+	if err != nil {
 		t.Fatalf("after a fresh provider sign-in: %v", err)
+	}
+	if sig.FullName != "Lena Sorensen" || sig.Method != "oidc" {
+		t.Fatalf("signature = %+v", sig)
+	}
+	if err := f.dir.Disable(context.Background(), "admin", "lena", "left"); err != nil {
+		t.Fatal(err)
+	}
+	m.Reauthenticated(s.ID)
+	s, _ = m.Get(s.ID)
+	if _, err := g.Sign(context.Background(), s, req); !errors.Is(err, ErrDisabled) {
+		t.Fatalf("disabled provider account signing = %v, want ErrDisabled", err)
 	}
 }

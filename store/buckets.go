@@ -23,7 +23,7 @@ var (
 	bucketAudit     = []byte("audit")              // sequence → chained audit entry
 	knownBuckets    = [][]byte{
 		bucketMeta, bucketReadings, bucketPressure, bucketRollup1m, bucketRollup1h, bucketOpState,
-		bucketJournal, bucketJournalAt, bucketAlarms, bucketAlarmsAt, bucketOutbox, bucketAudit, bucketRuns,
+		bucketJournal, bucketJournalAt, bucketAlarms, bucketAlarmsAt, bucketOutbox, bucketAudit, bucketRuns, bucketAccounts,
 	}
 	metaSchema      = []byte("schema")       // uvarint schemaVersion
 	metaSweptBefore = []byte("swept_before") // 8-byte key: latest Sweep horizon

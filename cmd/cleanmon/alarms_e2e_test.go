@@ -190,8 +190,8 @@ func call(t *testing.T, method, url, token string, body string) (int, []byte) {
 // Alertmanager; it is acknowledged with a comment and clears everywhere;
 // a DP dip shorter than its delay raises nothing.
 func TestAlarmEndToEnd(t *testing.T) {
-	amBin := deployTool(t, "prometheus-alertmanager", "prometheus-alertmanager")
-	promBin := deployTool(t, "prometheus", "prometheus")
+	amBin := outsideTool(t, "prometheus-alertmanager", "prometheus-alertmanager")
+	promBin := outsideTool(t, "prometheus", "prometheus")
 
 	hook := &webhookReceiver{secret: "e2e-hmac-key", byKey: map[string]int{}}
 	hs := httptest.NewServer(hook)
@@ -262,7 +262,7 @@ func TestAlarmEndToEnd(t *testing.T) {
 	// two DESIGN.md §4 names in which "counter" is the particle counter
 	// (Debian's promtool 2.42 takes the word for the metric type).
 	_, metrics := call(t, "GET", d.url+"/metrics", e2eViewer, "")
-	check := exec.Command(deployTool(t, "promtool", "prometheus"), "check", "metrics")
+	check := exec.Command(outsideTool(t, "promtool", "prometheus"), "check", "metrics")
 	check.Stdin = bytes.NewReader(metrics)
 	out, _ := check.CombinedOutput()
 	for _, line := range strings.Split(strings.TrimSpace(string(out)), "\n") {

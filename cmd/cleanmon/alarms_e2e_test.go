@@ -21,6 +21,7 @@ import (
 	"time"
 
 	"cleanmon/alerts"
+	"cleanmon/cmd/cleanmon/internal/loadtest"
 )
 
 // webhookReceiver is a loopback receiver that checks every delivery's
@@ -82,7 +83,7 @@ func startTool(t *testing.T, ready string, bin string, args ...string) {
 	t.Helper()
 	ctx, cancel := context.WithCancel(context.Background())
 	cmd := exec.CommandContext(ctx, bin, args...)
-	logs := &lockedWriter{}
+	logs := &loadtest.LockedWriter{}
 	cmd.Stdout, cmd.Stderr = logs, logs
 	if err := cmd.Start(); err != nil {
 		t.Fatal(err)

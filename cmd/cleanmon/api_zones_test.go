@@ -8,6 +8,13 @@ import (
 	"time"
 )
 
+// stateChangeOut is the last change of the operating state.
+type stateChangeOut struct {
+	By     string    `json:"by"`
+	Reason string    `json:"reason"`
+	Since  time.Time `json:"since"`
+}
+
 // zoneOut decodes the zone object as a client would.
 type zoneOut struct {
 	ID             string              `json:"id"`
@@ -15,7 +22,7 @@ type zoneOut struct {
 	Class          *float64            `json:"class"`
 	Grade          *string             `json:"grade"`
 	OperatingState string              `json:"operating_state"`
-	StateChange    *stateChangeJSON    `json:"operating_state_change"`
+	StateChange    *stateChangeOut     `json:"operating_state_change"`
 	LimitsState    string              `json:"limits_state"`
 	State          string              `json:"state"`
 	LimitsPerM3    map[string]*float64 `json:"limits_per_m3"`
@@ -197,7 +204,7 @@ func TestPutZoneState(t *testing.T) {
 		{"unknown field", "fill", `{"state":"at-rest","by":"x","who":"y"}`, 400, "who"},
 		{"not JSON", "fill", `state=at-rest`, 400, ""},
 		{"trailing data", "fill", `{"state":"at-rest","by":"x"} {}`, 400, ""},
-		{"too large", "fill", `{"state":"at-rest","by":"` + strings.Repeat("x", maxStateBody) + `"}`, 413, ""},
+		{"too large", "fill", `{"state":"at-rest","by":"` + strings.Repeat("x", 64<<10) + `"}`, 413, ""},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {

@@ -175,22 +175,3 @@ func TestOpenReads(t *testing.T) {
 		}
 	}
 }
-
-func TestGrants(t *testing.T) {
-	// The role table of the access rules, checked cell by cell.
-	table := map[string][4]bool{ // read, ingest, operate, admin
-		roleIngest:   {false, true, false, false},
-		roleViewer:   {true, false, false, false},
-		roleOperator: {true, false, true, false},
-		roleAdmin:    {true, true, true, true},
-		"":           {false, false, false, false},
-		"root":       {false, false, false, false},
-	}
-	for role, w := range table {
-		for p, want := range w {
-			if got := grants(role, permission(p)); got != want {
-				t.Errorf("grants(%q, %s) = %v, want %v", role, permission(p), got, want)
-			}
-		}
-	}
-}

@@ -434,7 +434,7 @@ func TestPagesOnTokenSite(t *testing.T) {
 // uiCertification posts planned samples of the coating hood and compares,
 // for a clean period and one with an excursion, the certification page
 // with `cleanmon certify` on a file of the same samples.
-func uiCertification(t *testing.T, b *browser, d *daemon, now time.Time) {
+func uiCertification(t *testing.T, b *browser, d *process, now time.Time) {
 	base := now.Truncate(time.Minute).Add(-3 * time.Hour)
 	var rs []uiReading
 	for i := 0; i < 5; i++ {
@@ -596,7 +596,7 @@ func uiReportBody(t *testing.T, html []byte) string {
 // uiYearChart posts a year of hourly readings for one location and draws
 // the zone page's year view, which comes from the hourly rollups, and
 // prints how long the browser took (a measurement, not a timed assertion).
-func uiYearChart(t *testing.T, b *browser, d *daemon, now time.Time) {
+func uiYearChart(t *testing.T, b *browser, d *process, now time.Time) {
 	end := now.Truncate(time.Hour)
 	var rs []uiReading
 	for i := 1; i <= 8760; i++ {

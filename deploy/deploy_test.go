@@ -31,7 +31,7 @@ import (
 // and these tests live beside the files they check.
 var deployDir = "."
 
-// deployMustMetrics are the metric names DESIGN.md §4 fixes (MUST) and the
+// deployMustMetrics are the metric names fixed as the daemon's interface and the
 // notifier metrics that came with the notifiers. The daemon may export
 // more; deployExportedMetrics finds those.
 var deployMustMetrics = map[string]bool{
@@ -50,7 +50,7 @@ var deployMustMetrics = map[string]bool{
 }
 
 // deployStateMetrics are the one-series-per-state metrics the dashboard
-// shows as words, with the values of their state label (DESIGN.md §4, the
+// shows as words, with the values of their state label (the
 // zone object's `state` and `operating_state`).
 var deployStateMetrics = []struct {
 	metric string
@@ -575,7 +575,7 @@ func TestDeployDashboardStateMapping(t *testing.T) {
 				}
 			}
 			if len(codes) != len(sm.states) {
-				t.Errorf("the query encodes %d states (%v), want the %d of DESIGN.md §4", len(codes), codes, len(sm.states))
+				t.Errorf("the query encodes %d states (%v), want the %d of the zone object", len(codes), codes, len(sm.states))
 			}
 		})
 	}
@@ -727,7 +727,7 @@ func TestDeployRules(t *testing.T) {
 	}
 
 	labelValues := map[string][]string{
-		"level":    {"action", "alert"},     // ISO 14644-2 terms, DESIGN.md §5
+		"level":    {"action", "alert"},     // ISO 14644-2 terms
 		"severity": {"critical", "warning"}, // the urgency the Alertmanager example routes on
 	}
 	alerts := 0

@@ -260,7 +260,7 @@ func TestAlarmEndToEnd(t *testing.T) {
 		return bytes.Contains(b, []byte(`"value":[`)) && bytes.Contains(b, []byte(`,"1"]`))
 	})
 	// The daemon's whole exposition passes promtool's checks, but for the
-	// two DESIGN.md §4 names in which "counter" is the particle counter
+	// two fixed metric names in which "counter" is the particle counter
 	// (Debian's promtool 2.42 takes the word for the metric type).
 	_, metrics := call(t, "GET", d.url+"/metrics", e2eViewer, "")
 	check := exec.Command(outsideTool(t, "promtool", "prometheus"), "check", "metrics")
@@ -275,7 +275,7 @@ func TestAlarmEndToEnd(t *testing.T) {
 		"cleanmon_zone_state", "cleanmon_differential_pressure_pascals", "cleanmon_alarm_active", "cleanmon_readings_total",
 		"cleanmon_counter_last_reading_timestamp_seconds", "cleanmon_counter_flow_liters_per_minute"} {
 		if !bytes.Contains(metrics, []byte("\n"+name+"{")) {
-			t.Errorf("/metrics lacks %s (DESIGN.md §4)", name)
+			t.Errorf("/metrics lacks %s", name)
 		}
 	}
 	// At the webhook, signed, once.

@@ -73,7 +73,7 @@ func TestZonesList(t *testing.T) {
 		{"hood", "Coating hood", 5, "", map[string]float64{"0.5": 3520, "1": 832}, "in-operation", []string{"hood-1"}},
 		// ISO 14644-1:2015 Table 1: ISO 7 at 0.5 / 5 µm.
 		{"assembly", "Assembly hall", 7, "", map[string]float64{"0.5": 352000, "5": 2930}, "in-operation", []string{"asm-1", "asm-2"}},
-		// EU GMP Annex 1 (2022) monitoring limits, grade B at rest (DESIGN.md §3).
+		// EU GMP Annex 1 (2022) monitoring limits, grade B at rest.
 		{"fill", "Filling room", 0, "B", map[string]float64{"0.5": 3520, "5": 29}, "at-rest", []string{"f-1"}},
 		{"corridor", "Corridor", 0, "", map[string]float64{}, "in-operation", nil},
 	}
@@ -223,7 +223,7 @@ func TestPutZoneState(t *testing.T) {
 		})
 	}
 
-	// Grade B in operation: 352 000 and 2 930 /m³ (EU GMP Annex 1 (2022), DESIGN.md §3).
+	// Grade B in operation: 352 000 and 2 930 /m³ (EU GMP Annex 1 (2022)).
 	code, _, b := d.do("PUT", "/api/v1/zones/fill/state", secretOperator, "application/json", []byte(`{"state":"in-operation","by":"j.marsh","reason":"shift start"}`))
 	if code != 200 {
 		t.Fatalf("%d %s", code, b)

@@ -51,7 +51,7 @@ func TestAccessByRole(t *testing.T) {
 		{"ingest", secretIngest}, {"viewer", secretViewer}, {"operator", secretOperator}, {"admin", secretAdmin},
 	}
 	// Expected per route and token, in the order of tokens above (the
-	// roles of DESIGN.md §4 as the daemon issue defines them): 0 is
+	// roles of the access rules): 0 is
 	// "let through" — the handler ran and answered on its own terms (a
 	// classification of an empty range is 422, an unknown alarm 404).
 	const ok = 0

@@ -11,7 +11,7 @@ import (
 
 const allTableSizes = "0.1,0.2,0.3,0.5,1,5"
 
-// limitsOut is the JSON of `cleanmon limits --json` (DESIGN.md §4 and the
+// limitsOut is the JSON of `cleanmon limits --json` (the fixed shape and the
 // certification issue: a blank cell is null and has a note).
 type limitsOut struct {
 	Class       *float64            `json:"class,omitempty"`

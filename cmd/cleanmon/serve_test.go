@@ -227,7 +227,7 @@ func TestDemoServesFiveZonesAtOnce(t *testing.T) {
 	for _, z := range zs {
 		ids = append(ids, z.ID)
 	}
-	// DESIGN.md §6: the five zones of the demo site.
+	// the demo site: the five zones of the demo site.
 	if strings.Join(ids, ",") != "coating-hood,assembly,metrology,gowning,corridor" {
 		t.Fatalf("zones %v", ids)
 	}

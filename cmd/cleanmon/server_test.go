@@ -32,8 +32,8 @@ func tokenHash(s string) string {
 	return hex.EncodeToString(h[:])
 }
 
-// apiSite is the site of the API tests (zones of the invented site of
-// DESIGN.md §6, cut down): an ISO 5 hood of 2 m² with one location, an
+// apiSite is the site of the API tests (zones of the invented demo site,
+// cut down): an ISO 5 hood of 2 m² with one location, an
 // ISO 7 hall with two, a GMP grade B room and an unclassified corridor.
 func apiSite(openReads bool) string {
 	return fmt.Sprintf(`site: "Veldmark Photonics, building C (API tests)"

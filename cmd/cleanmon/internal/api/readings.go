@@ -59,7 +59,7 @@ func parseStep(v string) (step, source time.Duration, err error) {
 // The rows of GET .../readings are written by hand rather than through
 // encoding/json: a year of one location is half a million rows, and
 // reflection over per-row maps made that answer several times slower than
-// the store can read it. The shapes are the JSON objects of DESIGN.md §4;
+// the store can read it. The shapes are the JSON objects the API documents;
 // api_readings_json_test.go checks them against encoding/json.
 
 // counterRef is a counter of a zone and the location it samples, with both

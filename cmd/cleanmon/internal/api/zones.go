@@ -14,7 +14,7 @@ import (
 	"cleanmon/store"
 )
 
-// zoneJSON is the zone object of DESIGN.md §4.
+// zoneJSON is the zone object of the API.
 type zoneJSON struct {
 	ID             string           `json:"id"`
 	Name           string           `json:"name"`

@@ -39,7 +39,7 @@ func (s storeSink) CommitReadings(ctx context.Context, rs []collector.Reading) (
 // CommitReadingsMarked implements collector.MarkingSink, and counts every
 // reading in cleanmon_readings_total as accepted, duplicate or conflict,
 // per counter. A conflict (the time of a stored reading, other values) is
-// answered as a duplicate, as DESIGN.md §4 asks, but logged: the stored
+// answered as a duplicate, as the API promises, but logged: the stored
 // reading stays, and someone must look at the instrument.
 func (s storeSink) CommitReadingsMarked(ctx context.Context, rs []collector.Reading) ([]bool, error) {
 	out := make([]store.Reading, len(rs))

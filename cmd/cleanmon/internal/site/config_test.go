@@ -175,7 +175,7 @@ func TestShippedConfigsLoadClean(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	// DESIGN.md §6: five zones, six counters, four DP sensors (one per
+	// the demo site: five zones, six counters, four DP sensors (one per
 	// "pressure to" entry), pc-met at 2.83 L/min.
 	if len(cfg.Zones) != 5 || len(cfg.Counters) != 6 || len(cfg.PressureSensors) != 4 {
 		t.Fatalf("demo site: %d zones, %d counters, %d sensors", len(cfg.Zones), len(cfg.Counters), len(cfg.PressureSensors))

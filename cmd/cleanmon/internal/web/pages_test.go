@@ -194,7 +194,7 @@ func TestSiteAreas(t *testing.T) {
 		want    map[string]int
 		areas   []string // ids that are not zones
 	}{
-		// DESIGN.md §6: hood → assembly, metrology → assembly,
+		// the demo site: hood → assembly, metrology → assembly,
 		// assembly → gowning, gowning → corridor.
 		{"demo site", demo.Zones, demo.PressureSensors,
 			map[string]int{"coating-hood": 3, "metrology": 3, "assembly": 2, "gowning": 1, "corridor": 0}, nil},

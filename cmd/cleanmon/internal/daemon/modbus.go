@@ -8,6 +8,7 @@ import (
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/common/model"
 
 	"cleanmon/collector"
 )
@@ -91,7 +92,7 @@ func demoModbusSource(sizes []string, poll time.Duration) *collector.ModbusSourc
 		next += 2
 	}
 	return &collector.ModbusSource{
-		Poll:          collector.Duration(poll),
+		Poll:          model.Duration(poll),
 		Sample:        r32(demoRegSample),
 		Time:          r32(demoRegTime),
 		Channels:      ch,
@@ -118,7 +119,7 @@ func startDemoModbus(cs []collector.Counter, speed float64) (*demoModbus, error)
 	}
 	d := &demoModbus{Addrs: map[string]string{}, slaves: map[string]*collector.ModbusSlave{}}
 	for _, c := range cs {
-		interval := c.Interval.D()
+		interval := time.Duration(c.Interval)
 		if interval == 0 {
 			interval = collector.DefaultCounterInterval
 		}

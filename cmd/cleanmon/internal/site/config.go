@@ -15,6 +15,7 @@ import (
 	"strings"
 	"time"
 
+	"github.com/prometheus/common/model"
 	"go.yaml.in/yaml/v3"
 
 	"cleanmon/alerts"
@@ -39,7 +40,7 @@ type Config struct {
 	Site            string              `yaml:"site"`
 	Listen          string              `yaml:"listen"`
 	DataDir         string              `yaml:"data_dir"`
-	Retention       alerts.Duration     `yaml:"retention"`
+	Retention       model.Duration      `yaml:"retention"`
 	Access          access.Config       `yaml:"access"`
 	Zones           []alerts.ZoneConfig `yaml:"zones"`
 	Counters        []collector.Counter `yaml:"counters"`
@@ -229,7 +230,10 @@ type nodeDecoder struct {
 	problems []Problem
 }
 
-var unmarshalerType = reflect.TypeFor[yaml.Unmarshaler]()
+var (
+	unmarshalerType = reflect.TypeFor[yaml.Unmarshaler]()
+	durationType    = reflect.TypeFor[model.Duration]()
+)
 
 func (d *nodeDecoder) addAt(n *yaml.Node, path, format string, a ...any) {
 	d.problems = append(d.problems, Problem{File: d.file, Line: n.Line, Col: n.Column, Path: path, Msg: fmt.Sprintf(format, a...)})
@@ -281,6 +285,10 @@ func (d *nodeDecoder) decode(n *yaml.Node, v reflect.Value, path string) {
 	}
 	if _, seen := d.nodes[path]; !seen || path == "" {
 		d.nodes[path] = n
+	}
+	if v.Type() == durationType {
+		d.decodeDuration(n, v, path)
+		return
 	}
 	if v.CanAddr() && v.Addr().Type().Implements(unmarshalerType) {
 		if isNull(n) {
@@ -678,4 +686,24 @@ func (c *Config) Sensor(id string) (*collector.Sensor, bool) {
 		}
 	}
 	return nil, false
+}
+
+// decodeDuration reads every duration of the configuration, of whichever
+// package's section: the one place the configuration's duration syntax
+// (model.Duration: "90s", "10m", "1h", "30d", "1y", "1h30m") is read. A
+// bare number is refused, since its unit would be a guess.
+func (d *nodeDecoder) decodeDuration(n *yaml.Node, v reflect.Value, path string) {
+	if isNull(n) {
+		return
+	}
+	if n.Kind != yaml.ScalarNode {
+		d.addAt(n, path, "want a duration such as \"30s\", \"10m\", \"1h\" or \"30d\", not a %s", kindName(n.Kind))
+		return
+	}
+	dur, err := model.ParseDuration(strings.TrimSpace(n.Value))
+	if err != nil {
+		d.addAt(n, path, "%q is not a duration such as \"30s\", \"10m\", \"1h\" or \"30d\"", n.Value)
+		return
+	}
+	v.Set(reflect.ValueOf(dur))
 }

@@ -211,3 +211,45 @@ func TestConfigFileTooLarge(t *testing.T) {
 		t.Fatalf("err %v", err)
 	}
 }
+
+// Every duration of the configuration is read one way, whichever section
+// holds it: Prometheus's syntax, which has days and years (a retention of
+// ten years is "3650d"), and refuses a bare number, whose unit would be a
+// guess.
+func TestDurations(t *testing.T) {
+	for _, c := range []struct {
+		in   string
+		want time.Duration
+		bad  bool
+	}{
+		{"3650d", 3650 * 24 * time.Hour, false},
+		{"1y", 365 * 24 * time.Hour, false},
+		{"30d", 30 * 24 * time.Hour, false},
+		{"87600h", 87600 * time.Hour, false},
+		{"1h30m", 90 * time.Minute, false},
+		{"30", 0, true},
+		{"-1h", 0, true},
+		{"soon", 0, true},
+		{"[1h]", 0, true},
+	} {
+		cfg, err := Load("site.yaml", []byte(baseSite+"retention: "+c.in+"\n"))
+		if c.bad {
+			if err == nil || !strings.Contains(err.Error(), "site.yaml:16:12: retention:") {
+				t.Errorf("%s: %v, want a refusal at line 16", c.in, err)
+			}
+			continue
+		}
+		if err != nil {
+			t.Errorf("%s: %v", c.in, err)
+			continue
+		}
+		if got := time.Duration(cfg.Retention); got != c.want {
+			t.Errorf("%s: %v, want %v", c.in, got, c.want)
+		}
+	}
+	// The zone window, a section of another package, reads the same way.
+	cfg, err := Load("site.yaml", []byte(strings.Replace(baseSite, "    area_m2: 2", "    area_m2: 2\n    window: 1d", 1)))
+	if err != nil || time.Duration(cfg.Zones[0].Window) != 24*time.Hour {
+		t.Errorf("window 1d: %v", err)
+	}
+}

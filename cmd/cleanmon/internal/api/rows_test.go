@@ -3,7 +3,6 @@ package api
 import (
 	"bytes"
 	"encoding/json"
-	"math"
 	"testing"
 	"time"
 
@@ -56,18 +55,6 @@ func TestRollupRowMatchesEncodingJSON(t *testing.T) {
 	// 0.5 µm: (3000×2 + 6000×1)/3 = 4000; 5 µm only from the first: 4.5.
 	sameJSON(t, got, map[string]any{"time": g.start, "step": "1h", "counter": "pc-asm-1", "location": "asm-1", "samples": 3,
 		"mean_per_m3": map[string]any{"0.5": 4000.0, "5": 4.5}, "max_per_m3": map[string]any{"0.5": 6000.0, "5": 9.0}})
-}
-
-func TestAppendJSONFloat(t *testing.T) {
-	for _, f := range []float64{0, 1, -2.5, 1e-7, 3.5e21, 123456.789, 1e20, 5e-324} {
-		want, _ := json.Marshal(f)
-		if got := httpx.AppendFloat(nil, f); !bytes.Equal(got, want) {
-			t.Errorf("%v: %s, encoding/json %s", f, got, want)
-		}
-	}
-	if got := string(httpx.AppendFloat(nil, math.NaN())); got != "null" {
-		t.Errorf("NaN: %s", got)
-	}
 }
 
 func sameJSON(t *testing.T, got []byte, want map[string]any) {

@@ -53,75 +53,11 @@ func Soak(o SoakOptions, out io.Writer) (int64, error) {
 
 	ctx, cancel := context.WithTimeout(context.Background(), o.Duration)
 	defer cancel()
-	var posted, queries, ingestErr, queryErr atomic.Int64
-	var seq atomic.Int64
-	base := time.Now().UTC().Add(-48 * time.Hour).Truncate(time.Second)
-	var wg sync.WaitGroup
-
-	// Ingest, paced: one batch every batch/rate seconds, spread over a few
-	// writers so that a slow commit does not stall the pace.
-	batchesPerSec := float64(o.Rate) / float64(o.Batch)
-	writers := int(math.Max(2, math.Min(32, math.Ceil(batchesPerSec/10))))
-	interval := time.Duration(float64(time.Second) * float64(writers) / batchesPerSec)
-	var lastErr atomic.Value
-	for w := 0; w < writers; w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			t := time.NewTicker(interval)
-			defer t.Stop()
-			var b bytes.Buffer
-			for {
-				select {
-				case <-ctx.Done():
-					return
-				case <-t.C:
-				}
-				b.Reset()
-				for i := 0; i < o.Batch; i++ {
-					k := seq.Add(1)
-					benchReading(&b, 1+int(k%int64(o.Counters-1)), base.Add(time.Duration(k)*time.Millisecond), k) // one sample per counter per turn, as live counters report
-				}
-				if err := c.post(context.Background(), b.Bytes()); err != nil {
-					ingestErr.Add(1)
-					lastErr.Store(err.Error())
-					continue
-				}
-				posted.Add(int64(o.Batch))
-			}
-		}()
-	}
-	// Queries: the zone list, one location's recent raw readings, a day
-	// of minute rollups, the alarms — what pages and dashboards ask.
-	for q := 0; q < 2; q++ {
-		wg.Add(1)
-		go func(seed uint64) {
-			defer wg.Done()
-			r := rand.New(rand.NewPCG(seed, 1))
-			for ctx.Err() == nil {
-				loc := 1 + r.IntN(o.Counters-1)
-				now := base.Add(time.Duration(seq.Load()) * time.Millisecond)
-				paths := []string{
-					"/api/v1/zones",
-					fmt.Sprintf("/api/v1/zones/assembly/readings?location=loc-%d&from=%s&to=%s", loc, now.Add(-10*time.Minute).Format(time.RFC3339), now.Format(time.RFC3339)),
-					fmt.Sprintf("/api/v1/zones/assembly/readings?location=loc-%d&step=1m&from=%s&to=%s", loc, now.Add(-24*time.Hour).Format(time.RFC3339), now.Format(time.RFC3339)),
-					"/api/v1/alarms",
-				}
-				for _, p := range paths {
-					if _, _, err := c.timeQuery(c.url + p); err != nil {
-						queryErr.Add(1)
-						lastErr.Store(err.Error())
-					} else {
-						queries.Add(1)
-					}
-				}
-				select {
-				case <-ctx.Done():
-				case <-time.After(100 * time.Millisecond):
-				}
-			}
-		}(uint64(q))
-	}
+	r := &soakRun{o: o, c: c, ctx: ctx, base: time.Now().UTC().Add(-48 * time.Hour).Truncate(time.Second)}
+	r.startWriters()
+	r.startQueries()
+	posted, queries, ingestErr, queryErr := &r.posted, &r.queries, &r.ingestErr, &r.queryErr
+	lastErr, wg := &r.lastErr, &r.wg
 	start := time.Now()
 	tick := time.NewTicker(o.Every)
 	var prevPosted, prevQueries int64
@@ -159,4 +95,88 @@ func Soak(o SoakOptions, out io.Writer) (int64, error) {
 		fmt.Fprintf(out, "fault: %s\n", p)
 	}
 	return failures + int64(len(problems)), nil
+}
+
+// soakRun is one soak's load: the paced writers, the queriers and what
+// they count.
+type soakRun struct {
+	o    SoakOptions
+	c    *benchClient
+	ctx  context.Context
+	base time.Time
+
+	posted, queries, ingestErr, queryErr, seq atomic.Int64
+	lastErr                                   atomic.Value
+	wg                                        sync.WaitGroup
+}
+
+// startWriters starts the ingest: paced, one batch every batch/rate
+// seconds, spread over a few writers so that a slow commit does not stall
+// the pace.
+func (r *soakRun) startWriters() {
+	batchesPerSec := float64(r.o.Rate) / float64(r.o.Batch)
+	writers := int(math.Max(2, math.Min(32, math.Ceil(batchesPerSec/10))))
+	interval := time.Duration(float64(time.Second) * float64(writers) / batchesPerSec)
+	for w := 0; w < writers; w++ {
+		r.wg.Add(1)
+		go func() {
+			defer r.wg.Done()
+			t := time.NewTicker(interval)
+			defer t.Stop()
+			var b bytes.Buffer
+			for {
+				select {
+				case <-r.ctx.Done():
+					return
+				case <-t.C:
+				}
+				b.Reset()
+				for i := 0; i < r.o.Batch; i++ {
+					k := r.seq.Add(1)
+					benchReading(&b, 1+int(k%int64(r.o.Counters-1)), r.base.Add(time.Duration(k)*time.Millisecond), k) // one sample per counter per turn, as live counters report
+				}
+				if err := r.c.post(context.Background(), b.Bytes()); err != nil {
+					r.ingestErr.Add(1)
+					r.lastErr.Store(err.Error())
+					continue
+				}
+				r.posted.Add(int64(r.o.Batch))
+			}
+		}()
+	}
+}
+
+// startQueries starts the queriers: the zone list, one location's recent
+// raw readings, a day of minute rollups, the alarms — what pages and
+// dashboards ask.
+func (r *soakRun) startQueries() {
+	for q := 0; q < 2; q++ {
+		r.wg.Add(1)
+		go func(seed uint64) {
+			defer r.wg.Done()
+			rng := rand.New(rand.NewPCG(seed, 1))
+			for r.ctx.Err() == nil {
+				loc := 1 + rng.IntN(r.o.Counters-1)
+				now := r.base.Add(time.Duration(r.seq.Load()) * time.Millisecond)
+				paths := []string{
+					"/api/v1/zones",
+					fmt.Sprintf("/api/v1/zones/assembly/readings?location=loc-%d&from=%s&to=%s", loc, now.Add(-10*time.Minute).Format(time.RFC3339), now.Format(time.RFC3339)),
+					fmt.Sprintf("/api/v1/zones/assembly/readings?location=loc-%d&step=1m&from=%s&to=%s", loc, now.Add(-24*time.Hour).Format(time.RFC3339), now.Format(time.RFC3339)),
+					"/api/v1/alarms",
+				}
+				for _, p := range paths {
+					if _, _, err := r.c.timeQuery(r.c.url + p); err != nil {
+						r.queryErr.Add(1)
+						r.lastErr.Store(err.Error())
+					} else {
+						r.queries.Add(1)
+					}
+				}
+				select {
+				case <-r.ctx.Done():
+				case <-time.After(100 * time.Millisecond):
+				}
+			}
+		}(uint64(q))
+	}
 }

@@ -100,6 +100,7 @@ func storedObservation(r store.Reading) alerts.Observation {
 // snapshots travel as JSON, which the store keeps as opaque bytes.
 type alarmStore struct{ st *store.Store }
 
+// RecordTransitions implements alerts.Journal.
 func (a alarmStore) RecordTransitions(ctx context.Context, ts []alerts.Transition, notifiers []string) error {
 	recs := make([]store.AlarmRecord, len(ts))
 	for i := range ts {
@@ -118,6 +119,7 @@ func (a alarmStore) RecordTransitions(ctx context.Context, ts []alerts.Transitio
 	return err
 }
 
+// OpenAlarms implements alerts.Journal.
 func (a alarmStore) OpenAlarms(ctx context.Context) ([]alerts.Alarm, error) {
 	var out []alerts.Alarm
 	err := a.st.OpenAlarms(func(id string, snap []byte) error {
@@ -131,6 +133,7 @@ func (a alarmStore) OpenAlarms(ctx context.Context) ([]alerts.Alarm, error) {
 	return out, err
 }
 
+// Due implements alerts.Outbox.
 func (a alarmStore) Due(ctx context.Context, notifier string, now time.Time, limit int) ([]alerts.Delivery, error) {
 	items, err := a.st.OutboxDue(notifier, now, limit)
 	if err != nil {
@@ -147,8 +150,10 @@ func (a alarmStore) Due(ctx context.Context, notifier string, now time.Time, lim
 	return out, nil
 }
 
+// Done implements alerts.Outbox.
 func (a alarmStore) Done(ctx context.Context, id uint64) error { return a.st.OutboxDone(ctx, id) }
 
+// Retry implements alerts.Outbox.
 func (a alarmStore) Retry(ctx context.Context, id uint64, attempts int, next time.Time, lastErr string) error {
 	return a.st.OutboxRetry(ctx, id, attempts, next, lastErr)
 }
@@ -165,8 +170,10 @@ type auditCollector struct{ st *store.Store }
 
 var descAuditSeq = prometheus.NewDesc("cleanmon_audit_entries", "Entries in the audit chain (its head's sequence number).", nil, nil)
 
+// Describe implements prometheus.Collector.
 func (c auditCollector) Describe(ch chan<- *prometheus.Desc) { ch <- descAuditSeq }
 
+// Collect implements prometheus.Collector.
 func (c auditCollector) Collect(ch chan<- prometheus.Metric) {
 	if seq, _, err := c.st.AuditHead(); err == nil {
 		ch <- prometheus.MustNewConstMetric(descAuditSeq, prometheus.GaugeValue, float64(seq))

@@ -28,6 +28,10 @@ type SoakOptions struct {
 // must stay flat; "mapped" is the store file's pages that bbolt maps, which
 // grow with the file and which the kernel can drop and read back.
 
+// Soak runs the real daemon on loopback under ingest and queries at once
+// for o.Duration, printing throughput and the daemon's RSS every o.Every,
+// then stops it and verifies the store it wrote. It returns the number of
+// failures (errors and store faults), which must be none.
 func Soak(o SoakOptions, out io.Writer) (int64, error) {
 	dir, err := os.MkdirTemp("", "cleanmon-soak-")
 	if err != nil {

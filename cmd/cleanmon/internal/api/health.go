@@ -20,12 +20,11 @@ func (s *Server) readyz(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	out := map[string]any{"status": "ready"}
-	if h := s.alarms.Notifiers(); h != nil {
-		out["notifiers"] = h
-		for _, n := range h {
-			if !n.Up {
-				out["status"] = "ready, notifier failing"
-			}
+	h := s.alarms.Notifiers()
+	out["notifiers"] = h
+	for _, n := range h {
+		if !n.Up {
+			out["status"] = "ready, notifier failing"
 		}
 	}
 	httpx.WriteJSON(w, http.StatusOK, out)

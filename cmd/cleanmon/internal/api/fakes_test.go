@@ -54,6 +54,7 @@ func (f fakeZones) SetOperatingState(ch alerts.OperatingChange, persist func(ale
 
 type fakeStore struct {
 	scanReadings func(counter string, from, to time.Time, fn func(store.Reading) error) error
+	latestDP     func(sensor string) (store.Pressure, bool, error)
 	setState     func(context.Context, store.OperatingState) error
 }
 
@@ -70,8 +71,11 @@ func (fakeStore) ScanRollups(string, time.Duration, time.Time, time.Time, func(s
 func (fakeStore) ScanPressure(string, time.Time, time.Time, func(store.Pressure) error) error {
 	return nil
 }
-func (fakeStore) LatestPressure(string) (store.Pressure, bool, error) {
-	return store.Pressure{}, false, nil
+func (f fakeStore) LatestPressure(sensor string) (store.Pressure, bool, error) {
+	if f.latestDP == nil {
+		return store.Pressure{}, false, nil
+	}
+	return f.latestDP(sensor)
 }
 func (fakeStore) ScanAudit(uint64, uint64, func(store.AuditEntry) error) error            { return nil }
 func (fakeStore) AuditHead() (uint64, [32]byte, error)                                    { return 0, [32]byte{}, nil }
@@ -130,6 +134,8 @@ zones:
   - {id: hood, class: 5, area_m2: 2, sizes: ["0.5"], locations: [{id: h-1}]}
 counters:
   - {id: pc-hood, zone: hood, location: h-1, sizes: ["0.5"]}
+pressure_sensors:
+  - {id: dp-hood, high: hood, low: corridor, min_pa: 10, interval: 10s}
 `
 
 // testNow is the one clock of this package's tests.

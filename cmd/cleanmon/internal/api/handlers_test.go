@@ -2,6 +2,7 @@ package api
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -206,5 +207,53 @@ func TestCertifyStoredMatchesRoute(t *testing.T) {
 	}
 	if status, body, _ := s.CertifyStored(context.Background(), "hood", "yesterday", "2026-03-02T00:00:00Z"); status != http.StatusBadRequest || !strings.Contains(string(body), `"field":"from"`) {
 		t.Errorf("bad from: %d %s", status, body)
+	}
+}
+
+// A DP sensor is "ok" only on a fresh value at or above its minimum; a
+// stale or missing value is "unknown", never fine.
+func TestSensorStates(t *testing.T) {
+	for _, c := range []struct {
+		name  string
+		pa    float64
+		age   time.Duration
+		found bool
+		want  string
+	}{
+		{"fresh, above the minimum", 12.5, 5 * time.Second, true, "ok"},
+		{"fresh, at the minimum", 10, 5 * time.Second, true, "ok"},
+		{"fresh, below the minimum", 6, 5 * time.Second, true, "low"},
+		{"fresh, below zero", -1.5, 5 * time.Second, true, "reversed"},
+		// three intervals of 10 s without a sample: the value is shown but
+		// not trusted
+		{"stale", 12.5, 31 * time.Second, true, "unknown"},
+		{"stale and reversed", -3, time.Hour, true, "unknown"},
+		{"never reported", 0, 0, false, "unknown"},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			h := newTestAPI(t, Options{Store: fakeStore{latestDP: func(string) (store.Pressure, bool, error) {
+				return store.Pressure{Sensor: "dp-hood", Time: testNow.Add(-c.age), Pa: c.pa}, c.found, nil
+			}}})
+			req := httptest.NewRequest("GET", "/api/v1/sensors", nil)
+			rec := httptest.NewRecorder()
+			h.ServeHTTP(rec, req)
+			var out []map[string]any
+			if err := json.Unmarshal(rec.Body.Bytes(), &out); err != nil || rec.Code != http.StatusOK || len(out) != 1 {
+				t.Fatalf("%d %s", rec.Code, rec.Body.String())
+			}
+			if out[0]["state"] != c.want || out[0]["id"] != "dp-hood" {
+				t.Errorf("%v, want state %s", out[0], c.want)
+			}
+			if (out[0]["pa"] != nil) != c.found {
+				t.Errorf("pa %v with found %v", out[0]["pa"], c.found)
+			}
+		})
+	}
+	// A store that fails is the daemon's fault: 503, not an empty list.
+	h := newTestAPI(t, Options{Store: fakeStore{latestDP: func(string) (store.Pressure, bool, error) {
+		return store.Pressure{}, false, errors.New("disk read")
+	}}})
+	if status, _ := call(t, h, "GET", "/api/v1/sensors", "", ""); status != http.StatusServiceUnavailable {
+		t.Errorf("failing store: %d", status)
 	}
 }

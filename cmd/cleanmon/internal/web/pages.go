@@ -20,9 +20,10 @@ import (
 
 // The operator's pages: static HTML shells, one JavaScript module each and
 // a style sheet, all embedded, calling the JSON API of the same origin.
-// Nothing is built: the files in web/ are what the browser gets.
+// Nothing is built: the files in assets/ and pages/ are what the browser
+// gets.
 //
-//go:embed web
+//go:embed assets pages
 var webFiles embed.FS
 
 // pageCSP is sent with every page and asset: scripts and styles only from
@@ -62,13 +63,13 @@ var contentTypes = map[string]string{
 	".svg":  "image/svg+xml",
 }
 
-// webAssets are the files under web/assets, by path below it; webPages the
-// HTML shells under web/pages, by file name.
+// webAssets are the files under assets, by path below it; webPages the
+// HTML shells under pages, by file name.
 var webAssets, webPages = loadWebFiles()
 
 func loadWebFiles() (assets, pages map[string]*webFile) {
 	assets, pages = map[string]*webFile{}, map[string]*webFile{}
-	err := fs.WalkDir(webFiles, "web", func(p string, d fs.DirEntry, err error) error {
+	err := fs.WalkDir(webFiles, ".", func(p string, d fs.DirEntry, err error) error {
 		if err != nil || d.IsDir() {
 			return err
 		}
@@ -83,12 +84,12 @@ func loadWebFiles() (assets, pages map[string]*webFile) {
 		sum := sha256.Sum256(body)
 		f := &webFile{name: p, body: body, ctype: ctype, etag: `"` + hex.EncodeToString(sum[:12]) + `"`}
 		switch {
-		case strings.HasPrefix(p, "web/assets/"):
-			assets[strings.TrimPrefix(p, "web/assets/")] = f
-		case strings.HasPrefix(p, "web/pages/"):
-			pages[strings.TrimPrefix(p, "web/pages/")] = f
+		case strings.HasPrefix(p, "assets/"):
+			assets[strings.TrimPrefix(p, "assets/")] = f
+		case strings.HasPrefix(p, "pages/"):
+			pages[strings.TrimPrefix(p, "pages/")] = f
 		default:
-			return fmt.Errorf("web file %s: neither under web/assets nor web/pages", p)
+			return fmt.Errorf("web file %s: neither under assets nor pages", p)
 		}
 		return nil
 	})

@@ -11,6 +11,8 @@ import (
 	"sync"
 	"testing"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // memJournal is an in-memory Journal: it keeps every transition with the
@@ -130,7 +132,7 @@ func ptrf(v float64) *float64 { return &v }
 func engineZones() []ZoneConfig {
 	return []ZoneConfig{
 		{ID: "assembly", Name: "Assembly hall", Class: ptrf(7), OperatingState: InOperation, AreaM2: 60,
-			Sizes: []string{"0.5", "5"}, Window: Duration(10 * time.Minute), StaleAfter: Duration(3 * time.Minute),
+			Sizes: []string{"0.5", "5"}, Window: model.Duration(10 * time.Minute), StaleAfter: model.Duration(3 * time.Minute),
 			Levels: map[string]Levels{
 				"0.5": {Alert: ptrf(100000), Action: ptrf(250000)},
 				"5":   {Alert: ptrf(1000), Action: ptrf(2000)},

@@ -10,6 +10,8 @@ import (
 	"strconv"
 	"strings"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // Notifier delivers one transition to one receiver. An error means "try
@@ -60,8 +62,8 @@ type NotifyConfig struct {
 // RetryConfig shapes the retry of failed deliveries: the wait doubles
 // from Base after each failure up to Max. Deliveries are never dropped.
 type RetryConfig struct {
-	Base Duration `yaml:"base"`
-	Max  Duration `yaml:"max"`
+	Base model.Duration `yaml:"base"`
+	Max  model.Duration `yaml:"max"`
 }
 
 // notifyConfigPath is where NotifyConfig sits in the site configuration;

@@ -16,6 +16,8 @@ import (
 	"time"
 
 	"cleanmon/classify"
+
+	"github.com/prometheus/common/model"
 )
 
 // Defaults of an Alertmanager notifier.
@@ -41,9 +43,9 @@ type AlertmanagerConfig struct {
 	// posts to <URL>/api/v2/alerts.
 	URLs []string `yaml:"urls"`
 	// Timeout bounds one post to one peer (default DefaultNotifyTimeout).
-	Timeout Duration `yaml:"timeout"`
+	Timeout model.Duration `yaml:"timeout"`
 	// Resend is how often firing alarms are posted again (default 1m).
-	Resend Duration `yaml:"resend"`
+	Resend model.Duration `yaml:"resend"`
 	// ExternalURL is where users reach this daemon; alerts link back to
 	// the zone from there.
 	ExternalURL string `yaml:"external_url"`

@@ -19,6 +19,8 @@ import (
 	"sync"
 	"testing"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // postableAlertFields are the properties of postableAlert in the
@@ -317,8 +319,8 @@ func TestAlertmanagerConfigErrors(t *testing.T) {
 		{"no urls", func(c *AlertmanagerConfig) { c.URLs = nil }, "alertmanagers[0].urls", "missing"},
 		{"bad url", func(c *AlertmanagerConfig) { c.URLs = []string{"127.0.0.1:9093"} }, "alertmanagers[0].urls[0]", "http"},
 		{"peer twice", func(c *AlertmanagerConfig) { c.URLs = append(c.URLs, c.URLs[0]) }, "alertmanagers[0].urls[1]", "urls[0]"},
-		{"resend too short", func(c *AlertmanagerConfig) { c.Resend = Duration(time.Millisecond) }, "alertmanagers[0].resend", "at least 1s"},
-		{"negative timeout", func(c *AlertmanagerConfig) { c.Timeout = Duration(-time.Second) }, "alertmanagers[0].timeout", "positive"},
+		{"resend too short", func(c *AlertmanagerConfig) { c.Resend = model.Duration(time.Millisecond) }, "alertmanagers[0].resend", "at least 1s"},
+		{"negative timeout", func(c *AlertmanagerConfig) { c.Timeout = model.Duration(-time.Second) }, "alertmanagers[0].timeout", "positive"},
 		{"external url", func(c *AlertmanagerConfig) { c.ExternalURL = "cleanmon.local" }, "alertmanagers[0].external_url", "http"},
 		{"label clash", func(c *AlertmanagerConfig) { c.Labels = map[string]string{"zone": "x"} }, "alertmanagers[0].labels.zone", "set by the notifier"},
 		{"label name", func(c *AlertmanagerConfig) { c.Labels = map[string]string{"1site": "x"} }, "alertmanagers[0].labels.1site", "not a label name"},

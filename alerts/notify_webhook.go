@@ -17,6 +17,8 @@ import (
 	"sort"
 	"strings"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // Headers of a webhook delivery.
@@ -46,7 +48,7 @@ type WebhookConfig struct {
 	// Secret is the HMAC-SHA256 key the receiver verifies the body with.
 	Secret string `yaml:"secret"`
 	// Timeout bounds one attempt (default DefaultNotifyTimeout).
-	Timeout Duration `yaml:"timeout"`
+	Timeout model.Duration `yaml:"timeout"`
 	// Headers are sent with every delivery (an Authorization header, say).
 	Headers map[string]string `yaml:"headers"`
 }

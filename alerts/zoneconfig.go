@@ -8,9 +8,9 @@ import (
 	"strings"
 	"time"
 
-	"go.yaml.in/yaml/v3"
-
 	"cleanmon/classify"
+
+	"github.com/prometheus/common/model"
 )
 
 // Operating states of a zone (DESIGN.md §4). Maintenance is only ever set at
@@ -34,26 +34,6 @@ var (
 	ErrOperatingState = errors.New("alerts: invalid operating state")
 )
 
-// Duration is a YAML duration written as Go spells it ("30s", "10m", "1h").
-type Duration time.Duration
-
-// UnmarshalYAML reads a duration string.
-func (d *Duration) UnmarshalYAML(n *yaml.Node) error {
-	var s string
-	if err := n.Decode(&s); err != nil {
-		return fmt.Errorf("want a duration such as \"10m\": %w", err)
-	}
-	v, err := time.ParseDuration(strings.TrimSpace(s))
-	if err != nil {
-		return fmt.Errorf("%q is not a duration such as \"10m\" or \"1h\"", s)
-	}
-	*d = Duration(v)
-	return nil
-}
-
-// MarshalYAML writes the duration back in the form it is read.
-func (d Duration) MarshalYAML() (any, error) { return time.Duration(d).String(), nil }
-
 // ZoneConfig is one zone of the site configuration (the `zones:` list).
 // A zone has an ISO 14644-1 class, or an EU GMP grade, or neither (an
 // unclassified reference area such as a corridor), never both.
@@ -76,10 +56,10 @@ type ZoneConfig struct {
 	// Sizes are the threshold sizes in µm the zone is judged at.
 	Sizes []string `yaml:"sizes"`
 	// Window is the span of the rolling mean (default 10m).
-	Window Duration `yaml:"window"`
+	Window model.Duration `yaml:"window"`
 	// StaleAfter is how long a location may go without a reading and
 	// still count as fresh (default 3m).
-	StaleAfter Duration `yaml:"stale_after"`
+	StaleAfter model.Duration `yaml:"stale_after"`
 	// Levels are the monitoring levels per size (keyed like "0.5"). Left
 	// out, the action level is the class limit and there is no alert level.
 	Levels    map[string]Levels `yaml:"levels"`

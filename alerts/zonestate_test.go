@@ -6,6 +6,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // fakeClock is the injectable clock of the tests.
@@ -23,7 +25,7 @@ func fp(v float64) *float64 { return &v }
 func assemblyZone() ZoneConfig {
 	return ZoneConfig{
 		ID: "assembly", Name: "Assembly hall", Class: fp(7), OperatingState: InOperation, AreaM2: 60,
-		Sizes: []string{"0.5", "5"}, Window: Duration(10 * time.Minute), StaleAfter: Duration(3 * time.Minute),
+		Sizes: []string{"0.5", "5"}, Window: model.Duration(10 * time.Minute), StaleAfter: model.Duration(3 * time.Minute),
 		Levels:    map[string]Levels{"0.5": {Alert: fp(100000), Action: fp(250000)}},
 		Locations: []LocationConfig{{ID: "asm-1"}, {ID: "asm-2"}},
 	}

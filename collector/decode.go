@@ -8,7 +8,6 @@ import (
 	"fmt"
 	"io"
 	"mime"
-	"net/http"
 	"strconv"
 	"strings"
 )
@@ -121,7 +120,7 @@ func expectEOF(dec *json.Decoder) error {
 	case err == nil:
 		return errTrailing
 	}
-	var mbe *http.MaxBytesError
+	var mbe *limitError
 	if errors.As(err, &mbe) {
 		return err
 	}
@@ -140,7 +139,7 @@ func decodeNDJSON[T any, P resetter[T]](r io.Reader, maxLine int, v P, each func
 	var lr bytes.Reader
 	i, line := 0, 0
 	fail := func(err error) (int, error) {
-		var mbe *http.MaxBytesError
+		var mbe *limitError
 		if errors.As(rec.err, &mbe) {
 			return i + 1, decodeErr(rec.err, i, line)
 		}
@@ -223,7 +222,7 @@ func skipSpace(br *bufio.Reader) (byte, error) {
 // 0) into an *InputError naming the field where the decoder knows it, or
 // into ErrTooLarge.
 func decodeErr(err error, i, line int) error {
-	var mbe *http.MaxBytesError
+	var mbe *limitError
 	if errors.As(err, &mbe) {
 		return fmt.Errorf("%w: the limit is %d bytes", ErrTooLarge, mbe.Limit)
 	}

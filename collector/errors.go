@@ -13,6 +13,9 @@ var (
 	ErrInput = errors.New("collector: invalid input")
 	// ErrTooLarge reports a request body beyond IngestOptions.MaxBodyBytes.
 	ErrTooLarge = errors.New("collector: request body too large")
+	// ErrContentType refuses a body in a format the ingest path does not
+	// read (it reads application/json and application/x-ndjson).
+	ErrContentType = errors.New("unsupported Content-Type: use application/json or application/x-ndjson")
 	// ErrCommit wraps a failure of the [Sink]: nothing of the request may be
 	// assumed stored, and the sender should retry later.
 	ErrCommit = errors.New("collector: commit failed")

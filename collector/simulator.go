@@ -242,10 +242,10 @@ func (s *Simulator) start(t time.Time) {
 	if !s.started {
 		s.started, s.cursor = true, t
 		for _, c := range s.counters {
-			c.next = gridAfter(t, c.info.Interval.D())
+			c.next = gridAfter(t, time.Duration(c.info.Interval))
 		}
 		for _, p := range s.sensors {
-			p.next = gridAfter(t, p.info.Interval.D())
+			p.next = gridAfter(t, time.Duration(p.info.Interval))
 		}
 		return
 	}
@@ -301,10 +301,10 @@ func (s *Simulator) Run(ctx context.Context, speed float64, submit Submitter) er
 	simStart, wallStart := s.cursor, time.Now()
 	shortest := time.Hour
 	for _, c := range s.counters {
-		shortest = min(shortest, c.info.Interval.D())
+		shortest = min(shortest, time.Duration(c.info.Interval))
 	}
 	for _, p := range s.sensors {
-		shortest = min(shortest, p.info.Interval.D())
+		shortest = min(shortest, time.Duration(p.info.Interval))
 	}
 	tick := min(max(time.Duration(float64(shortest)/speed), 10*time.Millisecond), time.Second)
 	t := time.NewTicker(tick)
@@ -353,7 +353,7 @@ func (s *Simulator) advance(to time.Time) Batch {
 	}
 	var rs []stamped[RawReading]
 	for _, c := range s.counters {
-		for d := c.info.Interval.D(); c.next.Before(to); c.next = c.next.Add(d) {
+		for d := time.Duration(c.info.Interval); c.next.Before(to); c.next = c.next.Add(d) {
 			if raw, ok := c.sample(c.next, s.opt); ok {
 				rs = append(rs, stamped[RawReading]{c.next, raw})
 			}
@@ -361,7 +361,7 @@ func (s *Simulator) advance(to time.Time) Batch {
 	}
 	var ps []stamped[RawPressure]
 	for _, p := range s.sensors {
-		for d := p.info.Interval.D(); p.next.Before(to); p.next = p.next.Add(d) {
+		for d := time.Duration(p.info.Interval); p.next.Before(to); p.next = p.next.Add(d) {
 			ps = append(ps, stamped[RawPressure]{p.next, p.sample(p.next, s.opt)})
 		}
 	}
@@ -410,7 +410,7 @@ func (c *simCounter) sample(t time.Time, opt SimOptions) (RawReading, bool) {
 	// Flow and volume are rounded as an instrument would report them, the
 	// volume computed from the reported flow so that the two agree.
 	flow := round(ci.FlowLPM*(1+max(-3*simFlowSigma, min(3*simFlowSigma, simFlowSigma*r.NormFloat64()))), 1e3)
-	secs := ci.Interval.D().Seconds()
+	secs := time.Duration(ci.Interval).Seconds()
 	vol := round(flow*secs/60, 1e4)
 	level := c.frac * c.refLimit * math.Exp(c.dev) * mult
 	n := len(ci.SizesUM)

@@ -72,7 +72,7 @@ func TestCertifyGolden(t *testing.T) {
 	}
 }
 
-// The JSON shapes marked MUST in DESIGN.md §4 and in the certification
+// The JSON shapes marked MUST by the project and in the certification
 // issue, checked key by key rather than only through the golden file.
 func TestJSONShapes(t *testing.T) {
 	_, out, _ := runCLI(t, "limits", "--class", "5", "--json")

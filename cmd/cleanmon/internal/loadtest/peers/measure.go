@@ -35,11 +35,11 @@ func measureLive(ctx context.Context, o Options, s server, w *workload, f *Figur
 	if err := s.stop(); err != nil {
 		return err
 	}
-	if f.ApparentBytes, f.BytesOnDisk, err = diskUsage(s.dataDir()); err != nil {
+	if f.ApparentBytes, f.BytesOnDisk, f.BytesByDir, err = diskUsage(s.dataDir()); err != nil {
 		return err
 	}
 	f.BytesPerReading = float64(f.BytesOnDisk) / float64(w.liveCount)
-	fmt.Fprintf(log, "peers: %s: %d bytes allocated on disk after a clean stop (%d apparent): %.1f bytes/reading\n", s.name(), f.BytesOnDisk, f.ApparentBytes, f.BytesPerReading)
+	fmt.Fprintf(log, "peers: %s: %d bytes allocated on disk after a clean stop (%d apparent; by directory %v): %.1f bytes/reading\n", s.name(), f.BytesOnDisk, f.ApparentBytes, f.BytesByDir, f.BytesPerReading)
 	return nil
 }
 
@@ -75,10 +75,11 @@ func measureYear(ctx context.Context, o Options, s server, w *workload, f *Figur
 	if err := s.stop(); err != nil {
 		return err
 	}
-	if _, f.BytesOnDiskAll, err = diskUsage(s.dataDir()); err != nil {
+	if _, f.BytesOnDiskAll, _, err = diskUsage(s.dataDir()); err != nil {
 		return err
 	}
 	f.BytesPerReadingAll = float64(f.BytesOnDiskAll) / float64(w.liveCount+w.yearCount)
+	fmt.Fprintf(log, "peers: %s: with the year, %d bytes allocated after a clean stop: %.1f bytes/reading\n", s.name(), f.BytesOnDiskAll, f.BytesPerReadingAll)
 	return nil
 }
 

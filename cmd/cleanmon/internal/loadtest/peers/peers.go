@@ -13,13 +13,14 @@ import (
 // Options are the knobs of a peer run. The zero value of a field takes
 // the default named beside it.
 type Options struct {
-	Counters    int  // live-shape counters, default 200
-	Minutes     int  // per-minute readings of each counter, default 5000 (1 M readings at 200 counters)
-	Batch       int  // readings per request, default 1000
-	Writers     int  // concurrent writers, default 4
-	Year        bool // also load and query one location's year
-	YearMinutes int  // length of that "year" in minutes, default 525 600; tests shorten it
-	Seed        uint64
+	Counters    int       // live-shape counters, default 200
+	Minutes     int       // per-minute readings of each counter, default 5000 (1 M readings at 200 counters)
+	Batch       int       // readings per request, default 1000
+	Writers     int       // concurrent writers, default 4
+	Year        bool      // also load and query one location's year
+	YearMinutes int       // length of that "year" in minutes, default 525 600; tests shorten it
+	Seed        uint64    // of the invented counts, default 14644
+	End         time.Time // the minute after the last reading, default an hour before now; kept to whole minutes
 
 	Dir  string // parent of the temporary directories, default os.TempDir()
 	Keep bool   // keep the temporary directories (their path goes to the log)
@@ -52,6 +53,10 @@ func (o Options) withDefaults() Options {
 	if o.RequestTimeout == 0 {
 		o.RequestTimeout = 120 * time.Second
 	}
+	if o.End.IsZero() {
+		o.End = time.Now().UTC().Add(-time.Hour)
+	}
+	o.End = o.End.Truncate(time.Minute)
 	if o.Seed == 0 {
 		o.Seed = 14644
 	}
@@ -126,8 +131,9 @@ type Figures struct {
 	// nothing about the disk used. Logs and the config live outside the
 	// storage directory and are not counted.
 	BytesOnDisk     int64
-	ApparentBytes   int64   // the same files' apparent sizes (st_size)
-	BytesPerReading float64 // BytesOnDisk / Readings
+	ApparentBytes   int64            // the same files' apparent sizes (st_size)
+	BytesByDir      map[string]int64 // BytesOnDisk by top-level directory of the storage (e.g. "wal", "data")
+	BytesPerReading float64          // BytesOnDisk / Readings
 
 	// One location's year, loaded after a restart on the same storage.
 	YearReadings       int64
@@ -142,7 +148,7 @@ type Figures struct {
 // Results are the figures of every peer run.
 type Results struct {
 	Machine string
-	Options Options
+	Options Options // with defaults filled in: Options.End and Seed give Readings the same readings
 	Peers   []Figures
 }
 
@@ -237,7 +243,7 @@ func Run(ctx context.Context, o Options, log io.Writer) (Results, error) {
 		fmt.Fprintf(log, " and a year of %d readings", o.YearMinutes)
 	}
 	fmt.Fprintln(log)
-	w := buildWorkload(o, time.Now().UTC().Add(-time.Hour))
+	w := buildWorkload(o)
 	for _, name := range todo {
 		f, err := runPeer(ctx, o, name, w, log)
 		if err != nil {

@@ -139,7 +139,7 @@ func TestOptionsChecked(t *testing.T) {
 // particle size.
 func TestWorkloadShape(t *testing.T) {
 	end := time.Date(2026, 3, 1, 12, 0, 0, 0, time.UTC)
-	w := buildWorkload(Options{Counters: 7, Minutes: 300, Batch: 1000, Year: true, YearMinutes: 2500, Seed: 1}.withDefaults(), end)
+	w := buildWorkload(Options{Counters: 7, Minutes: 300, Batch: 1000, Year: true, YearMinutes: 2500, Seed: 1, End: end}.withDefaults())
 	if w.liveCount != 2100 || len(w.live) != 3 || lineCount(w.live[0]) != 1000 || lineCount(w.live[2]) != 100 {
 		t.Fatalf("live: %d readings in %d batches", w.liveCount, len(w.live))
 	}

@@ -11,6 +11,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"strconv"
+	"strings"
 	"sync"
 	"syscall"
 	"time"
@@ -182,9 +183,11 @@ func waitReady(ctx context.Context, p *process, url string, want int, limit time
 }
 
 // diskUsage walks root and sums every regular file: the apparent size
-// (st_size) and the allocated size (st_blocks × 512). Directories and
-// symbolic links themselves are not counted.
-func diskUsage(root string) (apparent, allocated int64, err error) {
+// (st_size) and the allocated size (st_blocks × 512), the latter also by
+// top-level entry of root. Directories and symbolic links themselves are
+// not counted.
+func diskUsage(root string) (apparent, allocated int64, byDir map[string]int64, err error) {
+	byDir = map[string]int64{}
 	err = filepath.Walk(root, func(path string, info os.FileInfo, err error) error {
 		if err != nil {
 			return err
@@ -195,10 +198,12 @@ func diskUsage(root string) (apparent, allocated int64, err error) {
 		apparent += info.Size()
 		if st, ok := info.Sys().(*syscall.Stat_t); ok {
 			allocated += st.Blocks * 512
+			rel, _ := filepath.Rel(root, path)
+			byDir[strings.SplitN(filepath.ToSlash(rel), "/", 2)[0]] += st.Blocks * 512
 		}
 		return nil
 	})
-	return apparent, allocated, err
+	return apparent, allocated, byDir, err
 }
 
 func itoa(n int) string { return strconv.Itoa(n) }

@@ -68,6 +68,45 @@ func appendLine(b []byte, r reading) []byte {
 	return append(b, '\n')
 }
 
+// Reading is one minute of one counter as every peer receives it, for a
+// caller that sends cleanmon the same readings: counter i is "pc-i"
+// (pc-0 is the year's location, pc-1 to pc-N the live shape), Counts are
+// cumulative per size of Sizes.
+type Reading struct {
+	Counter int
+	Time    time.Time
+	Counts  [4]int64
+}
+
+// Sizes are the particle sizes in µm of Reading.Counts, in order.
+var Sizes = [4]string{"0.3", "0.5", "1", "5"}
+
+// Readings calls live with every reading of the live shape, in the order
+// Run posts them (time order across counters 1 to N), then, when o.Year,
+// year with pc-0's year in time order. With the same Options (Seed, End
+// and sizes) they are the readings Run sends each peer.
+func Readings(o Options, live, year func(Reading)) error {
+	o = o.withDefaults()
+	if err := o.check(); err != nil {
+		return err
+	}
+	src := newValueSource(o.Seed)
+	endS := o.End.Unix()
+	liveFrom := endS - int64(o.Minutes)*60
+	for m := 0; m < o.Minutes; m++ {
+		for c := 1; c <= o.Counters; c++ {
+			live(Reading{Counter: c, Time: time.Unix(liveFrom+int64(m)*60, 0).UTC(), Counts: src.next()})
+		}
+	}
+	if o.Year {
+		yearFrom := endS - int64(o.YearMinutes)*60
+		for i := 0; i < o.YearMinutes; i++ {
+			year(Reading{Counter: 0, Time: time.Unix(yearFrom+int64(i)*60, 0).UTC(), Counts: src.next()})
+		}
+	}
+	return nil
+}
+
 // workload is the readings every peer receives, built once so each peer
 // is sent the same bytes and building them is not timed.
 type workload struct {
@@ -81,46 +120,43 @@ type workload struct {
 	yearTo    int64 // one minute after the last year reading
 }
 
-// buildWorkload makes the live shape (counters 1..N, one reading a minute
-// each, time order across all counters, the last minute ending at end)
-// and, when years > 0, yearMinutes per-minute readings of counter pc-0
-// ending at the same minute.
-func buildWorkload(o Options, end time.Time) *workload {
-	w := &workload{}
-	src := newValueSource(o.Seed)
-	endS := end.Truncate(time.Minute).Unix()
-	w.liveFrom = endS - int64(o.Minutes)*60
-	var cur []byte
-	k := 0
-	for m := 0; m < o.Minutes; m++ {
-		for c := 1; c <= o.Counters; c++ {
-			cur = appendLine(cur, reading{counter: c, t: w.liveFrom + int64(m)*60, n: src.next()})
-			if k++; k%o.Batch == 0 {
-				w.live = append(w.live, cur)
-				cur = nil
-			}
-		}
+// batcher cuts line protocol into batches of a fixed number of lines.
+type batcher struct {
+	size, n int
+	cur     []byte
+	out     [][]byte
+}
+
+func (b *batcher) add(r Reading) {
+	b.cur = appendLine(b.cur, reading{counter: r.Counter, t: r.Time.Unix(), n: r.Counts})
+	if b.n++; b.n%b.size == 0 {
+		b.out = append(b.out, b.cur)
+		b.cur = nil
 	}
-	if len(cur) > 0 {
-		w.live = append(w.live, cur)
+}
+
+func (b *batcher) done() [][]byte {
+	if len(b.cur) > 0 {
+		b.out = append(b.out, b.cur)
+		b.cur = nil
 	}
+	return b.out
+}
+
+// buildWorkload turns Readings into line-protocol batches. o has its
+// defaults and has been checked.
+func buildWorkload(o Options) *workload {
+	live, year := &batcher{size: o.Batch}, &batcher{size: o.Batch}
+	_ = Readings(o, live.add, year.add)
+	endS := o.End.Unix()
+	w := &workload{live: live.done(), year: year.done()}
 	w.liveCount = int64(o.Minutes) * int64(o.Counters)
-	w.liveTo = w.liveFrom + int64(o.Minutes-1)*60
+	w.liveFrom = endS - int64(o.Minutes)*60
+	w.liveTo = endS - 60
 	if o.Year {
+		w.yearCount = int64(o.YearMinutes)
 		w.yearFrom = endS - int64(o.YearMinutes)*60
 		w.yearTo = endS
-		cur = nil
-		for i := 0; i < o.YearMinutes; i++ {
-			cur = appendLine(cur, reading{counter: 0, t: w.yearFrom + int64(i)*60, n: src.next()})
-			if (i+1)%o.Batch == 0 {
-				w.year = append(w.year, cur)
-				cur = nil
-			}
-		}
-		if len(cur) > 0 {
-			w.year = append(w.year, cur)
-		}
-		w.yearCount = int64(o.YearMinutes)
 	}
 	return w
 }

@@ -2,8 +2,12 @@ package peers
 
 import (
 	"bytes"
+	"context"
 	"errors"
 	"math"
+	"os"
+	"os/exec"
+	"path/filepath"
 	"strings"
 	"testing"
 	"time"
@@ -72,5 +76,46 @@ func TestRatio(t *testing.T) {
 	}
 	if strings.Contains(out, " 0.000 ") {
 		t.Errorf("an unmeasured figure shows as zero:\n%s", out)
+	}
+}
+
+// TestPeerThatFails: a binary that exits at once, or one that never
+// answers, ends Run with an error naming it; nothing is left behind.
+func TestPeerThatFails(t *testing.T) {
+	silent := filepath.Join(t.TempDir(), "silent")
+	if err := os.WriteFile(silent, []byte("#!/bin/sh\nexec sleep 60\n"), 0o755); err != nil {
+		t.Fatal(err)
+	}
+	falseBin, err := exec.LookPath("false")
+	if err != nil {
+		t.Skip("no false(1) on this machine")
+	}
+	for _, c := range []struct {
+		name string
+		o    Options
+		want error
+	}{
+		{"exits", Options{Influxd: falseBin, Only: []string{nameInflux}}, ErrExited},
+		{"never ready", Options{VictoriaMetrics: silent, Only: []string{nameVictoria}}, ErrNotReady},
+		{"absent", Options{Influxd: filepath.Join(t.TempDir(), "no-such-influxd"), Only: []string{nameInflux}}, ErrMissing},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			dir := t.TempDir()
+			c.o.Dir, c.o.Counters, c.o.Minutes, c.o.StartTimeout = dir, 2, 2, 700*time.Millisecond
+			t0 := time.Now()
+			_, err := Run(context.Background(), c.o, &bytes.Buffer{})
+			if !errors.Is(err, c.want) {
+				t.Fatalf("Run: %v, want %v", err, c.want)
+			}
+			if d := time.Since(t0); d > 15*time.Second {
+				t.Errorf("Run took %s to give up", d)
+			}
+			if left, _ := filepath.Glob(filepath.Join(dir, "*")); len(left) > 0 {
+				t.Errorf("left behind: %v", left)
+			}
+			if out, _ := exec.Command("pgrep", "-f", dir).Output(); len(bytes.TrimSpace(out)) > 0 {
+				t.Errorf("processes still running on %s: %s", dir, out)
+			}
+		})
 	}
 }

@@ -58,7 +58,7 @@ func (c *client) do(ctx context.Context, method, path string, body []byte, want 
 		if len(msg) > 300 {
 			msg = msg[:300]
 		}
-		return nil, d, fmt.Errorf("%s %s: %s %s", method, shortPath(path), resp.Status, strings.TrimSpace(msg))
+		return nil, d, fmt.Errorf("%s %s: %w: %s %s", method, shortPath(path), ErrAnswer, resp.Status, strings.TrimSpace(msg))
 	}
 	return out.Bytes(), d, nil
 }

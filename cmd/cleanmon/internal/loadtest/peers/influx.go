@@ -155,14 +155,14 @@ func eachRow(body []byte, f func(cols []string, row []json.RawMessage) error) er
 		if err := dec.Decode(&a); err == io.EOF {
 			return nil
 		} else if err != nil {
-			return fmt.Errorf("influxdb answer: %w", err)
+			return fmt.Errorf("influxdb: %w: %w", ErrAnswer, err)
 		}
 		if a.Error != "" {
-			return fmt.Errorf("influxdb: %s", a.Error)
+			return fmt.Errorf("influxdb: %w: %s", ErrAnswer, a.Error)
 		}
 		for _, r := range a.Results {
 			if r.Error != "" {
-				return fmt.Errorf("influxdb: %s", r.Error)
+				return fmt.Errorf("influxdb: %w: %s", ErrAnswer, r.Error)
 			}
 			for _, s := range r.Series {
 				for _, row := range s.Values {
@@ -190,7 +190,7 @@ func (p *influx) count(ctx context.Context, from, to int64) ([4]int64, error) {
 	}
 	err = eachRow(body, func(cols []string, row []json.RawMessage) error {
 		if len(row) != 1+len(channels) {
-			return fmt.Errorf("influxdb count: %d columns, want %d", len(row), 1+len(channels))
+			return fmt.Errorf("influxdb count: %w: %d columns, want %d", ErrAnswer, len(row), 1+len(channels))
 		}
 		for i := range channels {
 			if err := json.Unmarshal(row[1+i], &n[i]); err != nil {

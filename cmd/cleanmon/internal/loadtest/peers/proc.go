@@ -31,6 +31,9 @@ var (
 	ErrOptions = errors.New("bad option")
 	// ErrMissing means a peer's binary was not found.
 	ErrMissing = errors.New("peer binary not found")
+	// ErrAnswer means a peer answered with an error status or a body
+	// that could not be read as expected.
+	ErrAnswer = errors.New("unexpected answer from peer")
 )
 
 // stack runs undo steps in reverse order, once: every started process and

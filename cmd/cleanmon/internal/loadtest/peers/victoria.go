@@ -99,11 +99,11 @@ func perChannel(body []byte) ([4]int64, error) {
 	for line := 1; sc.Scan(); line++ {
 		var l exportLine
 		if err := json.Unmarshal(sc.Bytes(), &l); err != nil {
-			return n, fmt.Errorf("victoria-metrics export line %d: %w", line, err)
+			return n, fmt.Errorf("victoria-metrics export line %d: %w: %w", line, ErrAnswer, err)
 		}
 		i := channelIndex(strings.TrimPrefix(l.Metric["__name__"], measurement+"_"))
 		if i < 0 {
-			return n, fmt.Errorf("victoria-metrics export line %d: unexpected series %v", line, l.Metric)
+			return n, fmt.Errorf("victoria-metrics export line %d: %w: unexpected series %v", line, ErrAnswer, l.Metric)
 		}
 		n[i] += int64(len(l.Timestamps))
 	}
@@ -166,10 +166,10 @@ func (p *victoria) hourly(ctx context.Context, from, to int64) (int64, time.Dura
 		} `json:"data"`
 	}
 	if err := json.Unmarshal(body, &a); err != nil {
-		return 0, 0, fmt.Errorf("victoria-metrics query_range answer: %w", err)
+		return 0, 0, fmt.Errorf("victoria-metrics query_range: %w: %w", ErrAnswer, err)
 	}
 	if a.Status != "success" || len(a.Data.Result) != len(channels) {
-		return 0, 0, fmt.Errorf("victoria-metrics query_range: status %q, %d series, want %d", a.Status, len(a.Data.Result), len(channels))
+		return 0, 0, fmt.Errorf("victoria-metrics query_range: %w: status %q, %d series, want %d", ErrAnswer, a.Status, len(a.Data.Result), len(channels))
 	}
 	rows := int64(len(a.Data.Result[0].Values))
 	for _, s := range a.Data.Result {

@@ -78,8 +78,6 @@ type process struct {
 	logPath string
 	done    chan struct{}
 	err     error // set before done closes
-	mu      sync.Mutex
-	asked   bool // a stop was requested, so an exit is expected
 }
 
 // startProcess starts bin with args. The process gets SIGKILL when the
@@ -120,9 +118,6 @@ func (p *process) exited() bool {
 // stop sends SIGTERM and waits up to limit for the exit, then kills. A
 // peer that needed the kill is an error: its files may not be complete.
 func (p *process) stop(limit time.Duration) error {
-	p.mu.Lock()
-	p.asked = true
-	p.mu.Unlock()
 	if p.exited() {
 		return nil
 	}

@@ -119,3 +119,35 @@ func TestPeerThatFails(t *testing.T) {
 		})
 	}
 }
+
+// TestStopAfterCrash: a peer that ended on its own before the clean stop
+// is an error, so its files are not measured as if it had stopped cleanly.
+func TestStopAfterCrash(t *testing.T) {
+	sh, err := exec.LookPath("sh")
+	if err != nil {
+		t.Skip("no sh")
+	}
+	p, err := startProcess(context.Background(), sh, []string{"-c", "exit 3"}, filepath.Join(t.TempDir(), "log"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	select {
+	case <-p.done:
+	case <-time.After(10 * time.Second):
+		t.Fatal("sh -c 'exit 3' did not end")
+	}
+	if err := p.stop(time.Second); !errors.Is(err, ErrExited) {
+		t.Fatalf("stop after the process ended: %v, want ErrExited", err)
+	}
+	q, err := startProcess(context.Background(), sh, []string{"-c", "trap '' TERM; i=0; while [ $i -lt 600 ]; do sleep 0.05; i=$((i+1)); done"}, filepath.Join(t.TempDir(), "log"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	time.Sleep(100 * time.Millisecond)
+	if err := q.stop(300 * time.Millisecond); !errors.Is(err, ErrStop) {
+		t.Fatalf("stop of a process ignoring SIGTERM: %v, want ErrStop", err)
+	}
+	if !q.exited() {
+		t.Fatal("the process ignoring SIGTERM was not killed")
+	}
+}

@@ -116,10 +116,11 @@ func (p *process) exited() bool {
 }
 
 // stop sends SIGTERM and waits up to limit for the exit, then kills. A
-// peer that needed the kill is an error: its files may not be complete.
+// peer that needed the kill, or had already ended on its own, is an
+// error: its files may not be complete.
 func (p *process) stop(limit time.Duration) error {
 	if p.exited() {
-		return nil
+		return fmt.Errorf("%s: %w before it was stopped: %v; log: %s", filepath.Base(p.cmd.Path), ErrExited, p.err, p.tail())
 	}
 	_ = p.cmd.Process.Signal(syscall.SIGTERM)
 	select {

@@ -3,6 +3,7 @@ package classify
 import (
 	"errors"
 	"math"
+	"strings"
 	"testing"
 )
 
@@ -220,5 +221,48 @@ func TestFEDEquivalence(t *testing.T) {
 	}
 	if _, err := ISOFromFED(1e9); err == nil {
 		t.Error("a class beyond ISO 9 must be refused")
+	}
+}
+
+// Cells no table shows are the formula, not an invented blank: ISO
+// 14644-1:2015 Annex E (from memory) allows intermediate classes and sizes
+// inside 0.1–5 µm by Cn = 10^N × (0.1/D)^2.08, rounded as the tables are.
+func TestISOLimitFormulaOutsideTable(t *testing.T) {
+	for _, tc := range []struct {
+		class, size float64
+		want        float64 // worked by hand from the formula
+	}{
+		// 10^5 × (0.1/2.5)^2.08 = 10^5 × 0.0012368 = 123.68 → 124.
+		{5, 2.5, 124},
+		// 10^6.3 × (0.1/0.3)^2.08 = 1 995 262 × 0.10176 = 203 044 → 203 000.
+		{6.3, 0.3, 203000},
+		// 10^4 × (0.1/0.7)^2.08 = 10 000 × 0.017466 = 174.66 → 175.
+		{4, 0.7, 175},
+	} {
+		got, err := ISOLimit(tc.class, tc.size, Edition2015)
+		if err != nil || !got.Specified || got.PerM3 != tc.want || got.Note != NoteFormula {
+			t.Errorf("ISO %v at %v µm = %+v, %v; want %v by the formula", tc.class, tc.size, got, err, tc.want)
+		}
+	}
+	// The published blank stays blank, with the table's own reason.
+	got, err := ISOLimit(5, 5, Edition2015)
+	if err != nil || got.Specified || !strings.Contains(got.Note, "macroparticle") {
+		t.Errorf("ISO 5 at 5 µm (2015 Table 1 blank, footnote to the M descriptor) = %+v, %v", got, err)
+	}
+	// ISO 14644-1:1999 Table 1 filled ISO 5 at 5 µm with 29.
+	got, err = ISOLimit(5, 5, Edition1999)
+	if err != nil || got.PerM3 != 29 {
+		t.Errorf("1999 ISO 5 at 5 µm = %+v, %v; want 29", got, err)
+	}
+}
+
+func TestParseSizeKeepsGivenValue(t *testing.T) {
+	got, err := ParseSize("0.305um")
+	if err != nil || got != 0.305 || FormatSize(got) != "0.305" {
+		t.Errorf("ParseSize(0.305um) = %v, %v; a size must not be rounded", got, err)
+	}
+	_, err = ParseSize("0.099")
+	if !errors.Is(err, ErrSize) || !strings.Contains(err.Error(), "0.1–5") {
+		t.Errorf("0.099 µm: %v", err)
 	}
 }

@@ -94,4 +94,5 @@ type Plan struct {
 	MinSamplesPerLocation int                 `json:"min_samples_per_location"`
 	LimitsPerM3           map[string]*float64 `json:"limits_per_m3"`
 	Notes                 []string            `json:"notes"`
+	Sequential            *SequentialAdvice   `json:"sequential,omitempty"`
 }

@@ -125,8 +125,8 @@ func TestCertifyLocationCase(t *testing.T) {
 // ISO 7 (2015). Achieved class by hand: a class needs a cell at both sizes
 // and V_s ≤ 28.3 L at 5 µm, i.e. a 5 µm limit ≥ 20/28.3 × 1000 = 706.7 /m³.
 // Integer classes below 6 have a Table 1 blank at 5 µm; ISO 6 gives 293
-// (V_s 68.3 L); ISO 6.3 gives 10^6.3 × 0.02^2.08 = 584.6 → 585 (34.2 L);
-// ISO 6.4 gives 736 (27.2 L). So ISO 6.4, not ISO 1.
+// (V_s 68.4 L); ISO 6.3 gives 10^6.3 × 0.02^2.08 = 583.6 → 584 (34.2 L);
+// ISO 6.4 gives 734.8 → 735 (27.2 L). So ISO 6.4, not ISO 1.
 func TestCertifyAchievedClassNeedsCellsAndVolume(t *testing.T) {
 	r, err := Certify(Target{Class: 7, AreaM2: 2, Sizes: []float64{0.5, 5}}, []Sample{
 		{Location: "A", VolumeL: 28.3, Counts: []uint64{0, 0}},

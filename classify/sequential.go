@@ -55,11 +55,13 @@ func SequentialDecide(limitPerM3 float64, steps []SequentialStep) (SequentialRes
 	if len(steps) == 0 {
 		return SequentialResult{}, fmt.Errorf("%w: sequential sampling needs at least one point", ErrStats)
 	}
-	var r SequentialResult
 	for i, s := range steps {
-		if !(s.VolumeL > 0) || (i > 0 && (s.VolumeL <= steps[i-1].VolumeL || s.Count < steps[i-1].Count)) {
+		if !(s.VolumeL > 0) || math.IsInf(s.VolumeL, 0) || (i > 0 && (s.VolumeL <= steps[i-1].VolumeL || s.Count < steps[i-1].Count)) {
 			return SequentialResult{}, fmt.Errorf("%w: point %d: volume %v L, count %d: volumes must grow and counts must not fall", ErrStats, i+1, s.VolumeL, s.Count)
 		}
+	}
+	var r SequentialResult
+	for i, s := range steps {
 		e := limitPerM3 * s.VolumeL / 1000
 		lo, up := SequentialLines(e)
 		r = SequentialResult{Step: i + 1, VolumeL: s.VolumeL, Count: s.Count, Expected: e, Lower: lo, Upper: up}

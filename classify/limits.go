@@ -47,10 +47,10 @@ type Limit struct {
 // Reasons a cell of ISO 14644-1 Table 1 is blank. The wording is ours; the
 // grounds are the footnotes of the 2015 edition's Table 1 (from memory).
 const (
-	noteLowConcentration  = "no limit (ISO 14644-1:2015 Table 1, footnote on low concentrations): sampling and statistical limitations make classification inappropriate"
-	noteLargeParticles    = "no limit (ISO 14644-1:2015 Table 1, footnote on sizes above 1 µm): particles in low concentration are lost in the sampling system, so classification at this size is inappropriate"
-	noteMacroparticle     = "no limit (ISO 14644-1:2015 Table 1, footnote to ISO 5 at 5 µm): this size is specified with ISO 5 only through the macroparticle (M) descriptor, Annex C"
-	noteHighConcentration = "no limit (ISO 14644-1:2015 Table 1, footnote on high concentrations): limits are not applicable because of the very high particle concentration"
+	noteLowConcentration  = "no limit: at this low concentration sampling and statistics do not support classification (ISO 14644-1:2015 Table 1, footnote)"
+	noteLargeParticles    = "no limit: particles above 1 µm at this low concentration are lost in sampling lines, so classification at this size is not appropriate (ISO 14644-1:2015 Table 1, footnote)"
+	noteMacroparticle     = "no limit: ≥5 µm at ISO 5 is specified only through the macroparticle (M) descriptor (ISO 14644-1:2015 Table 1, footnote; Annex C)"
+	noteHighConcentration = "no limit: concentrations are too high for particle counters at this size (ISO 14644-1:2015 Table 1, footnote)"
 	noteLegacyBlank       = "no limit: ISO 14644-1:1999 Table 1 gives no value for this cell"
 )
 

@@ -153,8 +153,11 @@ func sampleHeader(header []string, hline int, opt SampleFileOptions, fail failFu
 			*p = i
 		} else {
 			sz, err := classify.ParseSize(key)
-			if err != nil {
-				return c, fail(hline, name, "unknown column (want %s and size columns such as 0.5um): %v", strings.Join(sampleHeaderNames, ", "), err)
+			switch {
+			case err != nil && key[0] >= '0' && key[0] <= '9':
+				return c, fail(hline, name, "size column: %v", err)
+			case err != nil:
+				return c, fail(hline, name, "unknown column (want %s and size columns such as 0.5um)", strings.Join(sampleHeaderNames, ", "))
 			}
 			key = classify.FormatSize(sz) + "um"
 			chans = append(chans, channel{i, sz})
@@ -180,8 +183,7 @@ func sampleHeader(header []string, hline int, opt SampleFileOptions, fail failFu
 	for _, s := range opt.Sizes {
 		j := slices.Index(c.chanSize, s)
 		if j < 0 {
-			return c, fail(hline, classify.FormatSize(s)+"um", "column for the considered size %s µm is missing (the file has %s)",
-				classify.FormatSize(s), sizeList(c.chanSize))
+			return c, fail(hline, classify.FormatSize(s)+"um", "column for a considered size is missing (the file has %s)", sizeList(c.chanSize))
 		}
 		c.pick = append(c.pick, j)
 	}
@@ -194,9 +196,12 @@ func sampleRow(rec []string, line int, c sampleColumns, opt SampleFileOptions, f
 	if s.Location == "" {
 		return s, fail(line, "location", "empty")
 	}
-	v, err := positive(rec[c.vol])
-	if err != nil {
-		return s, fail(line, "volume_l", "%q: %v", rec[c.vol], err)
+	v, err := strconv.ParseFloat(strings.TrimSpace(rec[c.vol]), 64)
+	if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
+		return s, fail(line, "volume_l", "%q is not a number", rec[c.vol])
+	}
+	if v <= 0 {
+		return s, fail(line, "volume_l", "%v L: the sampled volume must be positive", v)
 	}
 	s.VolumeL = v
 	if c.time >= 0 {

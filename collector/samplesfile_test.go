@@ -134,7 +134,7 @@ func TestReadSamplesOptionalColumns(t *testing.T) {
 
 func TestReadSamplesHeaderErrors(t *testing.T) {
 	for _, tc := range []struct{ in, field, msg string }{
-		{"location,volume_l,0.3um\nA,1,1\n", "0.5um", "the file has 0.3"},
+		{"location,volume_l,0.3um\nA,1,1\n", "0.5um", "missing (the file has 0.3)"},
 		{"location,volume_l,0.5um,10um\nA,1,1,1\n", "10um", "0.1–5"},
 		{"location,volume_l,0.5um,0.50um\nA,1,1,1\n", "0.50um", "twice"},
 		{"location,volume_l,0.5um,x_m\nA,1,1,1\n", "x_m", "both"},

@@ -110,6 +110,9 @@ func (t *Target) normalise() ([]SizeLimit, []string, error) {
 			warn = append(warn, fmt.Sprintf("%s µm not judged: %s", FormatSize(s), l.Note))
 		} else {
 			anySpecified = true
+			if l.Note != "" {
+				warn = append(warn, fmt.Sprintf("%s µm: limit %s /m³ %s", FormatSize(s), fmtNum(l.PerM3), l.Note))
+			}
 		}
 		out = append(out, SizeLimit{SizeUM: s, Limit: l})
 	}

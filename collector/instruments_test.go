@@ -42,3 +42,28 @@ func TestReadInstrumentsErrors(t *testing.T) {
 		}
 	}
 }
+
+// FuzzReadInstruments checks the reader's contract on any input: no
+// panic, errors name the file and return nothing, accepted rows are whole.
+func FuzzReadInstruments(f *testing.F) {
+	f.Add([]byte("counter,model,serial,calibration_due\npc-1,M,S1,2026-09-30\n"))
+	f.Add([]byte("\ufeffcounter,serial,calibration_due\n# x\n\"pc,1\",S,2026-01-01\n"))
+	f.Fuzz(func(t *testing.T, data []byte) {
+		got, err := ReadInstruments(strings.NewReader(string(data)), "f.csv")
+		if err != nil {
+			var fe *SampleFileError
+			if !errors.As(err, &fe) || fe.File != "f.csv" || got != nil {
+				t.Fatalf("error %v (%T) with %d instruments", err, err, len(got))
+			}
+			return
+		}
+		if len(got) == 0 {
+			t.Fatal("success with no instruments")
+		}
+		for _, in := range got {
+			if in.ID == "" || in.Serial == "" || in.CalibrationDue.IsZero() {
+				t.Fatalf("incomplete instrument %+v", in)
+			}
+		}
+	})
+}

@@ -148,3 +148,24 @@ func TestReadSamplesHeaderErrors(t *testing.T) {
 		}
 	}
 }
+
+// End to end: an ISO 7 zone of 2 m² (one location, ISO 14644-1:2015 Table
+// A.1) judged at 0.5 and 5 µm (352 000 and 2 930 /m³, Table 1) from a
+// differential file that also has 0.3 and 1 µm channels. Per channel
+// 0.5–1: 6 000, 1–5: 5 000, ≥5: 50 in 28.3 L → ≥0.5 µm 11 050 →
+// 390 459 /m³, above the limit: fail. Had the 1 µm channel been dropped,
+// ≥0.5 µm would read 6 050 → 213 781 /m³ and pass.
+func TestDifferentialExtraChannelsCertify(t *testing.T) {
+	in := "location,volume_l,0.3um,0.5um,1um,5um\nA,28.3,5000,6000,5000,50\n"
+	s, err := ReadSamples(strings.NewReader(in), SampleFileOptions{Name: "d.csv", Sizes: []float64{0.5, 5}, Differential: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	r, err := classify.Certify(classify.Target{Class: 7, AreaM2: 2, Sizes: []float64{0.5, 5}, State: classify.InOperation}, s)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if m := r.Locations[0].MeanPerM3["0.5"]; r.Verdict != classify.Fail || m < 390459 || m > 390460 {
+		t.Errorf("verdict %s, mean %v /m³ at 0.5 µm; want fail at 390 459", r.Verdict, m)
+	}
+}

@@ -204,3 +204,24 @@ func TestCertifyReportsEverySample(t *testing.T) {
 		t.Errorf("designation %q", r.Designation)
 	}
 }
+
+func TestCertifyCoordinatesAndNotes(t *testing.T) {
+	x1, y1, x2 := 1.0, 1.0, 2.0
+	r, err := Certify(Target{Class: 6.5, AreaM2: 2, Sizes: []float64{0.5}}, []Sample{
+		{Location: "A", VolumeL: 28.3, Counts: []uint64{10}, XM: &x1, YM: &y1, Ref: "line 2"},
+		{Location: "A", VolumeL: 28.3, Counts: []uint64{10}, XM: &x2, YM: &y1, Ref: "line 3"},
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	w := strings.Join(r.Warnings, "|")
+	// The first coordinates stand; the second pair is named. ISO 6.5 at
+	// 0.5 µm is no Table 1 cell: 10^6.5 × 0.2^2.08 = 111 210 → 111 000 by
+	// the formula, and the plan says so.
+	if *r.Locations[0].XM != 1 || !strings.Contains(w, "line 3: coordinates (2, 1) m differ") || !strings.Contains(w, "limit 111000 /m³ by the class formula") {
+		t.Errorf("warnings %q", r.Warnings)
+	}
+	if d := Designation(Target{Grade: "B", State: InOperation, Sizes: GMPSizes}, nil); d != "EU GMP grade B; in operation; 0.5 µm, 5 µm" {
+		t.Errorf("designation %q", d)
+	}
+}

@@ -97,7 +97,7 @@ type LocationResult struct {
 }
 
 // Report is the outcome of certifying a zone. Its JSON form is the
-// `certify --format json` schema (DESIGN.md §4).
+// `certify --format json` schema, whose keys scripts rely on.
 type Report struct {
 	Verdict           string              `json:"verdict"`
 	Class             *float64            `json:"class"`

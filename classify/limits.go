@@ -65,8 +65,8 @@ var table1Sizes = []float64{0.1, 0.2, 0.3, 0.5, 1, 5}
 
 // tableBlank2015 and tableBlank1999 list, per integer class, the columns
 // (indexes into table1Sizes) that the published Table 1 leaves blank, with
-// the reason. Copied cell by cell from the tables (DESIGN facts recalled
-// from ISO 14644-1:2015 Table 1 and 1999 Table 1); every other cell is the
+// the reason. Cell by cell from ISO 14644-1:2015 Table 1 and 1999 Table 1
+// (recalled, from memory); every other cell is the
 // formula.
 var tableBlank2015 = map[int]map[int]string{
 	1: {1: noteLowConcentration, 2: noteLowConcentration, 3: noteLowConcentration, 4: noteLowConcentration, 5: noteLargeParticles},

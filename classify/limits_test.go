@@ -12,7 +12,7 @@ var tableSizes = []float64{0.1, 0.2, 0.3, 0.5, 1, 5}
 // blank marks a cell the published table leaves empty.
 const blank = -1
 
-// ISO 14644-1:2015 Table 1, particles/m³ (as recalled in DESIGN.md §3).
+// ISO 14644-1:2015 Table 1, particles/m³ (from memory).
 var table2015 = map[int][6]float64{
 	1: {10, blank, blank, blank, blank, blank},
 	2: {100, 24, 10, blank, blank, blank},
@@ -26,7 +26,7 @@ var table2015 = map[int][6]float64{
 }
 
 // ISO 14644-1:1999 Table 1: the 2015 table plus ISO 1 at 0.2 µm (2), ISO 2
-// at 0.5 µm (4), ISO 3 at 1 µm (8) and ISO 5 at 5 µm (29) (DESIGN.md §3).
+// at 0.5 µm (4), ISO 3 at 1 µm (8) and ISO 5 at 5 µm (29) (from memory).
 var table1999 = map[int][6]float64{
 	1: {10, 2, blank, blank, blank, blank},
 	2: {100, 24, 10, 4, blank, blank},
@@ -69,7 +69,7 @@ func TestISOLimitEveryTableCell(t *testing.T) {
 }
 
 func TestRoundLimit(t *testing.T) {
-	// The rounding rule quoted in DESIGN.md §3 from ISO 14644-1 Table 1:
+	// The rounding rule of ISO 14644-1 Table 1 (from memory):
 	// nearest whole number, at most three significant figures.
 	for _, tc := range []struct{ in, want float64 }{
 		{10176, 10200}, {23651, 23700}, {23.65, 24}, {8.32, 8}, {352.3, 352}, {3516.9, 3520}, {2.37, 2},
@@ -139,7 +139,7 @@ func TestParseSize(t *testing.T) {
 }
 
 // EU GMP Annex 1 (2022), Table 1 (classification) and the monitoring
-// limits, as recalled in DESIGN.md §3. 0 marks "not specified" or "not
+// limits, from memory. 0 marks "not specified" or "not
 // predetermined".
 func TestGMPLimits(t *testing.T) {
 	type row struct {
@@ -199,8 +199,8 @@ func TestGMPLimits(t *testing.T) {
 }
 
 func TestFEDEquivalence(t *testing.T) {
-	// FED-STD-209E Class 100 ≈ ISO 5 and Class 100 000 ≈ ISO 8 (DESIGN.md
-	// §3; 1 m³ = 35.3147 ft³); the full ladder 1→3 … 100 000→8.
+	// FED-STD-209E Class 100 ≈ ISO 5 and Class 100 000 ≈ ISO 8 (from
+	// memory; 1 m³ = 35.3147 ft³); the full ladder 1→3 … 100 000→8.
 	for _, tc := range []struct{ fed, iso float64 }{{1, 3}, {10, 4}, {100, 5}, {1000, 6}, {10000, 7}, {100000, 8}} {
 		got, err := ISOFromFED(tc.fed)
 		if err != nil || got != tc.iso {

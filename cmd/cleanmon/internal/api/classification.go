@@ -176,7 +176,7 @@ func (s *Server) poolSamples(ctx context.Context, zone string, sizes []float64, 
 				return nil
 			}
 			if pool == nil {
-				pool = &classify.Sample{Location: c.location, Time: rd.Time, Counts: make([]uint64, len(counts)),
+				pool = &classify.Sample{Location: c.location, Counter: c.id, Time: rd.Time, Counts: make([]uint64, len(counts)),
 					Ref: fmt.Sprintf("readings of %s from %s", c.id, rd.Time.UTC().Format("2006-01-02T15:04:05Z"))}
 			}
 			pool.VolumeL += rd.VolumeL

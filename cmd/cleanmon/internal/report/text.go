@@ -14,8 +14,11 @@ import (
 const Caution = "This report supports, and does not replace, the judgement of the site's qualified people, its procedures and the applicable standards and regulations."
 
 func verdictWord(v string) string {
-	if v == classify.Pass {
+	switch v {
+	case classify.Pass:
 		return "PASS"
+	case classify.Incomplete:
+		return "INCOMPLETE"
 	}
 	return "FAIL"
 }

@@ -24,15 +24,21 @@ const (
 	LevelAction = "action"
 )
 
-// Alarm states. An alarm moves pending (its delay running) → active →
+// Alarm states. An alarm moves delayed (its delay running) → active →
 // acknowledged → cleared; a latched alarm whose condition has gone stays
-// active (or acknowledged) until someone acknowledges it.
+// active until someone acknowledges it. A delayed alarm lives in memory
+// only: a condition that goes before its delay ends (a door opened and
+// shut) leaves no record, and is counted instead.
 const (
-	StatePending      = "pending"
+	StateDelayed      = "delayed"
 	StateActive       = "active"
 	StateAcknowledged = "acknowledged"
 	StateCleared      = "cleared"
 )
+
+// KindEnvironment is the kind of temperature, humidity and airflow
+// velocity alarms (the environment rules are configured by the daemon).
+const KindEnvironment = "environment"
 
 // Alarm is one alarm condition on one subject (a zone's location and size,
 // a DP sensor, a counter): the engine keeps one alarm per condition, not
@@ -47,7 +53,7 @@ type Alarm struct {
 	Counter  string   `json:"counter,omitempty"`
 	Sensor   string   `json:"sensor,omitempty"`
 	SizeUM   *float64 `json:"size_um,omitempty"`
-	// Since is when the condition was first seen (the start of pending).
+	// Since is when the condition was first seen (the start of the delay).
 	Since       time.Time  `json:"since"`
 	ActiveSince *time.Time `json:"active_since,omitempty"`
 	// ConditionGone is set when the condition has cleared but the alarm is
@@ -64,7 +70,12 @@ type Alarm struct {
 	Value     float64 `json:"value"`
 	Threshold float64 `json:"threshold"`
 	Unit      string  `json:"unit"`
-	Message   string  `json:"message"`
+	// Peak is the worst value seen during the episode (the highest
+	// concentration, the lowest DP, the longest silence) and PeakTime when
+	// it was seen.
+	Peak     float64   `json:"peak"`
+	PeakTime time.Time `json:"peak_time"`
+	Message  string    `json:"message"`
 	// Updated is the time of the last transition.
 	Updated time.Time `json:"updated"`
 }

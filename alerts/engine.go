@@ -48,8 +48,11 @@ var (
 	ErrNoAlarm      = errors.New("alerts: no such alarm")
 	ErrAlreadyAcked = errors.New("alerts: alarm already acknowledged")
 	ErrAlarmCleared = errors.New("alerts: alarm already cleared")
-	ErrAlarmPending = errors.New("alerts: alarm still pending (its delay is running): nothing to acknowledge yet")
+	ErrAlarmPending = errors.New("alerts: alarm still delayed (its delay is running): nothing to acknowledge yet")
 	ErrAck          = errors.New("alerts: invalid acknowledgement")
+	// ErrCommentRequired: an action alarm is acknowledged with a comment
+	// saying what was found or done. Returned wrapped together with ErrAck.
+	ErrCommentRequired = errors.New("alerts: acknowledging an action alarm needs a comment")
 	ErrRestore      = errors.New("alerts: cannot restore alarms")
 )
 
@@ -68,6 +71,11 @@ type EngineConfig struct {
 	// TrendBaseline is how many samples before the run make the baseline
 	// (default 100, at least 10); the trend rule waits until it has them.
 	TrendBaseline int
+	// CountRuleCounts and CountRuleSamples set the count rule of grade A
+	// and B at rest at ≥5 µm: that many particles within that many
+	// samples raise an action (defaults 2 within 3).
+	CountRuleCounts  int
+	CountRuleSamples int
 	// Notifiers are the names passed to Journal.RecordTransitions for
 	// transitions that are announced.
 	Notifiers []string
@@ -165,6 +173,9 @@ type Engine struct {
 	nConsec    int
 	trendRun   int
 	trendBase  int
+	// countCounts particles within countSamples samples: the count rule.
+	countCounts  int
+	countSamples int
 
 	zones    map[string]*engineZone
 	counters map[string]*counterSpec
@@ -178,6 +189,7 @@ type Engine struct {
 	cleared    []Alarm           // recent cleared alarms, oldest first
 	lastID     map[string]string // condition key → last ID issued
 	suppressed map[string]bool   // condition keys suppressed in maintenance
+	doors      map[string]uint64 // sensor → DP dips shorter than the delay
 	series     map[string]seriesState
 	counterSt  map[string]instrState
 	sensorSt   map[string]instrState
@@ -233,12 +245,13 @@ func NewEngine(cfg EngineConfig, j Journal, now func() time.Time) (*Engine, erro
 	e := &Engine{
 		j: j, now: now,
 		nConsec: cfg.Consecutive, trendRun: cfg.TrendRun, trendBase: cfg.TrendBaseline,
+		countCounts: cfg.CountRuleCounts, countSamples: cfg.CountRuleSamples,
 		latch:    map[string]bool{},
 		zones:    map[string]*engineZone{},
 		counters: map[string]*counterSpec{},
 		sensors:  map[string]*sensorSpec{},
 		alarms:   map[string]Alarm{}, conds: map[string]string{}, lastID: map[string]string{},
-		suppressed: map[string]bool{}, series: map[string]seriesState{},
+		suppressed: map[string]bool{}, series: map[string]seriesState{}, doors: map[string]uint64{},
 		counterSt: map[string]instrState{}, sensorSt: map[string]instrState{},
 	}
 	var errs []FieldError
@@ -273,18 +286,14 @@ func NewEngine(cfg EngineConfig, j Journal, now func() time.Time) (*Engine, erro
 		}
 		nonNegative(bad, p+".nominal_flow_lpm", c.NominalFlowLPM, "L/min")
 		nonNegative(bad, p+".max_per_m3", c.MaxPerM3, "particles/m³")
-		s := &counterSpec{CounterRule: c}
 		if c.Interval < 0 {
 			bad(p+".interval", "%s: must be positive", c.Interval)
-		} else if c.Interval == 0 {
-			s.Interval = DefaultCounterInterval
 		}
-		s.stale = 3 * s.Interval
 		if c.StaleAfter < 0 {
 			bad(p+".stale_after", "%s: must be positive", c.StaleAfter)
-		} else if c.StaleAfter > 0 {
-			s.stale = c.StaleAfter
 		}
+		s := &counterSpec{CounterRule: c.WithDefaults()}
+		s.stale = s.StaleAfter
 		if _, dup := e.counters[c.ID]; !dup && c.ID != "" {
 			e.counters[c.ID] = s
 			e.order = append(e.order, c.ID)
@@ -341,6 +350,8 @@ func NewEngine(cfg EngineConfig, j Journal, now func() time.Time) (*Engine, erro
 		{"consecutive", &e.nConsec, DefaultConsecutive, 2},
 		{"trend_run", &e.trendRun, DefaultTrendRun, 2},
 		{"trend_baseline", &e.trendBase, DefaultTrendBaseline, 10},
+		{"count_rule_counts", &e.countCounts, DefaultCountRuleCounts, 1},
+		{"count_rule_samples", &e.countSamples, DefaultCountRuleSamples, 1},
 	} {
 		switch {
 		case *f.v == 0:
@@ -446,25 +457,39 @@ func (e *Engine) Restore(ctx context.Context) error {
 		return fmt.Errorf("%w: the engine has already observed or changed something", ErrRestore)
 	}
 	byKey := map[string]int{}
+	var keep []Alarm
 	for i, a := range as {
 		key, ok := conditionKey(a.ID)
 		switch {
 		case !ok:
 			return fmt.Errorf("%w: open alarm %d: id %q is not an alarm id of this engine", ErrRestore, i, a.ID)
-		case a.State != StatePending && a.State != StateActive && a.State != StateAcknowledged:
+		case a.State == StateDelayed || a.State == "pending":
+			// A delay that was running when the daemon stopped starts
+			// again with the next reading (older journals kept them).
+			continue
+		case a.State != StateActive && a.State != StateAcknowledged:
 			return fmt.Errorf("%w: open alarm %d (%s): state %q is not open", ErrRestore, i, a.ID, a.State)
+		}
+		keep = append(keep, a)
+		if a.ConditionGone {
+			continue
 		}
 		if j, dup := byKey[key]; dup {
 			return fmt.Errorf("%w: open alarms %d and %d (%s, %s) are the same condition", ErrRestore, j, i, as[j].ID, a.ID)
 		}
 		byKey[key] = i
 	}
-	for _, a := range as {
+	for _, a := range keep {
 		key, _ := conditionKey(a.ID)
 		a = cloneAlarm(a)
 		e.alarms[a.ID] = a
+		if last := e.lastID[key]; last < a.ID {
+			e.lastID[key] = a.ID
+		}
+		if a.ConditionGone {
+			continue
+		}
 		e.conds[key] = a.ID
-		e.lastID[key] = a.ID
 		if a.Kind == KindConsecutive || a.Kind == KindTrend {
 			sk, _ := strings.CutSuffix(key, ":"+a.Kind)
 			s := e.series[sk]
@@ -504,7 +529,7 @@ func (e *Engine) Prime(obs []Observation) error {
 			e.counterSt[o.Counter] = st
 		}
 		z := e.zones[c.Zone]
-		if z.op == Maintenance || o.Status == StatusFault || !(o.VolumeL > 0) {
+		if e.maintenanceAt(c.Zone, o.Time) || o.untrustedReason() != "" || c.distrust(o, 0) != "" {
 			continue
 		}
 		for _, size := range z.sizes {
@@ -541,6 +566,7 @@ func (e *Engine) ObserveReadings(ctx context.Context, obs []Observation) error {
 // ObserveCounterReadings is ObserveReadings with the flows the counters
 // reported, for the flow check of the instrument rule.
 func (e *Engine) ObserveCounterReadings(ctx context.Context, rs []CounterReading) error {
+	rs = slices.Clone(rs)
 	obs := make([]Observation, len(rs))
 	for i := range rs {
 		obs[i] = rs[i].Observation
@@ -559,13 +585,25 @@ func (e *Engine) ObserveCounterReadings(ctx context.Context, rs []CounterReading
 
 	e.mu.Lock()
 	e.touched = true
+	for i := range rs {
+		if c, ok := e.counters[rs[i].Counter]; ok {
+			why := c.distrust(rs[i].Observation, rs[i].FlowLPM)
+			rs[i].Untrusted, obs[i].Untrusted = why, why
+		}
+	}
 	if e.ownTracker {
 		e.tracker.Observe(obs...)
 	}
 	t := e.begin()
-	// Only the locations this batch touched are judged (and viewed): a
-	// zone of thousands of locations is not recomputed for every request;
-	// Tick judges the whole zone every second.
+	for _, i := range order {
+		r := &rs[i]
+		if c, ok := e.counters[r.Counter]; ok {
+			e.judgeReading(t, c, r)
+		}
+	}
+	// Only the locations this batch touched are judged for their means:
+	// a zone of thousands of locations is not recomputed for every
+	// request; Tick judges the whole zone every second.
 	touched := map[string]map[string]bool{}
 	for i := range rs {
 		if c, ok := e.counters[rs[i].Counter]; ok {
@@ -578,14 +616,6 @@ func (e *Engine) ObserveCounterReadings(ctx context.Context, rs []CounterReading
 	views := make(map[string]ZoneView, len(touched))
 	for zone, locs := range touched {
 		views[zone], _ = e.tracker.ZonePart(zone, locs)
-	}
-	for _, i := range order {
-		r := &rs[i]
-		c, ok := e.counters[r.Counter]
-		if !ok {
-			continue
-		}
-		e.judgeReading(t, c, r, views[c.Zone])
 	}
 	for _, id := range e.zoneIDs {
 		if v, ok := views[id]; ok {
@@ -830,4 +860,22 @@ func sortedKeys[V any](m map[string]V) []string {
 	}
 	sort.Strings(ks)
 	return ks
+}
+
+// maintenanceAt says whether a zone was in maintenance at a time.
+func (e *Engine) maintenanceAt(zone string, at time.Time) bool {
+	return e.tracker.OperatingAt(zone, at).Operating == Maintenance
+}
+
+// DoorOpenings returns, per DP sensor, how many times its DP fell below
+// its minimum and came back before the delay ran out since the start: door
+// openings, counted instead of alarmed.
+func (e *Engine) DoorOpenings() map[string]uint64 {
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	out := make(map[string]uint64, len(e.sensors))
+	for id := range e.sensors {
+		out[id] = e.doors[id]
+	}
+	return out
 }

@@ -284,7 +284,7 @@ func TestAlarmCollector(t *testing.T) {
 	src := ntAlarmList{
 		alarm("assembly", KindExcursion, LevelAlert, StateActive),
 		alarm("assembly", KindExcursion, LevelAlert, StateAcknowledged),
-		alarm("assembly", KindExcursion, LevelAction, StatePending), // delay running: not counted
+		alarm("assembly", KindExcursion, LevelAction, StateDelayed), // delay running: not counted
 		alarm("assembly", KindStale, LevelAction, StateCleared),
 		alarm("assembly", KindPressureReversal, LevelAction, StateActive),
 		alarm("metrology", KindInstrument, LevelAlert, StateActive), // not in the zone list

@@ -167,7 +167,7 @@ func TestAlertmanagerPostsV2Alerts(t *testing.T) {
 		{"acknowledged still fires", ack, true, excursion, now.Add(4 * time.Minute),
 			map[string]string{"acknowledged_by": "j.ortega", "comment": "door left open, closed"}},
 		{"cleared resolves at the clear time", clr, true, excursion, cleared, map[string]string{"state": "cleared"}},
-		{"pending is not posted", ntAlarm("alm-2", StatePending), false, nil, time.Time{}, nil},
+		{"pending is not posted", ntAlarm("alm-2", StateDelayed), false, nil, time.Time{}, nil},
 		{"cleared before firing is not posted", neverFired, false, nil, time.Time{}, nil},
 		{"pressure reversal", rev, true, map[string]string{
 			"alertname": "cleanmon_pressure-reversal", "zone": "assembly", "kind": "pressure-reversal", "level": "action",
@@ -352,7 +352,7 @@ func TestAlertmanagerResendLoop(t *testing.T) {
 		t.Fatal(err)
 	}
 	a.resend = 10 * time.Millisecond // below what a configuration may ask, to keep the test short
-	open := []Alarm{ntAlarm("alm-1", StateActive), ntAlarm("alm-2", StatePending), ntAlarm("alm-3", StateAcknowledged), ntAlarm("alm-4", StateCleared)}
+	open := []Alarm{ntAlarm("alm-1", StateActive), ntAlarm("alm-2", StateDelayed), ntAlarm("alm-3", StateAcknowledged), ntAlarm("alm-4", StateCleared)}
 	var mu sync.Mutex
 	calls := 0
 	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
@@ -400,7 +400,7 @@ func TestAlertmanagerResendLoop(t *testing.T) {
 		t.Errorf("Run without a source: %v", err)
 	}
 	// Nothing firing: nothing posted.
-	if err := a.resendNow(context.Background(), func() []Alarm { return []Alarm{ntAlarm("alm-2", StatePending)} }); err != nil {
+	if err := a.resendNow(context.Background(), func() []Alarm { return []Alarm{ntAlarm("alm-2", StateDelayed)} }); err != nil {
 		t.Fatal(err)
 	}
 	if posts, _ := rcv.take(); len(posts) != 0 {

@@ -44,6 +44,8 @@ type seriesState struct {
 	// appends past the end, and moves the start), so a copy of the state is
 	// an undo, without copying the history on every sample.
 	hist []histPoint
+	// recent are the latest particle counts of the count rule.
+	recent []countPoint
 }
 
 type histPoint struct{ count, volL float64 }
@@ -72,65 +74,101 @@ func valueAt(o *Observation, size float64) (float64, bool) {
 	return 0, false
 }
 
-// judgeReading runs every rule on one reading of a known counter. v is the
-// counter's zone as it stands after the batch was observed.
-func (e *Engine) judgeReading(t *txn, c *counterSpec, r *CounterReading, v ZoneView) {
+// judgeReading runs every rule on one reading of a known counter, against
+// the limits of the operating state in force when it was taken. A reading
+// older than its counter's newest (a counter clock running fast, a
+// gateway replaying its buffer) is judged by the excursion rule alone: if
+// it exceeds a level, its excursion is raised as an episode of its own
+// (or raises the peak of the open one).
+func (e *Engine) judgeReading(t *txn, c *counterSpec, r *CounterReading) {
 	st := e.counterSt[c.ID]
-	if !r.Time.After(st.last) {
+	late := !r.Time.After(st.last)
+	if !late {
+		st = instrState{last: r.Time, live: true}
+		setUndo(t, e.counterSt, c.ID, st)
+		e.judgeStale(t, c.Zone, "", c.ID, st, c.stale)
+		e.judgeInstrument(t, c, r)
+	}
+	if r.untrustedReason() != "" {
 		return
 	}
-	st = instrState{last: r.Time, live: true}
-	setUndo(t, e.counterSt, c.ID, st)
-	e.judgeStale(t, c.Zone, "", c.ID, st, c.stale)
-	e.judgeInstrument(t, c, r)
-	if r.Status == StatusFault || !(r.VolumeL > 0) {
-		return
+	limits, sa, ok := e.tracker.LimitsAt(c.Zone, r.Time)
+	if !ok || !sa.Judged {
+		return // maintenance: kept, not judged
 	}
 	z := e.zones[c.Zone]
-	for i, size := range v.Sizes {
+	counting := e.countRuleApplies(z, sa.Limits)
+	for i, size := range z.sizes {
 		val, ok := valueAt(&r.Observation, size)
-		if !ok || i >= len(v.Limits) {
+		if !ok || i >= len(limits) {
 			continue
 		}
 		k := seriesKey(c.Zone, c.Location, size)
 		s := e.series[k]
-		if !r.Time.After(s.last) {
-			continue
-		}
-		s.last = r.Time
 		sz := size
 		tmpl := Alarm{Zone: c.Zone, Location: c.Location, Counter: c.ID, SizeUM: &sz, Value: val, Unit: unitPerM3}
 		where := func() string { return fmt.Sprintf("%s µm at %s (%s)", classify.FormatSize(size), c.Location, c.ID) }
-		sl := v.Limits[i]
-		e.judgeExcursion(t, k, tmpl, sl, where, r.Time)
-		if sl.Alert != nil {
-			if val > *sl.Alert {
-				if s.run == 0 {
-					s.runStart = r.Time
-				}
-				s.run++
-			} else {
-				s.run = 0
-			}
-			a := tmpl
-			a.Kind, a.Threshold = KindConsecutive, *sl.Alert
-			run, alert := s.run, *sl.Alert
-			msg := func() string {
-				if run >= e.nConsec {
-					return fmt.Sprintf("%s: %d samples in a row above the alert level %s /m³ (latest %s /m³)", where(), run, num(alert), num(val))
-				}
-				return fmt.Sprintf("%s: %s /m³, the run above the alert level %s /m³ is broken", where(), num(val), num(alert))
-			}
-			t.judge(condition{key: k + ":" + KindConsecutive, present: s.run >= e.nConsec, level: LevelAction, tmpl: a, since: s.runStart, at: r.Time, msg: msg})
+		sl := limits[i]
+		countRule := counting && size >= 5
+		if !r.Time.After(s.last) {
+			e.judgeLateExcursion(t, k, tmpl, sl, where, r.Time, countRule)
+			continue
 		}
-		s = e.judgeTrend(t, k, s, tmpl, where, r, val, z.op == Maintenance)
+		s.last = r.Time
+		e.judgeExcursion(t, k, tmpl, sl, where, r.Time, countRule)
+		if countRule {
+			s = e.judgeCounts(t, k, s, tmpl, where, r)
+		} else if sl.Alert != nil {
+			s = e.judgeConsecutive(t, k, s, tmpl, *sl.Alert, where, r.Time)
+		}
+		s = e.judgeTrend(t, k, s, tmpl, where, r, val)
 		setUndo(t, e.series, k, s)
 	}
 }
 
-func (e *Engine) judgeExcursion(t *txn, k string, tmpl Alarm, sl SizeLimit, where func() string, at time.Time) {
-	if sl.Alert == nil && sl.Action == nil {
+// judgeConsecutive is the run rule above the alert level.
+func (e *Engine) judgeConsecutive(t *txn, k string, s seriesState, tmpl Alarm, alert float64, where func() string, at time.Time) seriesState {
+	val := tmpl.Value
+	if val > alert {
+		if s.run == 0 {
+			s.runStart = at
+		}
+		s.run++
+	} else {
+		s.run = 0
+	}
+	a := tmpl
+	a.Kind, a.Threshold = KindConsecutive, alert
+	run := s.run
+	msg := func() string {
+		if run >= e.nConsec {
+			return fmt.Sprintf("%s: %d samples in a row above the alert level %s /m³ (latest %s /m³)", where(), run, num(alert), num(val))
+		}
+		return fmt.Sprintf("%s: %s /m³, the run above the alert level %s /m³ is broken", where(), num(val), num(alert))
+	}
+	t.judge(condition{key: k + ":" + KindConsecutive, present: s.run >= e.nConsec, level: LevelAction, tmpl: a, since: s.runStart, at: at, msg: msg})
+	return s
+}
+
+// judgeLateExcursion judges a reading older than the newest of its
+// series. Over a level, it raises its own excursion when none is open
+// (which then ends at once, as a newer reading already came: a latched
+// action waits for its acknowledgement), or raises the open one's peak.
+func (e *Engine) judgeLateExcursion(t *txn, k string, tmpl Alarm, sl SizeLimit, where func() string, at time.Time, countRule bool) {
+	key := k + ":" + KindExcursion
+	_, wasOpen := t.e.conds[key]
+	if !e.judgeExcursion(t, k, tmpl, sl, where, at, countRule) || wasOpen {
 		return
+	}
+	back := tmpl
+	back.Kind = KindExcursion
+	t.judge(condition{key: key, present: false, tmpl: back, since: at, at: at, msg: func() string {
+		return fmt.Sprintf("%s: %s /m³ at %s arrived late; later readings are back within the levels", where(), num(tmpl.Value), at.UTC().Format(time.RFC3339))
+	}})
+}
+func (e *Engine) judgeExcursion(t *txn, k string, tmpl Alarm, sl SizeLimit, where func() string, at time.Time, countRule bool) bool {
+	if sl.Alert == nil && sl.Action == nil {
+		return false
 	}
 	val := tmpl.Value
 	a := tmpl
@@ -148,15 +186,21 @@ func (e *Engine) judgeExcursion(t *txn, k string, tmpl Alarm, sl SizeLimit, wher
 		}
 		a.Threshold, how = *low, "is back at or below"
 	}
+	if countRule && level == LevelAction {
+		// A single count at ≥5 µm in grade A (or B at rest) may be a
+		// false count: the count rule decides on action.
+		level, how = LevelAlert, how+" (a single sample: the count rule decides on action)"
+	}
 	threshold := a.Threshold
 	msg := func() string { return fmt.Sprintf("%s: %s /m³ %s %s /m³", where(), num(val), how, num(threshold)) }
 	t.judge(condition{key: k + ":" + KindExcursion, present: level != "", level: level, tmpl: a, since: at, at: at, msg: msg})
+	return level != ""
 }
 
 // judgeTrend runs the run rule against the baseline of the samples before
 // the run, then adds the sample to the history (not in maintenance: what
 // happens then is not the zone's normal).
-func (e *Engine) judgeTrend(t *txn, k string, s seriesState, tmpl Alarm, where func() string, r *CounterReading, val float64, maint bool) seriesState {
+func (e *Engine) judgeTrend(t *txn, k string, s seriesState, tmpl Alarm, where func() string, r *CounterReading, val float64) seriesState {
 	need := e.trendBase + e.trendRun - 1
 	count := val * r.VolumeL / 1000
 	if len(s.hist) == need {
@@ -192,14 +236,15 @@ func (e *Engine) judgeTrend(t *txn, k string, s seriesState, tmpl Alarm, where f
 		}
 		t.judge(condition{key: k + ":" + KindTrend, present: s.trendRun >= e.trendRun, level: LevelAlert, tmpl: a, since: s.trendStart, at: r.Time, msg: msg})
 	}
-	if !maint {
-		s.hist = s.push(histPoint{count: count, volL: r.VolumeL}, need)
-	}
+	s.hist = s.push(histPoint{count: count, volL: r.VolumeL}, need)
 	return s
 }
 
 // judgeOutOfClass judges every fresh location of a zone view.
 func (e *Engine) judgeOutOfClass(t *txn, v ZoneView) {
+	if v.OperatingState == Maintenance {
+		return
+	}
 	for _, lv := range v.Locations {
 		if !lv.Fresh {
 			continue

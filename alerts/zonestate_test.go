@@ -191,18 +191,26 @@ func TestOperatingStateChangesLimits(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if v.State != StatusInClass || *v.Limits[0].Limit != 352000 || v.OperatingState != InOperation {
+	// The in-operation window starts at the switch: the at-rest reading
+	// is not judged against in-operation limits.
+	if v.State != StatusUnknown || *v.Limits[0].Limit != 352000 || v.OperatingState != InOperation {
 		t.Fatalf("in operation: %s %v %s", v.State, *v.Limits[0].Limit, v.OperatingState)
+	}
+	clk.t = clk.t.Add(time.Minute)
+	tr.Observe(obs("pc-f", clk.t, 10000, 10))
+	if v, _ = tr.Zone("fill"); v.State != StatusInClass {
+		t.Fatalf("in operation after a reading: %s", v.State)
 	}
 	if len(persisted) != 1 || persisted[0].Time.IsZero() || persisted[0].By != "j.marsh" {
 		t.Fatalf("persisted %+v", persisted)
 	}
-	// Maintenance keeps judging against the limits of the state before.
+	// Maintenance judges nothing: the zone is unknown, the limits shown
+	// are those of the state before.
 	v, err = tr.SetOperatingState(OperatingChange{Zone: "fill", State: Maintenance, By: "j.marsh", Reason: "filter change"}, persist)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if v.OperatingState != Maintenance || v.LimitsState != InOperation || v.State != StatusInClass {
+	if v.OperatingState != Maintenance || v.LimitsState != InOperation || v.State != StatusUnknown {
 		t.Fatalf("maintenance: %s limits %s state %s", v.OperatingState, v.LimitsState, v.State)
 	}
 	if !strings.Contains(strings.Join(v.Notes, "|"), "maintenance") {

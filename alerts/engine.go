@@ -53,7 +53,7 @@ var (
 	// ErrCommentRequired: an action alarm is acknowledged with a comment
 	// saying what was found or done. Returned wrapped together with ErrAck.
 	ErrCommentRequired = errors.New("alerts: acknowledging an action alarm needs a comment")
-	ErrRestore      = errors.New("alerts: cannot restore alarms")
+	ErrRestore         = errors.New("alerts: cannot restore alarms")
 )
 
 // EngineConfig is what the alarm rules need, built by the daemon from the

@@ -3,8 +3,8 @@ package alerts
 import (
 	"context"
 	"fmt"
-	"strconv"
 	"math"
+	"strconv"
 	"strings"
 	"time"
 	"unicode/utf8"

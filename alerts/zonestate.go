@@ -127,11 +127,11 @@ type ZoneView struct {
 	// CleanUpUntil is set while the clean-up period after a switch to
 	// at-rest runs; the at-rest window starts when it ends.
 	CleanUpUntil time.Time
-	State       ZoneStatus
-	Limits      []SizeLimit
-	Locations   []LocationView
-	Window      time.Duration
-	StaleAfter  time.Duration
+	State        ZoneStatus
+	Limits       []SizeLimit
+	Locations    []LocationView
+	Window       time.Duration
+	StaleAfter   time.Duration
 	// Notes explain anything that qualifies State (maintenance, stale
 	// locations, sizes without a limit).
 	Notes []string

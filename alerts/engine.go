@@ -226,6 +226,8 @@ type instrState struct {
 	last time.Time // newest reading's time, from history or live; zero before any
 	live bool      // a reading was judged since the start
 	pa   float64   // sensors: the newest DP
+	flow float64   // counters: the flow reported with the newest reading (0: none)
+	why  string    // counters: why the newest reading is not trusted ("" if it is)
 }
 
 // NewEngine checks the configuration and returns an engine with no alarms;
@@ -629,15 +631,8 @@ func (e *Engine) ObserveCounterReadings(ctx context.Context, rs []CounterReading
 // sensors are ignored, and so is a reading not newer than its sensor's
 // newest. Bad input is refused whole and changes nothing.
 func (e *Engine) ObservePressure(ctx context.Context, ps []PressureObservation) error {
-	for i, p := range ps {
-		switch {
-		case strings.TrimSpace(p.Sensor) == "":
-			return fmt.Errorf("%w: pressure reading %d: sensor: missing", ErrObservation, i)
-		case p.Time.IsZero():
-			return fmt.Errorf("%w: pressure reading %d (%s): time: missing", ErrObservation, i, p.Sensor)
-		case math.IsNaN(p.Pa) || math.IsInf(p.Pa, 0):
-			return fmt.Errorf("%w: pressure reading %d (%s): pa: %v is not a pressure", ErrObservation, i, p.Sensor, p.Pa)
-		}
+	if err := validatePressure(ps); err != nil {
+		return err
 	}
 	sorted := append([]PressureObservation(nil), ps...)
 	sort.SliceStable(sorted, func(a, b int) bool { return sorted[a].Time.Before(sorted[b].Time) })
@@ -690,6 +685,13 @@ func (e *Engine) Tick(ctx context.Context) error {
 // until acknowledged. Runs of the consecutive and trend rules start afresh
 // after any change.
 func (e *Engine) SetOperatingState(ctx context.Context, zone, state string) error {
+	return e.setOperatingState(ctx, zone, state, e.ownTracker)
+}
+
+// setOperatingState is SetOperatingState; feed says whether to apply the
+// change to the tracker too (the judge applies it there itself, with who
+// and why).
+func (e *Engine) setOperatingState(ctx context.Context, zone, state string, feed bool) error {
 	if _, err := ParseOperatingState(state); err != nil {
 		return err
 	}
@@ -717,7 +719,7 @@ func (e *Engine) SetOperatingState(ctx context.Context, zone, state string) erro
 		return err
 	}
 	if state != z.op {
-		if e.ownTracker {
+		if feed {
 			if err := e.tracker.RestoreOperatingState(OperatingChange{Zone: zone, State: state, Time: t.now}); err != nil {
 				e.mu.Unlock()
 				return err
@@ -820,6 +822,20 @@ func (e *Engine) publish(ts []Transition) {
 		}
 		f(cp)
 	}
+}
+
+func validatePressure(ps []PressureObservation) error {
+	for i, p := range ps {
+		switch {
+		case strings.TrimSpace(p.Sensor) == "":
+			return fmt.Errorf("%w: pressure reading %d: sensor: missing", ErrObservation, i)
+		case p.Time.IsZero():
+			return fmt.Errorf("%w: pressure reading %d (%s): time: missing", ErrObservation, i, p.Sensor)
+		case math.IsNaN(p.Pa) || math.IsInf(p.Pa, 0):
+			return fmt.Errorf("%w: pressure reading %d (%s): pa: %v is not a pressure", ErrObservation, i, p.Sensor, p.Pa)
+		}
+	}
+	return nil
 }
 
 func validateObservations(obs []Observation) error {

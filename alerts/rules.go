@@ -84,7 +84,7 @@ func (e *Engine) judgeReading(t *txn, c *counterSpec, r *CounterReading) {
 	st := e.counterSt[c.ID]
 	late := !r.Time.After(st.last)
 	if !late {
-		st = instrState{last: r.Time, live: true}
+		st = instrState{last: r.Time, live: true, flow: r.FlowLPM, why: r.untrustedReason()}
 		setUndo(t, e.counterSt, c.ID, st)
 		e.judgeStale(t, c.Zone, "", c.ID, st, c.stale)
 		e.judgeInstrument(t, c, r)

@@ -532,10 +532,7 @@ func (z *liveZone) partView(now time.Time, only map[string]bool) ZoneView {
 	if !s.hasClass && s.grade == "" {
 		v.Notes = append(v.Notes, "unclassified area: no class or grade to be in")
 	}
-	from := now.Add(-s.window)
-	if st.Since.After(from) {
-		from = st.Since
-	}
+	from := window{after: now.Add(-s.window), since: st.Since}
 	worst, fresh := StatusInClass, 0
 	for _, l := range z.locs {
 		if only != nil && !only[l.cfg.ID] {
@@ -591,7 +588,13 @@ func (s *zoneSpec) describeAt(state string) string {
 	return "grade " + s.grade + " " + state
 }
 
-func (l *liveLocation) view(now, from time.Time, limits []SizeLimit) LocationView {
+// window is the span of a rolling mean: after the start of the window and
+// from the start of the limits regime in force.
+type window struct{ after, since time.Time }
+
+func (w window) holds(t time.Time) bool { return t.After(w.after) && !t.Before(w.since) }
+
+func (l *liveLocation) view(now time.Time, from window, limits []SizeLimit) LocationView {
 	spec := l.zone.spec
 	lv := LocationView{ID: l.cfg.ID, Name: l.cfg.Name, Counter: l.counter, State: StatusUnknown, Trusted: true}
 	if l.untrusted != "" && !l.fresh.After(l.untrustedAt) {
@@ -613,7 +616,7 @@ func (l *liveLocation) view(now, from time.Time, limits []SizeLimit) LocationVie
 	// maintenance.
 	in := make([]sample, 0, len(l.samples))
 	for _, s := range l.samples {
-		if s.t.After(from) && (len(l.zone.hist) == 0 || l.zone.stateAt(s.t).Judged) {
+		if from.holds(s.t) && (len(l.zone.hist) == 0 || l.zone.stateAt(s.t).Judged) {
 			in = append(in, s)
 		}
 	}

@@ -187,6 +187,7 @@ func TestOperatingStateChangesLimits(t *testing.T) {
 	}
 	var persisted []OperatingChange
 	persist := func(ch OperatingChange) error { persisted = append(persisted, ch); return nil }
+	clk.Advance(time.Second)
 	v, err := tr.SetOperatingState(OperatingChange{Zone: "fill", State: InOperation, By: "j.marsh", Reason: "shift start"}, persist)
 	if err != nil {
 		t.Fatal(err)

@@ -129,3 +129,18 @@ type Outbox interface {
 	// Retry records a failed attempt and when to try again.
 	Retry(ctx context.Context, id uint64, attempts int, next time.Time, lastErr string) error
 }
+
+// ValueText is the alarm's value as a person reads it, with its unit and
+// what it was compared with: "-3.5 Pa (threshold 8 Pa)", "420000
+// particles/m³ (threshold 250000 particles/m³)". Empty when the alarm has
+// no measured value.
+func (a Alarm) ValueText() string {
+	if a.Unit == "" {
+		return ""
+	}
+	v := num(a.Value) + " " + a.Unit + " (threshold " + num(a.Threshold) + " " + a.Unit + ")"
+	if !a.PeakTime.IsZero() && a.Peak != a.Value {
+		v += "; peak " + num(a.Peak) + " " + a.Unit + " at " + a.PeakTime.UTC().Format(time.RFC3339)
+	}
+	return v
+}

@@ -142,7 +142,7 @@ func TestAlertmanagerPostsV2Alerts(t *testing.T) {
 	cleared := ntT0.Add(10 * time.Minute)
 	excursion := map[string]string{
 		"alertname": "cleanmon_excursion", "zone": "assembly", "kind": "excursion", "level": "alert",
-		"location": "pc-asm-1", "counter": "pc-asm-1", "size_um": "0.5", "site": "veldmark-c",
+		"location": "pc-asm-1", "counter": "pc-asm-1", "size_um": "0.5", "site": "veldmark-c", "severity": "alert",
 	}
 
 	ack := ntAlarm("alm-1", StateAcknowledged)
@@ -162,17 +162,18 @@ func TestAlertmanagerPostsV2Alerts(t *testing.T) {
 		endsAt   time.Time
 		annotate map[string]string
 	}{
-		{"active fires", ntAlarm("alm-1", StateActive), true, excursion, now.Add(4 * time.Minute),
-			map[string]string{"alarm_id": "alm-1", "state": "active", "value": "120000", "threshold": "100000", "unit": "particles/m³"}},
-		{"acknowledged still fires", ack, true, excursion, now.Add(4 * time.Minute),
+		{"active fires", ntAlarm("alm-1", StateActive), true, excursion, now.Add(AlertmanagerHold),
+			map[string]string{"alarm_id": "alm-1", "state": "active", "value": "120000", "threshold": "100000", "unit": "particles/m³",
+				"value_text": "120000 particles/m³ (threshold 100000 particles/m³)"}},
+		{"acknowledged still fires", ack, true, excursion, now.Add(AlertmanagerHold),
 			map[string]string{"acknowledged_by": "j.ortega", "comment": "door left open, closed"}},
 		{"cleared resolves at the clear time", clr, true, excursion, cleared, map[string]string{"state": "cleared"}},
 		{"pending is not posted", ntAlarm("alm-2", StateDelayed), false, nil, time.Time{}, nil},
 		{"cleared before firing is not posted", neverFired, false, nil, time.Time{}, nil},
 		{"pressure reversal", rev, true, map[string]string{
 			"alertname": "cleanmon_pressure-reversal", "zone": "assembly", "kind": "pressure-reversal", "level": "action",
-			"sensor": "dp-asm-gown", "site": "veldmark-c",
-		}, now.Add(4 * time.Minute), map[string]string{"value": "-1.5", "unit": "Pa", "summary": "pressure-reversal action in zone assembly"}},
+			"sensor": "dp-asm-gown", "site": "veldmark-c", "severity": "action",
+		}, now.Add(AlertmanagerHold), map[string]string{"value": "-1.5", "unit": "Pa", "value_text": "-1.5 Pa (threshold 0 Pa)", "summary": "pressure-reversal action in zone assembly"}},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {

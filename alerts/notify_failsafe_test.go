@@ -205,7 +205,10 @@ func TestHeartbeat(t *testing.T) {
 	open := []Alarm{{ID: "b", Level: LevelAction, State: StateActive}}
 	ctx, cancel := context.WithCancel(context.Background())
 	stopped := make(chan struct{})
-	go func() { RunHeartbeat(ctx, []Notifier{hook}, 10*time.Millisecond, func() []Alarm { return open }, nil); close(stopped) }()
+	go func() {
+		RunHeartbeat(ctx, []Notifier{hook}, 10*time.Millisecond, func() []Alarm { return open }, nil)
+		close(stopped)
+	}()
 	ntWaitFor(t, 5*time.Second, "three heartbeats", func() bool { mu.Lock(); defer mu.Unlock(); return len(beats) >= 3 })
 	cancel()
 	<-stopped

@@ -8,8 +8,8 @@ type AlarmsConfig struct {
 	// Consecutive is N of the consecutive rule: N samples in a row above
 	// the alert level raise an action alarm (default 3).
 	Consecutive int `yaml:"consecutive"`
-	// TrendRun is how many samples in a row above the baseline's centre
-	// line raise a trend alert (default 8).
+	// TrendRun is how many samples in a row, each higher than the one
+	// before, raise a trend alert (default 6).
 	TrendRun int `yaml:"trend_run"`
 	// TrendBaseline is how many earlier samples make the baseline
 	// (default 100).

@@ -23,9 +23,9 @@ import (
 //     is shown from (only while the location is fresh, as there), so the
 //     alarm and the zone's out-of-class state agree. A location that falls
 //     stale leaves its alarm as it is: its stale alarm tells the rest.
-//   - trend: TrendRun samples in a row above the centre line of the
-//     location's baseline (see control.go) raise an alert before anything
-//     exceeds a level.
+//   - trend: TrendRun samples in a row, each higher than the one before,
+//     ending above a line between the location's baseline (see control.go)
+//     and the lowest level, raise an alert before anything exceeds a level.
 //
 // Readings whose status is fault, or with no volume, are not trusted and
 // are judged by the instrument rule only. A reading not newer than its
@@ -37,7 +37,7 @@ type seriesState struct {
 	last       time.Time // newest sample judged
 	run        int       // samples in a row above the alert level
 	runStart   time.Time
-	trendRun   int // samples in a row above the centre line
+	trendRun   int // samples in a row each higher than the one before
 	trendStart time.Time
 	// hist holds the latest TrendBaseline+TrendRun−1 trusted samples. No
 	// element inside any state's window is ever written again (push only
@@ -121,7 +121,7 @@ func (e *Engine) judgeReading(t *txn, c *counterSpec, r *CounterReading) {
 		} else if sl.Alert != nil {
 			s = e.judgeConsecutive(t, k, s, tmpl, *sl.Alert, where, r.Time)
 		}
-		s = e.judgeTrend(t, k, s, tmpl, where, r, val)
+		s = e.judgeTrend(t, k, s, tmpl, where, r, val, lowestLevel(sl))
 		setUndo(t, e.series, k, s)
 	}
 }
@@ -197,12 +197,33 @@ func (e *Engine) judgeExcursion(t *txn, k string, tmpl Alarm, sl SizeLimit, wher
 	return level != ""
 }
 
-// judgeTrend runs the run rule against the baseline of the samples before
-// the run, then adds the sample to the history (not in maintenance: what
-// happens then is not the zone's normal).
-func (e *Engine) judgeTrend(t *txn, k string, s seriesState, tmpl Alarm, where func() string, r *CounterReading, val float64) seriesState {
+// judgeTrend is the trend rule: TrendRun samples in a row each higher
+// than the one before (a steady rise, as the control-chart trend rule
+// reads it: common practice, no source), the last of them above a line,
+// raise a trend alert; it stays while the samples stay above the line.
+// The line is the baseline's centre plus twice its spread, and at least
+// halfway from the centre to the lowest level of the size: a trend warns
+// of a rise toward a level, not of the background's own wandering. A background that wanders
+// (cleanroom counts are strongly correlated from one minute to the next)
+// makes long runs on one side of a centre line every hour or so, but
+// seldom a steady rise; a drift toward a level does. The baseline is the
+// TrendBaseline samples before the rise. The sample then joins the
+// history.
+func (e *Engine) judgeTrend(t *txn, k string, s seriesState, tmpl Alarm, where func() string, r *CounterReading, val, level float64) seriesState {
 	need := e.trendBase + e.trendRun - 1
 	count := val * r.VolumeL / 1000
+	if n := len(s.hist); n > 0 {
+		prev := s.hist[n-1]
+		// Higher by more than rounding: a steady concentration is no rise.
+		if count/r.VolumeL > prev.count/prev.volL*(1+1e-9)+1e-12 {
+			if s.trendRun == 0 {
+				s.trendStart = r.Time
+			}
+			s.trendRun++
+		} else {
+			s.trendRun = 0
+		}
+	}
 	if len(s.hist) == need {
 		base := s.hist[:e.trendBase]
 		var sumC, sumV float64
@@ -211,30 +232,35 @@ func (e *Engine) judgeTrend(t *txn, k string, s seriesState, tmpl Alarm, where f
 			sumV += p.volL
 		}
 		centre := sumC / sumV * 1000
-		// Above by more than rounding: a steady concentration is not a run.
-		if val > centre*(1+1e-9)+1e-9 {
-			if s.trendRun == 0 {
-				s.trendStart = r.Time
-			}
-			s.trendRun++
-		} else {
-			s.trendRun = 0
+		// The line a rise must cross: the centre plus twice the spread of
+		// the baseline's concentrations.
+		var ss float64
+		for _, p := range base {
+			d := p.count/p.volL*1000 - centre
+			ss += d * d
 		}
+		line := centre + 2*math.Sqrt(ss/float64(len(base)))
+		if level > centre {
+			line = max(line, centre+(level-centre)/2)
+		}
+		above := val > line*(1+1e-9)+1e-9
+		_, open := t.e.conds[k+":"+KindTrend]
+		present := above && (s.trendRun >= e.trendRun || open)
 		a := tmpl
-		a.Kind, a.Threshold = KindTrend, centre
+		a.Kind, a.Threshold = KindTrend, line
 		run := s.trendRun
 		msg := func() string {
-			if run >= e.trendRun {
+			if present {
 				counts := make([]float64, len(base))
 				for i, p := range base {
 					counts[i] = p.count
 				}
 				cl := Baseline(counts)
-				return fmt.Sprintf("%s: %d samples in a row above the centre line %s /m³ of the previous %d samples (%s counts per sample, UCL %s)", where(), run, num(centre), cl.Samples, num(cl.Centre), num(cl.UCL))
+				return fmt.Sprintf("%s: rising for %d samples in a row to %s /m³, above %s /m³ (centre line %s /m³ of the %d samples before: %s counts per sample, UCL %s)", where(), run, num(val), num(line), num(centre), cl.Samples, num(cl.Centre), num(cl.UCL))
 			}
 			return fmt.Sprintf("%s: %s /m³ is at or below the centre line %s /m³", where(), num(val), num(centre))
 		}
-		t.judge(condition{key: k + ":" + KindTrend, present: s.trendRun >= e.trendRun, level: LevelAlert, tmpl: a, since: s.trendStart, at: r.Time, msg: msg})
+		t.judge(condition{key: k + ":" + KindTrend, present: present, level: LevelAlert, tmpl: a, since: s.trendStart, at: r.Time, msg: msg})
 	}
 	s.hist = s.push(histPoint{count: count, volL: r.VolumeL}, need)
 	return s
@@ -290,4 +316,15 @@ func num(v float64) string {
 		return strconv.FormatFloat(math.Round(v), 'f', -1, 64)
 	}
 	return strconv.FormatFloat(v, 'g', 3, 64)
+}
+
+// lowestLevel is the lowest level of a size (alert, else action, else the
+// limit), 0 when it has none.
+func lowestLevel(sl SizeLimit) float64 {
+	for _, l := range []*float64{sl.Alert, sl.Action, sl.Limit} {
+		if l != nil {
+			return *l
+		}
+	}
+	return 0
 }

@@ -222,33 +222,36 @@ func TestOutOfClassClearsWhenTheWindowMovesOn(t *testing.T) {
 
 func TestTrend(t *testing.T) {
 	// Counts in 28.3 L: the 5 µm channel alternates 8 and 12 (c̄ = 10 per
-	// sample, UCL = 10 + 3√10 ≈ 19.5, by hand); then a drift to 11 per
-	// sample, about 389 /m³, well below the alert level of 1 000 /m³. The
-	// 0.5 µm channel stays below its centre line.
+	// sample, spread 2, UCL = 10 + 3√10 ≈ 19.5, by hand). The line a rise
+	// must cross is the larger of 10 + 2·2 = 14 and halfway to the alert
+	// level of 1 000 /m³ (28.3 counts): 10 + (28.3 − 10)/2 = 19.15 counts.
+	// Then a steady rise 13, 16, … 28 counts (989 /m³, still below the
+	// alert level). The 0.5 µm channel stays flat.
 	perM3 := func(count float64) float64 { return count * 1000 / 28.3 }
-	const base, run = 20, 8
+	const base, run = 20, 6
+	rise := []float64{13, 16, 19, 22, 25, 28}
 	setup := func(t *testing.T) *harness {
 		h := newHarness(t, func(cfg *EngineConfig) { cfg.TrendBaseline, cfg.TrendRun = base, run })
-		for i := range base + run - 1 {
+		for i := range base {
 			c := 8.0
 			if i%2 == 1 {
 				c = 12
 			}
-			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500+c), perM3(c)))
+			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(c)))
 		}
 		return h
 	}
-	t.Run("a run of 8 above the centre line", func(t *testing.T) {
+	t.Run("a steady rise toward the alert level", func(t *testing.T) {
 		h := setup(t)
-		for i := range run {
+		for i, c := range rise {
 			if n := len(h.open(KindTrend)); n != 0 {
-				t.Fatalf("trend raised after %d samples of the run", i)
+				t.Fatalf("trend raised after %d samples of the rise", i)
 			}
-			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(11)))
+			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(c)))
 		}
 		a := h.one(KindTrend)
-		if a.Level != LevelAlert || *a.SizeUM != 5 || math.Abs(a.Threshold-perM3(10)) > 1e-9 {
-			t.Errorf("trend alarm %+v, want an alert at 5 µm against the centre line %v /m³", a, perM3(10))
+		if a.Level != LevelAlert || *a.SizeUM != 5 || math.Abs(a.Threshold-perM3(19.15)) > 1e-6 {
+			t.Errorf("trend alarm %+v, want an alert at 5 µm against %v /m³", a, perM3(19.15))
 		}
 		if !strings.Contains(a.Message, "UCL 19.5") {
 			t.Errorf("message %q should give the UCL 10 + 3√10 ≈ 19.5", a.Message)
@@ -258,34 +261,42 @@ func TestTrend(t *testing.T) {
 				t.Errorf("%d %s alarms: the trend should come before any level is crossed", n, kind)
 			}
 		}
-		// A sample at the centre line ends the run; trend alerts do not latch.
+		// It stays while the samples stay above the line, though the rise
+		// has stopped; a sample at or below the line ends it (no latch).
+		h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(27)))
+		h.one(KindTrend)
 		h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(9)))
 		if n := len(h.open(KindTrend)); n != 0 {
-			t.Fatalf("trend still open after the run ended")
+			t.Fatalf("trend still open after the samples fell back")
 		}
 	})
-	t.Run("a broken run raises nothing", func(t *testing.T) {
+	t.Run("a broken rise raises nothing", func(t *testing.T) {
 		h := setup(t)
-		for i := range 2 * run {
-			c := 11.0
-			if i == run-1 {
-				c = 10
-			}
+		for _, c := range []float64{13, 16, 19, 19, 22, 25, 28} {
 			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(c)))
-			if i == 2*run-3 && len(h.open(KindTrend)) != 0 {
-				t.Fatalf("trend raised on a broken run at sample %d", i)
-			}
+		}
+		if n := len(h.open(KindTrend)); n != 0 {
+			t.Fatal("trend raised on a broken rise")
+		}
+	})
+	t.Run("a rise that stays below the line raises nothing", func(t *testing.T) {
+		h := setup(t)
+		for _, c := range []float64{12.5, 13, 14, 15, 16, 17, 18} {
+			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(c)))
+		}
+		if n := len(h.open(KindTrend)); n != 0 {
+			t.Fatal("trend raised below the line")
 		}
 	})
 	t.Run("primed from history after a restart", func(t *testing.T) {
 		h := newHarness(t, func(cfg *EngineConfig) { cfg.TrendBaseline, cfg.TrendRun = base, run })
 		var hist []Observation
-		for i := range base + run - 1 {
+		for i := range base {
 			c := 8.0
 			if i%2 == 1 {
 				c = 12
 			}
-			hist = append(hist, reading("pc-asm-1", engT0.Add(time.Duration(i-base-run)*time.Minute), perM3(500+c), perM3(c)))
+			hist = append(hist, reading("pc-asm-1", engT0.Add(time.Duration(i-base)*time.Minute), perM3(500), perM3(c)))
 		}
 		if err := h.e.Prime(hist); err != nil {
 			t.Fatal(err)
@@ -293,8 +304,8 @@ func TestTrend(t *testing.T) {
 		if n := len(h.j.records(nil)); n != 0 {
 			t.Fatalf("Prime journaled %d transitions", n)
 		}
-		for range run {
-			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(11)))
+		for _, c := range rise {
+			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(c)))
 		}
 		h.one(KindTrend)
 	})

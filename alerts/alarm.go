@@ -36,9 +36,6 @@ const (
 	StateCleared      = "cleared"
 )
 
-// KindEnvironment is the kind of temperature, humidity and airflow
-// velocity alarms (the environment rules are configured by the daemon).
-const KindEnvironment = "environment"
 
 // Alarm is one alarm condition on one subject (a zone's location and size,
 // a DP sensor, a counter): the engine keeps one alarm per condition, not

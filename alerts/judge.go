@@ -104,9 +104,11 @@ func (j *Judge) Restore(ctx context.Context, changes []OperatingChange) error {
 		if err := j.tr.RestoreOperatingState(ch); err != nil {
 			return fmt.Errorf("%w: operating state of %s at %s: %w", ErrRestore, ch.Zone, ch.Time.UTC().Format(time.RFC3339), err)
 		}
+		j.e.mu.Lock()
 		if z := j.e.zones[ch.Zone]; z != nil {
 			z.op = ch.State
 		}
+		j.e.mu.Unlock()
 	}
 	return j.e.Restore(ctx)
 }
@@ -211,7 +213,7 @@ func (j *Judge) Sensors() []SensorView {
 		v := SensorView{SensorDP: SensorDP{Sensor: id, High: s.High, Low: s.Low, MinPa: s.MinPa}, Status: SensorOK, DoorOpenings: e.doors[id]}
 		switch {
 		case st.last.IsZero() || now.Sub(st.last) > s.stale:
-			v.Status = SensorSilent
+			v.Status = SensorSilent // no number: Pa stays 0
 			v.Time = st.last
 		default:
 			v.Pa, v.Time = st.pa, st.last
@@ -226,15 +228,19 @@ func (j *Judge) Sensors() []SensorView {
 	return out
 }
 
-// LatestDP lists every DP sensor with its latest reading, for the
-// pressure collector (a silent sensor shows no value: zero Time).
+// LatestDP lists every DP sensor with its latest reading and its time, for
+// the pressure collector: the time stays exposed for a silent sensor, so
+// that a rule on its age still fires. Pages show SensorView.Status
+// instead, and no number for a silent sensor.
 func (j *Judge) LatestDP() []SensorDP {
-	vs := j.Sensors()
-	out := make([]SensorDP, len(vs))
-	for i, v := range vs {
-		out[i] = v.SensorDP
-		if v.Status == SensorSilent {
-			out[i].Time, out[i].Pa = time.Time{}, 0
+	e := j.e
+	e.mu.Lock()
+	defer e.mu.Unlock()
+	var out []SensorDP
+	for _, id := range e.order {
+		if s, ok := e.sensors[id]; ok {
+			st := e.sensorSt[id]
+			out = append(out, SensorDP{Sensor: id, High: s.High, Low: s.Low, MinPa: s.MinPa, Pa: st.pa, Time: st.last})
 		}
 	}
 	return out

@@ -414,3 +414,28 @@ func TestCountRuleGradeAAndBAtRest(t *testing.T) {
 		})
 	}
 }
+
+func TestJudgeMetrics(t *testing.T) {
+	h := newJudgeHarness(t, nil)
+	h.calm()
+	h.dp("dp-asm", 3) // below the 8 Pa minimum: a door, for now
+	h.clk.Advance(10 * time.Second)
+	h.dp("dp-asm", 12)
+	got := ntGather(t, NewJudgeCollector(h.jd))
+	for key, want := range map[string]float64{
+		`cleanmon_zone_attention{level="none",zone="assembly"}`:        1,
+		`cleanmon_zone_attention{level="unknown",zone="assembly"}`:     0,
+		`cleanmon_zone_attention{level="unknown",zone="gowning"}`:      1, // no reading yet
+		`cleanmon_zone_attention{level="out-of-class",zone="filling"}`: 0,
+		`cleanmon_door_openings_total{sensor="dp-asm"}`:                1,
+		`cleanmon_door_openings_total{sensor="dp-gown"}`:               0,
+	} {
+		if v, ok := got[key]; !ok || v != want {
+			t.Errorf("%s = %v (present %v), want %v", key, v, ok, want)
+		}
+	}
+	if n := len(got); n != 3*len(AttentionLevels)+2 {
+		t.Errorf("%d series, want one per zone and level and one per sensor", n)
+	}
+	ntLint(t, NewJudgeCollector(h.jd))
+}

@@ -36,7 +36,6 @@ const (
 	StateCleared      = "cleared"
 )
 
-
 // Alarm is one alarm condition on one subject (a zone's location and size,
 // a DP sensor, a counter): the engine keeps one alarm per condition, not
 // one per sample. Its JSON form is the alarm object of DESIGN.md §4.

@@ -51,7 +51,10 @@ var (
 	ErrNoAlarm      = errors.New("alerts: no such alarm")
 	ErrAlreadyAcked = errors.New("alerts: alarm already acknowledged")
 	ErrAlarmCleared = errors.New("alerts: alarm already cleared")
-	ErrAlarmPending = errors.New("alerts: alarm still delayed (its delay is running): nothing to acknowledge yet")
+	// ErrAlarmDelayed: the alarm's delay is still running.
+	ErrAlarmDelayed = errors.New("alerts: alarm still delayed (its delay is running): nothing to acknowledge yet")
+	// ErrAlarmPending is the former name of ErrAlarmDelayed.
+	ErrAlarmPending = ErrAlarmDelayed
 	ErrAck          = errors.New("alerts: invalid acknowledgement")
 	// ErrCommentRequired: an action alarm is acknowledged with a comment
 	// saying what was found or done. Returned wrapped together with ErrAck.

@@ -439,3 +439,41 @@ func TestJudgeMetrics(t *testing.T) {
 	}
 	ntLint(t, NewJudgeCollector(h.jd))
 }
+
+func TestRestoreKeepsEpisodesApart(t *testing.T) {
+	ctx := context.Background()
+	h := newJudgeHarness(t, nil)
+	h.calm()
+	for _, v := range []float64{300000, 20000, 260000} { // two episodes, the first waiting for its acknowledgement
+		h.readings(reading("pc-asm-1", h.clk.Now(), v, 100))
+		h.clk.Advance(time.Minute)
+	}
+	before := h.alarms(KindExcursion)
+	if len(before) != 2 || !before[0].ConditionGone || before[1].ConditionGone {
+		t.Fatalf("before the restart: %+v", before)
+	}
+	again, err := NewJudge(engineConfig(), h.j, h.clk.Now)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := again.Restore(ctx, nil); err != nil {
+		t.Fatal(err)
+	}
+	h.jd = again
+	// Still high: the open episode goes on, no third alarm.
+	h.readings(reading("pc-asm-1", h.clk.Now(), 270000, 100))
+	after := h.alarms(KindExcursion)
+	if len(after) != 2 || after[0].ID != before[0].ID || after[1].ID != before[1].ID {
+		t.Fatalf("after the restart: %+v", after)
+	}
+	// Back to normal: the second waits for its acknowledgement too; the
+	// first is cleared by its own.
+	h.clk.Advance(time.Minute)
+	h.readings(reading("pc-asm-1", h.clk.Now(), 20000, 100))
+	if a, err := again.Ack(ctx, before[0].ID, "l.berg", "seen: door seal"); err != nil || a.State != StateCleared {
+		t.Fatalf("ack of the first: %+v %v", a, err)
+	}
+	if a, _ := again.Alarm(before[1].ID); a.State != StateActive || !a.ConditionGone {
+		t.Errorf("second episode %+v", a)
+	}
+}

@@ -274,81 +274,9 @@ func NewEngine(cfg EngineConfig, j Journal, now func() time.Time) (*Engine, erro
 		}
 		zoneLocs[z.ID] = locs
 	}
-	var bindings []Binding
 	seen := map[string]string{}
-	for i, c := range cfg.Counters {
-		p := fmt.Sprintf("counters[%d]", i)
-		checkID(bad, p+".id", c.ID, seen, p)
-		locs, ok := zoneLocs[c.Zone]
-		switch {
-		case c.Zone == "":
-			bad(p+".zone", "missing: the zone the counter samples")
-		case !ok:
-			bad(p+".zone", "%q is not a configured zone", c.Zone)
-		case c.Location == "":
-			bad(p+".location", "missing: the sampling location of zone %q", c.Zone)
-		case !locs[c.Location]:
-			bad(p+".location", "%q is not a location of zone %q", c.Location, c.Zone)
-		default:
-			bindings = append(bindings, Binding{Counter: c.ID, Zone: c.Zone, Location: c.Location})
-		}
-		nonNegative(bad, p+".nominal_flow_lpm", c.NominalFlowLPM, "L/min")
-		nonNegative(bad, p+".max_per_m3", c.MaxPerM3, "particles/m³")
-		if c.Interval < 0 {
-			bad(p+".interval", "%s: must be positive", c.Interval)
-		}
-		if c.StaleAfter < 0 {
-			bad(p+".stale_after", "%s: must be positive", c.StaleAfter)
-		}
-		s := &counterSpec{CounterRule: c.WithDefaults()}
-		s.stale = s.StaleAfter
-		if _, dup := e.counters[c.ID]; !dup && c.ID != "" {
-			e.counters[c.ID] = s
-			e.order = append(e.order, c.ID)
-		}
-	}
-	for i, r := range cfg.Sensors {
-		p := fmt.Sprintf("sensors[%d]", i)
-		checkID(bad, p+".id", r.ID, seen, p)
-		switch {
-		case r.High == "":
-			bad(p+".high", "missing: the zone on the high-pressure side")
-		case zoneLocs[r.High] == nil:
-			bad(p+".high", "%q is not a configured zone", r.High)
-		}
-		switch {
-		case strings.TrimSpace(r.Low) == "":
-			bad(p+".low", "missing: the area on the low-pressure side")
-		case r.Low == r.High:
-			bad(p+".low", "%q is the high side too: a DP is between two areas", r.Low)
-		}
-		nonNegative(bad, p+".min_pa", r.MinPa, "Pa")
-		nonNegative(bad, p+".max_pa", r.MaxPa, "Pa")
-		if r.MaxPa > 0 && r.MaxPa <= r.MinPa {
-			bad(p+".max_pa", "%g Pa is not above min_pa %g Pa", r.MaxPa, r.MinPa)
-		}
-		s := &sensorSpec{SensorRule: r, delay: r.Delay, positive: r.MustBePositive == nil || *r.MustBePositive}
-		if r.Delay < 0 {
-			bad(p+".delay", "%s: must be positive", r.Delay)
-		} else if r.Delay == 0 {
-			s.delay = DefaultPressureDelay
-		}
-		if r.Interval < 0 {
-			bad(p+".interval", "%s: must be positive", r.Interval)
-		} else if r.Interval == 0 {
-			s.Interval = DefaultSensorInterval
-		}
-		s.stale = 3 * s.Interval
-		if r.StaleAfter < 0 {
-			bad(p+".stale_after", "%s: must be positive", r.StaleAfter)
-		} else if r.StaleAfter > 0 {
-			s.stale = r.StaleAfter
-		}
-		if _, dup := e.sensors[r.ID]; !dup && r.ID != "" {
-			e.sensors[r.ID] = s
-			e.order = append(e.order, r.ID)
-		}
-	}
+	bindings := e.compileCounters(cfg.Counters, zoneLocs, seen, bad)
+	e.compileSensors(cfg.Sensors, zoneLocs, seen, bad)
 	for _, f := range []struct {
 		path string
 		v    *int
@@ -412,6 +340,90 @@ func NewEngine(cfg EngineConfig, j Journal, now func() time.Time) (*Engine, erro
 	}
 	e.start = now()
 	return e, nil
+}
+
+// compileCounters checks the counters and keeps them; it returns where
+// each is bound.
+func (e *Engine) compileCounters(cs []CounterRule, zoneLocs map[string]map[string]bool, seen map[string]string, bad func(string, string, ...any)) []Binding {
+	var bindings []Binding
+	for i, c := range cs {
+		p := fmt.Sprintf("counters[%d]", i)
+		checkID(bad, p+".id", c.ID, seen, p)
+		locs, ok := zoneLocs[c.Zone]
+		switch {
+		case c.Zone == "":
+			bad(p+".zone", "missing: the zone the counter samples")
+		case !ok:
+			bad(p+".zone", "%q is not a configured zone", c.Zone)
+		case c.Location == "":
+			bad(p+".location", "missing: the sampling location of zone %q", c.Zone)
+		case !locs[c.Location]:
+			bad(p+".location", "%q is not a location of zone %q", c.Location, c.Zone)
+		default:
+			bindings = append(bindings, Binding{Counter: c.ID, Zone: c.Zone, Location: c.Location})
+		}
+		nonNegative(bad, p+".nominal_flow_lpm", c.NominalFlowLPM, "L/min")
+		nonNegative(bad, p+".max_per_m3", c.MaxPerM3, "particles/m³")
+		if c.Interval < 0 {
+			bad(p+".interval", "%s: must be positive", c.Interval)
+		}
+		if c.StaleAfter < 0 {
+			bad(p+".stale_after", "%s: must be positive", c.StaleAfter)
+		}
+		s := &counterSpec{CounterRule: c.WithDefaults()}
+		s.stale = s.StaleAfter
+		if _, dup := e.counters[c.ID]; !dup && c.ID != "" {
+			e.counters[c.ID] = s
+			e.order = append(e.order, c.ID)
+		}
+	}
+	return bindings
+}
+
+// compileSensors checks the DP sensors and keeps them.
+func (e *Engine) compileSensors(ss []SensorRule, zoneLocs map[string]map[string]bool, seen map[string]string, bad func(string, string, ...any)) {
+	for i, r := range ss {
+		p := fmt.Sprintf("sensors[%d]", i)
+		checkID(bad, p+".id", r.ID, seen, p)
+		switch {
+		case r.High == "":
+			bad(p+".high", "missing: the zone on the high-pressure side")
+		case zoneLocs[r.High] == nil:
+			bad(p+".high", "%q is not a configured zone", r.High)
+		}
+		switch {
+		case strings.TrimSpace(r.Low) == "":
+			bad(p+".low", "missing: the area on the low-pressure side")
+		case r.Low == r.High:
+			bad(p+".low", "%q is the high side too: a DP is between two areas", r.Low)
+		}
+		nonNegative(bad, p+".min_pa", r.MinPa, "Pa")
+		nonNegative(bad, p+".max_pa", r.MaxPa, "Pa")
+		if r.MaxPa > 0 && r.MaxPa <= r.MinPa {
+			bad(p+".max_pa", "%g Pa is not above min_pa %g Pa", r.MaxPa, r.MinPa)
+		}
+		s := &sensorSpec{SensorRule: r, delay: r.Delay, positive: r.MustBePositive == nil || *r.MustBePositive}
+		if r.Delay < 0 {
+			bad(p+".delay", "%s: must be positive", r.Delay)
+		} else if r.Delay == 0 {
+			s.delay = DefaultPressureDelay
+		}
+		if r.Interval < 0 {
+			bad(p+".interval", "%s: must be positive", r.Interval)
+		} else if r.Interval == 0 {
+			s.Interval = DefaultSensorInterval
+		}
+		s.stale = 3 * s.Interval
+		if r.StaleAfter < 0 {
+			bad(p+".stale_after", "%s: must be positive", r.StaleAfter)
+		} else if r.StaleAfter > 0 {
+			s.stale = r.StaleAfter
+		}
+		if _, dup := e.sensors[r.ID]; !dup && r.ID != "" {
+			e.sensors[r.ID] = s
+			e.order = append(e.order, r.ID)
+		}
+	}
 }
 
 func configError(errs []FieldError) error {

@@ -162,11 +162,12 @@ type CounterReading struct {
 // Journal.RecordTransitions before it becomes visible in Alarms or reaches
 // a subscriber. Transitions that announce something (an alarm becoming
 // active, changing level, being acknowledged or cleared) are recorded with
-// the configured notifiers; the others (an alarm going pending and a
-// pending alarm clearing before its delay ran out, a latched alarm's
-// condition going or coming back, a condition suppressed by maintenance)
-// are recorded with none: they are in the audit record, and nobody is
-// paged for them. When the journal fails, the method returns the error and
+// the configured notifiers; the others (a latched alarm's condition
+// going, a condition suppressed by maintenance) are recorded with none:
+// they are in the audit record, and nobody is paged for them. A delayed
+// alarm is not recorded at all until its delay runs out: a condition that
+// goes before leaves no record, and a DP dip is counted as a door opening
+// (DoorOpenings). When the journal fails, the method returns the error and
 // the engine is as it was before the call, so the same call may be retried.
 type Engine struct {
 	j       Journal
@@ -462,7 +463,9 @@ func nonNegative(bad func(string, string, ...any), path string, v float64, unit 
 // (Journal.OpenAlarms). Call it once, before anything is observed (Prime
 // may come before or after it). Their conditions are judged again as new
 // readings arrive: a restored consecutive or trend alarm counts its run as
-// still going on, a pending alarm keeps its start, a stale alarm stays
+// still going on, a delayed alarm (never journaled) starts its delay again
+// with the next reading, a latched alarm whose condition went waits for its
+// acknowledgement beside a newer episode of its condition, a stale alarm stays
 // until its instrument reports. An open alarm whose subject is no longer
 // configured stays open until it is acknowledged, and is then cleared.
 // Malformed records are refused whole, naming the record.
@@ -665,7 +668,7 @@ func (e *Engine) ObservePressure(ctx context.Context, ps []PressureObservation) 
 	return e.finish(ctx, t)
 }
 
-// Tick runs the rules that time drives: a pending alarm whose delay has
+// Tick runs the rules that time drives: a delayed alarm whose delay has
 // run out becomes active, a silent counter or sensor becomes stale, and a
 // rolling mean whose high readings have left the window is judged again.
 // Call it every second or so.
@@ -770,7 +773,7 @@ func (e *Engine) Subscribe(f func([]Transition)) {
 	e.subs = append(e.subs, f)
 }
 
-// Alarms returns the open alarms (pending, active or acknowledged), or
+// Alarms returns the open alarms (delayed, active or acknowledged), or
 // with all also the most recent cleared ones (up to ClearedKept), sorted by
 // Since and then ID.
 func (e *Engine) Alarms(all bool) []Alarm {

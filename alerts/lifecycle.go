@@ -203,7 +203,7 @@ type condition struct {
 	// since is when the condition began, at the time of the observation
 	// judged.
 	since, at time.Time
-	// delay, when positive, keeps a new alarm pending until the condition
+	// delay, when positive, keeps a new alarm delayed until the condition
 	// has lasted that long.
 	delay time.Duration
 	// msg, when set, writes tmpl.Message. It runs only when the condition

@@ -315,7 +315,7 @@ func TestAlarmCollector(t *testing.T) {
 
 	// The exposition itself, for one small case.
 	one := NewAlarmCollector(ntAlarmList{alarm("assembly", KindStale, LevelAlert, StateActive)}, nil)
-	exp := `# HELP cleanmon_alarm_active Number of alarms firing (active or acknowledged, not yet cleared) per zone, kind and level; pending alarms, whose delay still runs, are not counted.
+	exp := `# HELP cleanmon_alarm_active Number of alarms firing (active or acknowledged, not yet cleared) per zone, kind and level; delayed alarms, whose delay still runs, are not counted.
 # TYPE cleanmon_alarm_active gauge
 cleanmon_alarm_active{kind="stale",level="alert",zone="assembly"} 1
 `

@@ -143,7 +143,7 @@ type amAlert struct {
 
 // Alertmanager posts alarms to Alertmanager's v2 API. An alarm fires from
 // the moment it is active until it is cleared: acknowledging it does not
-// resolve it (silences are Alertmanager's own business). A pending alarm
+// resolve it (silences are Alertmanager's own business). A delayed alarm
 // is not posted; one cleared before it fired is not posted either.
 //
 // A firing alert is posted with its end AlertmanagerHold ahead, and
@@ -228,7 +228,7 @@ func (a *Alertmanager) Notify(ctx context.Context, t Transition) error {
 			return nil // never fired, nothing to resolve
 		}
 	default:
-		return nil // pending: its delay is still running
+		return nil // delayed: its delay is still running
 	}
 	a.mu.Lock()
 	defer a.mu.Unlock()

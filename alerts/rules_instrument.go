@@ -23,9 +23,9 @@ import (
 //     the sensor's MaxPa. Each cause is its own condition.
 //   - pressure-reversal: a DP below 0 across a sensor that must be
 //     positive: action at once.
-//   - pressure-low: a DP below MinPa, pending for Delay, then action. A
-//     shorter dip (a door opened and shut) leaves a pending alarm that is
-//     cleared and announced to nobody.
+//   - pressure-low: a DP below MinPa, delayed for Delay, then action. A
+//     shorter dip (a door opened and shut) leaves no alarm record: it is
+//     counted as a door opening of its sensor.
 //
 // Stale and instrument alarms are alerts, but actions in a grade A or B
 // zone, which EU GMP Annex 1 asks to be monitored continuously (from

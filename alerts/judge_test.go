@@ -477,3 +477,35 @@ func TestRestoreKeepsEpisodesApart(t *testing.T) {
 		t.Errorf("second episode %+v", a)
 	}
 }
+
+// Zone reports read after a year of shift changes (three a day): every
+// sample of every window is judged by the state of its time.
+func BenchmarkJudgeZones(b *testing.B) {
+	clk := &engClock{t: engT0}
+	jd, err := NewJudge(engineConfig(), newMemJournal(), clk.Now)
+	if err != nil {
+		b.Fatal(err)
+	}
+	var hist []OperatingChange
+	for i := range 3 * 365 {
+		state := []string{InOperation, AtRest, Maintenance}[i%3]
+		hist = append(hist, OperatingChange{Zone: "assembly", State: state, Time: engT0.Add(time.Duration(i-3*365) * 8 * time.Hour)})
+	}
+	hist = append(hist, OperatingChange{Zone: "assembly", State: InOperation, Time: engT0.Add(-time.Hour)})
+	if err := jd.Restore(context.Background(), hist); err != nil {
+		b.Fatal(err)
+	}
+	for range 10 {
+		rs := []CounterReading{{Observation: reading("pc-asm-1", clk.Now(), 20000, 100), FlowLPM: 28.3}, {Observation: reading("pc-asm-2", clk.Now(), 20000, 100), FlowLPM: 28.3}}
+		if err := jd.Observe(context.Background(), Input{Readings: rs}); err != nil {
+			b.Fatal(err)
+		}
+		clk.Advance(time.Minute - time.Second)
+	}
+	b.ResetTimer()
+	for range b.N {
+		if zs := jd.Zones(); zs[0].State != StatusInClass {
+			b.Fatalf("assembly %s", zs[0].State)
+		}
+	}
+}

@@ -533,6 +533,7 @@ func (z *liveZone) partView(now time.Time, only map[string]bool) ZoneView {
 		v.Notes = append(v.Notes, "unclassified area: no class or grade to be in")
 	}
 	from := window{after: now.Add(-s.window), since: st.Since}
+	from.maint = z.maintenanceAfter(from.after)
 	worst, fresh := StatusInClass, 0
 	for _, l := range z.locs {
 		if only != nil && !only[l.cfg.ID] {
@@ -589,10 +590,43 @@ func (s *zoneSpec) describeAt(state string) string {
 }
 
 // window is the span of a rolling mean: after the start of the window and
-// from the start of the limits regime in force.
-type window struct{ after, since time.Time }
+// from the start of the limits regime in force, outside maintenance.
+type window struct {
+	after, since time.Time
+	maint        [][2]time.Time // maintenance spans [from, to); to zero: still on
+}
 
-func (w window) holds(t time.Time) bool { return t.After(w.after) && !t.Before(w.since) }
+func (w window) holds(t time.Time) bool {
+	if !t.After(w.after) || t.Before(w.since) {
+		return false
+	}
+	for _, m := range w.maint {
+		if !t.Before(m[0]) && (m[1].IsZero() || t.Before(m[1])) {
+			return false
+		}
+	}
+	return true
+}
+
+// maintenanceAfter lists the maintenance spans that reach past a time.
+func (z *liveZone) maintenanceAfter(after time.Time) [][2]time.Time {
+	k := sort.Search(len(z.hist), func(i int) bool { return z.hist[i].Time.After(after) }) - 1
+	var out [][2]time.Time
+	for i := max(k, 0); i < len(z.hist); i++ {
+		if z.hist[i].State != Maintenance || i > 0 && z.hist[i-1].State == Maintenance && i-1 >= max(k, 0) {
+			continue
+		}
+		span := [2]time.Time{z.hist[i].Time}
+		for j := i + 1; j < len(z.hist); j++ {
+			if z.hist[j].State != Maintenance {
+				span[1] = z.hist[j].Time
+				break
+			}
+		}
+		out = append(out, span)
+	}
+	return out
+}
 
 func (l *liveLocation) view(now time.Time, from window, limits []SizeLimit) LocationView {
 	spec := l.zone.spec
@@ -616,7 +650,7 @@ func (l *liveLocation) view(now time.Time, from window, limits []SizeLimit) Loca
 	// maintenance.
 	in := make([]sample, 0, len(l.samples))
 	for _, s := range l.samples {
-		if from.holds(s.t) && (len(l.zone.hist) == 0 || l.zone.stateAt(s.t).Judged) {
+		if from.holds(s.t) {
 			in = append(in, s)
 		}
 	}

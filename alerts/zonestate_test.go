@@ -372,3 +372,40 @@ func BenchmarkObserve(b *testing.B) {
 	}
 	b.ReportMetric(float64(b.N*len(batch))/b.Elapsed().Seconds(), "readings/s")
 }
+
+// Readings taken in maintenance stay out of every mean, also of the
+// clean-up that follows it, which is judged against the limits of the
+// state before the maintenance.
+func TestMaintenanceReadingsLeftOutOfTheMean(t *testing.T) {
+	clk := &fakeClock{t: t0}
+	z := gradeB()
+	z.OperatingState = InOperation
+	tr := newTracker(t, clk, []ZoneConfig{z}, []Binding{{"pc-f", "fill", "f-1"}})
+	set := func(state string) {
+		t.Helper()
+		if _, err := tr.SetOperatingState(OperatingChange{Zone: "fill", State: state, By: "l.berg", Reason: "test"}, nil); err != nil {
+			t.Fatal(err)
+		}
+	}
+	step := func(p05 float64) {
+		tr.Observe(obs("pc-f", clk.t, p05, 0))
+		clk.Advance(time.Minute)
+	}
+	step(10000)
+	step(20000)
+	set(Maintenance)
+	step(900000) // a filter change: kept, not judged
+	step(800000)
+	set(AtRest)
+	step(30000)
+	v, _ := tr.Zone("fill")
+	if v.LimitsState != InOperation || v.CleanUpUntil.IsZero() {
+		t.Fatalf("clean-up: limits %s until %s", v.LimitsState, v.CleanUpUntil)
+	}
+	// (10 000 + 20 000 + 30 000) / 3 = 20 000 /m³, in class against the
+	// grade B in-operation 352 000 /m³ (EU GMP Annex 1 (2022), from memory).
+	l := v.Locations[0]
+	if l.Samples != 3 || l.MeanPerM3["0.5"] != 20000 || v.State != StatusInClass {
+		t.Errorf("location %+v, zone %s: want the mean of the three judged readings", l, v.State)
+	}
+}

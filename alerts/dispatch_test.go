@@ -264,6 +264,11 @@ func TestDeadReceiverDelaysNoOther(t *testing.T) {
 		_, _, _, order, _ := rcv.snapshot()
 		return len(order) == 3
 	})
+	// The receiver records a delivery before it answers: the dispatcher
+	// counts it once the answer is in.
+	ntWaitFor(t, 10*time.Second, "the live notifier to count all three", func() bool {
+		return d.Health()["facilities"].Delivered == 3
+	})
 	if n := hung.Load(); n != 1 {
 		t.Errorf("dead receiver saw %d requests, want the one still hanging", n)
 	}

@@ -357,11 +357,11 @@ func TestJournalFailureLeavesEngineAsBefore(t *testing.T) {
 	t.Run("announced part fails after the quiet part", func(t *testing.T) {
 		h := newHarness(t, nil)
 		h.pressure("dp-asm", 12)
-		// -2 Pa makes a pending pressure-low (quiet) and a reversal
-		// (announced) in one call; fail the second journal call.
+		// -2 Pa makes a delayed pressure-low (memory only) and a reversal
+		// (announced) in one call; fail the journal call.
 		calls := h.j.calls
 		h.j.failCall = func(call int, ts []Transition) error {
-			if call == calls+2 {
+			if call == calls+1 {
 				return errDisk
 			}
 			return nil
@@ -378,7 +378,7 @@ func TestJournalFailureLeavesEngineAsBefore(t *testing.T) {
 		if err := h.e.ObservePressure(context.Background(), []PressureObservation{{Sensor: "dp-asm", Time: h.clk.Now(), Pa: -2}}); err != nil {
 			t.Fatal(err)
 		}
-		if h.one(KindPressureReversal).State != StateActive || h.one(KindPressureLow).State != StatePending {
+		if h.one(KindPressureReversal).State != StateActive || h.one(KindPressureLow).State != StateDelayed {
 			t.Fatalf("after retry: %+v", h.e.Alarms(false))
 		}
 	})
@@ -464,7 +464,7 @@ func TestConcurrentUse(t *testing.T) {
 		defer wg.Done()
 		for range 200 {
 			for _, a := range h.e.Alarms(false) {
-				_, err := h.e.Ack(ctx, a.ID, "night shift", "")
+				_, err := h.e.Ack(ctx, a.ID, "night shift", "seen")
 				if err != nil && !errors.Is(err, ErrAlreadyAcked) && !errors.Is(err, ErrAlarmPending) && !errors.Is(err, ErrAlarmCleared) && !errors.Is(err, ErrNoAlarm) {
 					errs <- err
 					return

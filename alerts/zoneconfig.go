@@ -60,6 +60,10 @@ type ZoneConfig struct {
 	// StaleAfter is how long a location may go without a reading and
 	// still count as fresh (default 3m).
 	StaleAfter model.Duration `yaml:"stale_after"`
+	// CleanUp is the clean-up period after a switch to at-rest (default
+	// DefaultCleanUp): meanwhile the zone is judged against the limits of
+	// the state before, and its at-rest window starts after it.
+	CleanUp model.Duration `yaml:"clean_up"`
 	// Levels are the monitoring levels per size (keyed like "0.5"). Left
 	// out, the action level is the class limit and there is no alert level.
 	Levels    map[string]Levels `yaml:"levels"`
@@ -116,6 +120,7 @@ type zoneSpec struct {
 	sizes    []float64
 	window   time.Duration
 	stale    time.Duration
+	cleanUp  time.Duration
 	base     string                 // configured operating state
 	limits   map[string][]SizeLimit // by at-rest / in-operation
 	hasLimit bool                   // some size has a specified limit
@@ -154,7 +159,7 @@ func compileZone(z ZoneConfig, p string) (*zoneSpec, []FieldError) {
 	bad := func(field, format string, a ...any) {
 		errs = append(errs, FieldError{p + field, fmt.Sprintf(format, a...)})
 	}
-	s := &zoneSpec{cfg: z, edition: classify.Edition2015, window: DefaultWindow, stale: DefaultStaleAfter}
+	s := &zoneSpec{cfg: z, edition: classify.Edition2015, window: DefaultWindow, stale: DefaultStaleAfter, cleanUp: DefaultCleanUp}
 
 	if strings.TrimSpace(z.ID) == "" {
 		bad(".id", "missing: every zone needs an id")
@@ -227,6 +232,12 @@ func compileZone(z ZoneConfig, p string) (*zoneSpec, []FieldError) {
 		bad(".stale_after", "%s: must be positive", time.Duration(z.StaleAfter))
 	} else if z.StaleAfter > 0 {
 		s.stale = time.Duration(z.StaleAfter)
+	}
+
+	if z.CleanUp < 0 {
+		bad(".clean_up", "%s: must be positive", time.Duration(z.CleanUp))
+	} else if z.CleanUp > 0 {
+		s.cleanUp = time.Duration(z.CleanUp)
 	}
 
 	seenSize := map[float64]bool{}

@@ -32,6 +32,8 @@ func TestValidateZones(t *testing.T) {
 		{"no area", func(z *ZoneConfig) { z.AreaM2 = 0 }, "zones[0].area_m2", "missing"},
 		{"negative area", func(z *ZoneConfig) { z.AreaM2 = -1 }, "zones[0].area_m2", "positive"},
 		{"negative window", func(z *ZoneConfig) { z.Window = model.Duration(-time.Minute) }, "zones[0].window", "positive"},
+		{"negative clean-up", func(z *ZoneConfig) { z.CleanUp = model.Duration(-time.Minute) }, "zones[0].clean_up", "positive"},
+		{"own clean-up", func(z *ZoneConfig) { z.CleanUp = model.Duration(15 * time.Minute) }, "", ""},
 		{"no sizes", func(z *ZoneConfig) { z.Sizes = nil; z.Levels = nil }, "zones[0].sizes", "missing"},
 		{"bad size", func(z *ZoneConfig) { z.Sizes = []string{"0.5", "7"} }, "zones[0].sizes[1]", "outside"},
 		{"size twice", func(z *ZoneConfig) { z.Sizes = []string{"0.5", "0.50"} }, "zones[0].sizes[1]", "twice"},

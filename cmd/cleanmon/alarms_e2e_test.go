@@ -273,7 +273,7 @@ func TestAlarmEndToEnd(t *testing.T) {
 	}
 	for _, name := range []string{"cleanmon_particle_concentration_per_cubic_meter", "cleanmon_class_limit_per_cubic_meter", "cleanmon_zone_in_class",
 		"cleanmon_zone_state", "cleanmon_differential_pressure_pascals", "cleanmon_alarm_active", "cleanmon_readings_total",
-		"cleanmon_counter_last_reading_timestamp_seconds", "cleanmon_counter_flow_liters_per_minute"} {
+		"cleanmon_instrument_last_reading_timestamp_seconds", "cleanmon_instrument_flow_liters_per_minute"} {
 		if !bytes.Contains(metrics, []byte("\n"+name+"{")) {
 			t.Errorf("/metrics lacks %s", name)
 		}

@@ -35,18 +35,18 @@ var deployDir = "."
 // notifier metrics that came with the notifiers. The daemon may export
 // more; deployExportedMetrics finds those.
 var deployMustMetrics = map[string]bool{
-	"cleanmon_particle_concentration_per_cubic_meter": true,
-	"cleanmon_class_limit_per_cubic_meter":            true,
-	"cleanmon_zone_in_class":                          true,
-	"cleanmon_zone_state":                             true,
-	"cleanmon_differential_pressure_pascals":          true,
-	"cleanmon_alarm_active":                           true,
-	"cleanmon_readings_total":                         true,
+	"cleanmon_particle_concentration_per_cubic_meter":    true,
+	"cleanmon_class_limit_per_cubic_meter":               true,
+	"cleanmon_zone_in_class":                             true,
+	"cleanmon_zone_state":                                true,
+	"cleanmon_differential_pressure_pascals":             true,
+	"cleanmon_alarm_active":                              true,
+	"cleanmon_readings_total":                            true,
 	"cleanmon_instrument_last_reading_timestamp_seconds": true,
 	"cleanmon_instrument_flow_liters_per_minute":         true,
-	"cleanmon_notifications_total":                    true,
-	"cleanmon_notification_queue":                     true,
-	"cleanmon_notifier_up":                            true,
+	"cleanmon_notifications_total":                       true,
+	"cleanmon_notification_queue":                        true,
+	"cleanmon_notifier_up":                               true,
 }
 
 // deployStateMetrics are the one-series-per-state metrics the dashboard

@@ -156,7 +156,7 @@ func decodeArray[T any](dec *jsontext.Decoder, v *T, reset func(), each func(i i
 		}
 		reset()
 		if err := json.UnmarshalDecode(dec, v, strictOptions); err != nil {
-			return i + 1, decodeErr(err, i, 0, v)
+			return i + 1, inElement(decodeErr(err, i, 0, v), i)
 		}
 		if ie := each(i, v); ie != nil {
 			return i + 1, ie
@@ -170,6 +170,24 @@ func decodeArray[T any](dec *jsontext.Decoder, v *T, reset func(), each func(i i
 		return i, decodeErr(err, max(i-1, 0), 0, v)
 	}
 	return i, nil
+}
+
+// inElement drops the array position the decoder puts in front of a
+// field name: the error carries it as the index.
+func inElement(err error, i int) error {
+	var ie *InputError
+	if errors.As(err, &ie) {
+		pos := strconv.Itoa(i)
+		if ie.Field == pos {
+			ie.Field = ""
+		} else {
+			ie.Field = strings.TrimPrefix(ie.Field, pos+".")
+		}
+		if ie.Field == "" && ie.Rule == RuleType {
+			ie.Msg = strings.Replace(ie.Msg, "must be an object", "each element must be a JSON object", 1)
+		}
+	}
+	return err
 }
 
 // errTrailing marks data after the one JSON value a body may hold.

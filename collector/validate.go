@@ -175,17 +175,24 @@ func (v *validator) volume(i int, ci *CounterInfo, raw *RawReading) *InputError 
 		return inputErrRule(i, "flow_lpm", RuleFlowRange, "%g L/min: the flow must be ≥ 0 and at most %g × the nominal %g L/min", flow, v.b.MaxFlowFactor, ci.FlowLPM)
 	}
 	period := ci.Interval.D().Seconds()
-	maxSecs := period * (1 + v.b.VolumeWindow)
-	if !finite(secs) || secs < 0 || secs > maxSecs {
-		return inputErrRule(i, "sample_s", RuleSampleTime, "%g s: the sampling time must be ≥ 0 and not longer than the counter's %s period", secs, ci.Interval)
-	}
 	w := v.b.VolumeWindow
-	switch {
-	case flow > 0 && secs > 0 && v.volTol >= 0:
-		want := flow * secs / 60
-		if math.Abs(vol-want) > v.volTol*want {
+	sampleErr := inputErrRule(i, "sample_s", RuleSampleTime, "%g s: the sampling time must be ≥ 0 and not longer than the counter's %s period", secs, ci.Interval)
+	if !finite(secs) || secs < 0 {
+		return sampleErr
+	}
+	// The sender's own figures first: a volume that disagrees with them
+	// is the clearer message.
+	if flow > 0 && secs > 0 && v.volTol >= 0 {
+		if want := flow * secs / 60; math.Abs(vol-want) > v.volTol*want {
 			return inputErrRule(i, "volume_l", RuleVolumeConsistent, "%g L is inconsistent with flow_lpm × sample_s / 60 = %.4g L (tolerance %g %%)", vol, want, v.volTol*100)
 		}
+	}
+	if secs > period*(1+w) {
+		return sampleErr
+	}
+	switch {
+	case flow > 0 && secs > 0 && v.volTol >= 0:
+		// checked above
 	case secs > 0:
 		f := flow
 		if f == 0 {

@@ -371,6 +371,7 @@ func TestAuditKeyRotation(t *testing.T) {
 	b, pubB := newSigner(t)
 	dir := t.TempDir()
 	ctx := context.Background()
+	at := t0
 	for _, k := range []*AuditSigner{a, a, b} {
 		s, err := Open(dir, Options{NoSync: true})
 		if err != nil {
@@ -379,8 +380,8 @@ func TestAuditKeyRotation(t *testing.T) {
 		if err := s.UseAuditKey(ctx, k, "it.admin"); err != nil {
 			t.Fatal(err)
 		}
-		appendOK(t, s, series("pc-hood", t0.Add(time.Duration(len(k.KeyID()))*time.Minute), 3))
-		t0 = t0.Add(time.Hour)
+		appendOK(t, s, series("pc-hood", at, 3))
+		at = at.Add(time.Hour)
 		if err := s.Close(); err != nil {
 			t.Fatal(err)
 		}

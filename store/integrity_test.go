@@ -29,8 +29,18 @@ func TestUncleanStop(t *testing.T) {
 	}
 	// The file as a kill -9 leaves it: every commit synced, Close never run.
 	crashed := copyFile(t, filepath.Join(dir, FileName))
+	marker, err := os.ReadFile(filepath.Join(dir, RunningMarker))
+	if err != nil {
+		t.Fatalf("no running marker while open: %v", err)
+	}
+	if err := os.WriteFile(filepath.Join(filepath.Dir(crashed), RunningMarker), marker, 0o600); err != nil {
+		t.Fatal(err)
+	}
 	if err := s.Close(); err != nil {
 		t.Fatal(err)
+	}
+	if _, err := os.Stat(filepath.Join(dir, RunningMarker)); !errors.Is(err, os.ErrNotExist) {
+		t.Errorf("the running marker outlived Close: %v", err)
 	}
 
 	after := openTest(t, filepath.Dir(crashed), Options{})
@@ -44,6 +54,9 @@ func TestUncleanStop(t *testing.T) {
 	e := got[0]
 	if want := "#" + itoa(lastSeq); e.Subject != want || !strings.Contains(e.Reason, "last entry before this one is "+want+" (readings-batch") {
 		t.Errorf("unclean-stop names %q / %q, want %s", e.Subject, e.Reason, want)
+	}
+	if opened := strings.Fields(string(marker))[0]; !strings.Contains(e.Reason, "opened the store at "+opened) {
+		t.Errorf("reason %q does not say when the unclosed run began (%s)", e.Reason, opened)
 	}
 	if len(e.Detail) != 8+32+8 || string(e.Detail[8:40]) != string(lastHash[:]) {
 		t.Errorf("detail does not hold the last entry's hash: %x", e.Detail)

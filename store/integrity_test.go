@@ -223,3 +223,31 @@ func TestTruncatedFileDetected(t *testing.T) {
 		}
 	}
 }
+
+// TestCheckQuickUnsignedTail: entries appended without the key by
+// someone who opened the file while the daemon was stopped are found by
+// the start-up check of the daemon that has the key.
+func TestCheckQuickUnsignedTail(t *testing.T) {
+	signer, _ := newSigner(t)
+	path, _ := buildSigned(t, signer)
+	// Written by a program without the key: the store as anyone could open it.
+	s, err := Open(filepath.Dir(path), Options{NoSync: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for range 3 {
+		if _, _, err := s.AppendAudit(context.Background(), AuditEntry{Actor: "intruder", Action: AuditConfigLoad}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	_ = s.Close()
+	d := openTest(t, filepath.Dir(path), Options{NoSync: true})
+	if err := d.UseAuditKey(context.Background(), signer, ""); err != nil {
+		t.Fatal(err)
+	}
+	err = d.CheckQuick(context.Background(), CheckOptions{Links: 8})
+	var ie *IntegrityError
+	if !errors.As(err, &ie) || ie.Faults[0].Kind != FaultSignature || !strings.Contains(ie.Faults[0].Detail, "not signed, though key "+signer.KeyID()) {
+		t.Fatalf("CheckQuick: %v", err)
+	}
+}

@@ -65,6 +65,13 @@ func (v *verifier) keyed(tx *bolt.Tx, opt VerifyOptions, from uint64) {
 		keys[KeyID(k)] = k
 	}
 	sc := &sigCheck{verifier: v, keys: keys}
+	if meta := tx.Bucket(bucketMeta); from > 1 && meta != nil {
+		// A partial walk starts after the key-change entry: take the key
+		// in force from where the store keeps it.
+		if id := meta.Get(metaAuditKey); len(id) == 8 {
+			sc.active = hex.EncodeToString(id)
+		}
+	}
 	sc.walk(tx, from)
 }
 
@@ -138,7 +145,7 @@ func (sc *sigCheck) entry(seq uint64, hash [32]byte, sig []byte) {
 		sc.good++
 		sc.last = seq
 		if sc.active != "" && id != sc.active {
-			sc.add("audit signatures: entry #%d is signed by key %s, but key %s is in force since entry #%d", seq, id, sc.active, sc.activeSince)
+			sc.add("audit signatures: entry #%d is signed by key %s, but key %s is in force", seq, id, sc.active)
 		}
 	}
 }
@@ -151,7 +158,11 @@ func (sc *sigCheck) flushGap() {
 	if sc.gapTo > sc.gapFrom {
 		what = fmt.Sprintf("entries #%d to #%d are", sc.gapFrom, sc.gapTo)
 	}
-	sc.add("audit signatures: %s not signed, though key %s is in force since entry #%d: written without the key, or rewritten", what, sc.active, sc.activeSince)
+	since := ""
+	if sc.activeSince > 0 {
+		since = fmt.Sprintf(" since entry #%d", sc.activeSince)
+	}
+	sc.add("audit signatures: %s not signed, though key %s is in force%s: written without the key, or rewritten", what, sc.active, since)
 	sc.gapFrom, sc.gapTo = 0, 0
 }
 

@@ -23,7 +23,9 @@ import (
 const AuditKeyChange = "audit-key"
 
 // metaAuditKey holds the id (8 bytes) of the key the chain was last
-// signed with, so that a start with another key records a rotation.
+// signed with and the number (8) of the entry that brought it in, so
+// that a start with another key records a rotation and a check of the
+// newest entries knows which of them must be signed.
 var metaAuditKey = []byte("audit_key")
 
 // maxPendingSign bounds the entries written before a key was set that the
@@ -115,25 +117,26 @@ func (s *Store) UseAuditKey(ctx context.Context, signer *AuditSigner, actor stri
 		meta := tx.Bucket(bucketMeta)
 		id, _ := hex.DecodeString(signer.id)
 		prev := meta.Get(metaAuditKey)
-		if string(prev) == string(id) {
+		if len(prev) >= 8 && string(prev[:8]) == string(id) {
 			return nil
 		}
 		detail := append([]byte{1}, id...)
 		detail = append(detail, signer.Public()...)
 		reason := "audit signing key " + signer.id + " in use"
-		if len(prev) == 8 {
-			detail = append(detail, prev...)
-			reason = "audit signing key rotated from " + hex.EncodeToString(prev) + " to " + signer.id
+		if len(prev) >= 8 {
+			detail = append(detail, prev[:8]...)
+			reason = "audit signing key rotated from " + hex.EncodeToString(prev[:8]) + " to " + signer.id
 		} else {
 			detail = append(detail, make([]byte, 8)...)
 		}
-		if _, _, err := appendAudit(tx, &AuditEntry{
+		seq, _, err := appendAudit(tx, &AuditEntry{
 			Time: time.Now().UTC(), Actor: actorOrSystem(actor), Action: AuditKeyChange,
 			Subject: signer.id, Reason: reason, Detail: detail,
-		}); err != nil {
+		})
+		if err != nil {
 			return err
 		}
-		return meta.Put(metaAuditKey, id)
+		return meta.Put(metaAuditKey, append(id, seqKey(seq)...))
 	})
 }
 

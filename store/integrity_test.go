@@ -2,6 +2,7 @@ package store
 
 import (
 	"context"
+	"crypto/ed25519"
 	"errors"
 	"os"
 	"path/filepath"
@@ -249,5 +250,29 @@ func TestCheckQuickUnsignedTail(t *testing.T) {
 	var ie *IntegrityError
 	if !errors.As(err, &ie) || ie.Faults[0].Kind != FaultSignature || !strings.Contains(ie.Faults[0].Detail, "not signed, though key "+signer.KeyID()) {
 		t.Fatalf("CheckQuick: %v", err)
+	}
+}
+
+// TestCheckQuickFirstKey: a store that ran long without a key and starts
+// signing passes the start-up check: the entries before the key are
+// covered by the first signature, not faults.
+func TestCheckQuickFirstKey(t *testing.T) {
+	signer, pub := newSigner(t)
+	s := quick(t)
+	ctx := context.Background()
+	for range 100 {
+		if _, _, err := s.AppendAudit(ctx, AuditEntry{Actor: "qa.reviewer", Action: AuditConfigLoad}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := s.UseAuditKey(ctx, signer, ""); err != nil {
+		t.Fatal(err)
+	}
+	appendOK(t, s, series("pc-hood", t0, 3))
+	if err := s.CheckQuick(ctx, CheckOptions{Links: 8}); err != nil {
+		t.Errorf("quick: %v", err)
+	}
+	if err := s.CheckFull(ctx, CheckOptions{Keys: []ed25519.PublicKey{pub}}); err != nil {
+		t.Errorf("full: %v", err)
 	}
 }

@@ -68,8 +68,10 @@ func (v *verifier) keyed(tx *bolt.Tx, opt VerifyOptions, from uint64) {
 	if meta := tx.Bucket(bucketMeta); from > 1 && meta != nil {
 		// A partial walk starts after the key-change entry: take the key
 		// in force from where the store keeps it.
-		if id := meta.Get(metaAuditKey); len(id) == 8 {
-			sc.active = hex.EncodeToString(id)
+		if v := meta.Get(metaAuditKey); len(v) == 16 {
+			if since, _ := keySeq(v[8:]); since < from {
+				sc.active, sc.activeSince = hex.EncodeToString(v[:8]), since
+			}
 		}
 	}
 	sc.walk(tx, from)

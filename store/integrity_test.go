@@ -276,3 +276,67 @@ func TestCheckQuickFirstKey(t *testing.T) {
 		t.Errorf("full: %v", err)
 	}
 }
+
+// TestCheckFullFindsChangedReading: a reading changed in place (its
+// checksum recomputed, nothing else) is found by the full check, without
+// a key.
+func TestCheckFullFindsChangedReading(t *testing.T) {
+	path, _ := buildSigned(t, nil)
+	db, err := bolt.Open(path, 0o600, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	err = db.Update(func(tx *bolt.Tx) error {
+		b := tx.Bucket(bucketReadings).Bucket([]byte("pc-asm-1"))
+		k, v := b.Cursor().First()
+		rd, err := decodeReading("pc-asm-1", k, v)
+		if err != nil {
+			return err
+		}
+		rd.Counts[0]++
+		return b.Put(k, encodeReading(k, &rd))
+	})
+	_ = db.Close()
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := openTest(t, filepath.Dir(path), Options{NoSync: true})
+	err = s.CheckFull(context.Background(), CheckOptions{})
+	var ie *IntegrityError
+	if !errors.As(err, &ie) || ie.Faults[0].Kind != FaultRecords || !strings.Contains(ie.Faults[0].Detail, "changed after they were stored") {
+		t.Fatalf("CheckFull: %v", err)
+	}
+}
+
+// TestUncleanStopSigned: the unclean-stop entry written at Open is signed
+// once the daemon sets its key, so a keyed verify finds nothing to say.
+func TestUncleanStopSigned(t *testing.T) {
+	signer, pub := newSigner(t)
+	path, _ := buildSigned(t, signer)
+	if err := os.WriteFile(filepath.Join(filepath.Dir(path), RunningMarker), []byte("2026-03-02T09:00:00Z pid 1\n"), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	s, err := Open(filepath.Dir(path), Options{NoSync: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := s.UseAuditKey(context.Background(), signer, ""); err != nil {
+		t.Fatal(err)
+	}
+	n := 0
+	_ = s.ScanAudit(1, 0, func(e AuditEntry) error {
+		if e.Action == AuditUncleanStop {
+			n++
+		}
+		return nil
+	})
+	if err := s.Close(); err != nil {
+		t.Fatal(err)
+	}
+	if n != 1 {
+		t.Fatalf("%d unclean-stop entries, want 1", n)
+	}
+	if p, err := VerifyWith(path, VerifyOptions{Keys: []ed25519.PublicKey{pub}}); err != nil || len(p) > 0 {
+		t.Errorf("keyed verify: %q %v", p, err)
+	}
+}

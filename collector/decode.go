@@ -343,7 +343,7 @@ func decodeErr(err error, i, line int, v any) error {
 	case errors.Is(err, errTrailing):
 		ie.Msg = errTrailing.Error() + ": send one object, one array, or NDJSON"
 	default:
-		ie.Msg = "reading the body failed"
+		ie.Msg = "reading the body failed: " + err.Error()
 	}
 	if ie.Field == "" && ie.Rule == RuleType {
 		ie.Msg = "each element must be a JSON object, not " + kindName(sem.JSONKind)

@@ -46,6 +46,9 @@ type signing struct {
 var signingByDB sync.Map // *bolt.DB → *signing
 
 func signingFor(db *bolt.DB) *signing {
+	if v, ok := signingByDB.Load(db); ok {
+		return v.(*signing)
+	}
 	v, _ := signingByDB.LoadOrStore(db, &signing{})
 	return v.(*signing)
 }

@@ -340,3 +340,29 @@ func TestUncleanStopSigned(t *testing.T) {
 		t.Errorf("keyed verify: %q %v", p, err)
 	}
 }
+
+func TestLastBackupAndKeyID(t *testing.T) {
+	s := quick(t)
+	if _, ok, err := s.LastBackup(); ok || err != nil {
+		t.Fatalf("a new store has a backup: %v %v", ok, err)
+	}
+	if id, ok := s.AuditKeyID(); ok {
+		t.Fatalf("signing without a key: %s", id)
+	}
+	target := filepath.Join(t.TempDir(), "nightly.db")
+	if _, err := s.BackupFile(target); err != nil {
+		t.Fatal(err)
+	}
+	appendOK(t, s, series("pc-gown", t0, 2))
+	e, ok, err := s.LastBackup()
+	if err != nil || !ok || e.Subject != target {
+		t.Fatalf("LastBackup: %+v %v %v, want %s", e, ok, err, target)
+	}
+	signer, _ := newSigner(t)
+	if err := s.UseAuditKey(context.Background(), signer, ""); err != nil {
+		t.Fatal(err)
+	}
+	if id, ok := s.AuditKeyID(); !ok || id != signer.KeyID() {
+		t.Errorf("AuditKeyID %s %v, want %s", id, ok, signer.KeyID())
+	}
+}

@@ -366,3 +366,29 @@ func TestLastBackupAndKeyID(t *testing.T) {
 		t.Errorf("AuditKeyID %s %v, want %s", id, ok, signer.KeyID())
 	}
 }
+
+// TestVerifyFileWithoutSignatureBucket: a file written before signatures
+// existed verifies clean without the key.
+func TestVerifyFileWithoutSignatureBucket(t *testing.T) {
+	path, _ := buildSigned(t, nil)
+	db, err := bolt.Open(path, 0o600, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	err = db.Update(func(tx *bolt.Tx) error { return tx.DeleteBucket(bucketAuditSig) })
+	_ = db.Close()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if p, err := Verify(path); err != nil || len(p) > 0 {
+		t.Errorf("Verify: %q %v", p, err)
+	}
+	s := openTest(t, filepath.Dir(path), Options{NoSync: true})
+	signer, pub := newSigner(t)
+	if err := s.UseAuditKey(context.Background(), signer, ""); err != nil {
+		t.Fatalf("signing an older file: %v", err)
+	}
+	if err := s.CheckFull(context.Background(), CheckOptions{Keys: []ed25519.PublicKey{pub}}); err != nil {
+		t.Errorf("CheckFull: %v", err)
+	}
+}

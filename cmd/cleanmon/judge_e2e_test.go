@@ -335,3 +335,61 @@ func TestJudgeScenarios(t *testing.T) {
 		}
 	})
 }
+
+// TestDemoFirstDayIsQuiet runs the demo as a user first meets it (`serve
+// --demo` backfills the last 24 h of the invented site) and checks that
+// its normal day reads as one: the door openings of the simulator are
+// counted, never alarm records; the trend rule raises fewer than 10
+// alarms; and no zone with an open alarm shows attention none.
+func TestDemoFirstDayIsQuiet(t *testing.T) {
+	d := startDaemon(t, "--demo", "--data", t.TempDir())
+	waitFor(t, 120*time.Second, "the demo backfill", func() bool { return strings.Contains(d.logs.String(), "demo backfill done") })
+	waitFor(t, 60*time.Second, "the judge to take the backfill", func() bool {
+		return metricValue(metricsText(t, d), "cleanmon_rules_queue") == 0
+	})
+	metrics := metricsText(t, d)
+	var all []judgedAlarm
+	getJSON(t, d, "/api/v1/alarms?state=all&since="+time.Now().UTC().Add(-26*time.Hour).Format(time.RFC3339), &all)
+	trend := 0
+	for _, a := range all {
+		switch a.Kind {
+		case "pressure-low":
+			t.Errorf("alarm record for a door opening: %+v", a)
+		case "trend":
+			trend++
+		}
+	}
+	if trend >= 10 {
+		t.Errorf("%d trend alarms in the demo's first day, want fewer than 10", trend)
+	}
+	// The simulator opens a door every 2 to 6 minutes at each DP sensor:
+	// the day has hundreds, counted.
+	doors := 0.0
+	for _, s := range []string{"dp-hood", "dp-asm", "dp-met", "dp-gown"} {
+		if v := metricValue(metrics, `cleanmon_door_openings_total{sensor="`+s+`"}`); v > 0 {
+			doors += v
+		}
+	}
+	if doors < 100 {
+		t.Errorf("%v door openings counted in a day, want the simulator's hundreds", doors)
+	}
+	var zones []judgedZone
+	getJSON(t, d, "/api/v1/zones", &zones)
+	var open []judgedAlarm
+	getJSON(t, d, "/api/v1/alarms?state=active", &open)
+	for _, z := range zones {
+		n := len(z.ActiveAlarms)
+		for _, a := range open {
+			if a.Zone == z.ID && a.State != "delayed" {
+				n++
+			}
+		}
+		if n > 0 && z.Attention == "none" {
+			t.Errorf("zone %s has open alarms and attention none: %+v", z.ID, z)
+		}
+		if v := metricValue(metrics, `cleanmon_zone_attention{level="`+z.Attention+`",zone="`+z.ID+`"}`); v != 1 {
+			t.Errorf("cleanmon_zone_attention of %s at %s is %v, want 1", z.ID, z.Attention, v)
+		}
+	}
+	t.Logf("demo day: %d alarm records, %d trend, %.0f door openings", len(all), trend, doors)
+}

@@ -21,8 +21,8 @@ import (
 // amReceiver stands in for the pager gateways behind Alertmanager: it
 // keeps every webhook notification per receiver path.
 type amReceiver struct {
-	mu   sync.Mutex
-	got  map[string][]amNotification
+	mu  sync.Mutex
+	got map[string][]amNotification
 }
 
 type amNotification struct {

@@ -44,6 +44,7 @@ type chunkReading struct {
 	ns     int64
 	shape  []byte
 	counts []uint64
+	head   bool // read from the head: its shape is not shared with other readings
 }
 
 // v1Value is the schema-1 value of the reading under key.

@@ -2,6 +2,7 @@ package store
 
 import (
 	"context"
+	"errors"
 	"math/rand/v2"
 	"reflect"
 	"sort"
@@ -104,14 +105,17 @@ func TestRollupsMatchRecomputation(t *testing.T) {
 		all = all[n:]
 	}
 	for _, c := range counters {
-		for _, step := range []time.Duration{time.Minute, time.Hour} {
+		// 1m and 15m come from the readings, 1h is kept, 2h adds hours.
+		for _, step := range []time.Duration{time.Minute, 15 * time.Minute, time.Hour, 2 * time.Hour} {
 			t.Run(c+"/"+step.String(), func(t *testing.T) {
 				compareRollups(t, rollupsAll(t, s, c, step), recompute(t, s, c, step))
 			})
 		}
 	}
-	if err := s.ScanRollups("pc-met", 5*time.Minute, time.Time{}, time.Time{}, func(Rollup) error { return nil }); err == nil {
-		t.Fatal("a 5m step was accepted")
+	for _, bad := range []time.Duration{7 * time.Minute, 90 * time.Second, 5 * time.Hour, 48 * time.Hour} {
+		if err := s.ScanRollups("pc-met", bad, time.Time{}, time.Time{}, func(Rollup) error { return nil }); !errors.Is(err, ErrInvalid) {
+			t.Fatalf("step %s: %v, want ErrInvalid", bad, err)
+		}
 	}
 }
 

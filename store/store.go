@@ -2,6 +2,7 @@ package store
 
 import (
 	"bytes"
+	"context"
 	"encoding/binary"
 	"errors"
 	"fmt"
@@ -48,11 +49,16 @@ type Options struct {
 	// MaxBytes caps the data in the file (0: no cap). A commit that
 	// needs more fails with ErrDiskFull, like a full disk.
 	MaxBytes int64 `yaml:"max_bytes"`
+	// CompactEvery is how often a background pass moves head readings
+	// into chunks (0: DefaultCompactEvery; negative: never, Close and
+	// Compact still do).
+	CompactEvery time.Duration `yaml:"compact_every"`
 	// Logger receives the rare events the caller cannot see in a return
 	// value (a damaged rollup rebuilt, a recovered panic). Nil: discarded.
 	Logger *slog.Logger `yaml:"-"`
 
-	commit commitMode // how writes share transactions (tests, benchmarks)
+	commit   commitMode // how writes share transactions (tests, benchmarks)
+	keepHead bool       // tests: Close leaves the head as it is
 }
 
 // Store is an open database. Its methods are safe for concurrent use.
@@ -68,6 +74,8 @@ type Store struct {
 
 	reqs          chan *request
 	committerDone chan struct{}
+	compactStop   chan struct{}
+	compactDone   chan struct{}
 	commits       atomic.Uint64 // write transactions committed for grouped calls
 	lastBatchTx   atomic.Pointer[bolt.Tx]
 	beforeCommit  func() // test hook: runs before a group is collected; set before the first write
@@ -120,7 +128,19 @@ func Open(dir string, opt Options) (*Store, error) {
 		_ = db.Close()
 		return nil, err
 	}
+	if err := s.upgrade(); err != nil {
+		_ = db.Close()
+		return nil, err
+	}
 	go s.committer()
+	every := opt.CompactEvery
+	if every == 0 {
+		every = DefaultCompactEvery
+	}
+	if every > 0 {
+		s.compactStop, s.compactDone = make(chan struct{}), make(chan struct{})
+		go s.compactor(every, s.compactStop, s.compactDone)
+	}
 	return s, nil
 }
 
@@ -141,6 +161,17 @@ func (s *Store) Close() error {
 	s.inflight.Wait()
 	close(s.reqs)
 	<-s.committerDone
+	if s.compactStop != nil {
+		close(s.compactStop)
+		<-s.compactDone
+	}
+	// A clean stop leaves the head empty: the store at rest is all chunks.
+	if s.opt.keepHead {
+		return s.db.Close()
+	}
+	if _, err := s.compact(context.Background(), 1); err != nil {
+		s.log.Error("store: compaction at close failed; readings stay in the head", "error", err.Error())
+	}
 	return s.db.Close()
 }
 
@@ -322,7 +353,7 @@ func checkSchema(meta *bolt.Bucket) error {
 // daemon reads first after a restart, checked before it acknowledges
 // anything.
 func probeLatest(tx *bolt.Tx) error {
-	for _, kind := range [][]byte{bucketReadings, bucketPressure, bucketRollup1m, bucketRollup1h, bucketOpState} {
+	for _, kind := range [][]byte{bucketReadings, bucketPressure, bucketRollup1h, bucketOpState} {
 		root := tx.Bucket(kind)
 		if root == nil {
 			continue
@@ -341,8 +372,6 @@ func probeLatest(tx *bolt.Tx) error {
 				_, err = decodePressure(string(name), k, v)
 			case bytes.Equal(kind, bucketOpState):
 				_, err = decodeOpState(string(name), k, v)
-			case bytes.Equal(kind, bucketRollup1m):
-				_, err = decodeRollup(string(name), time.Minute, k, v)
 			default:
 				_, err = decodeRollup(string(name), time.Hour, k, v)
 			}

@@ -3,6 +3,7 @@ package store
 import (
 	"bytes"
 	"context"
+	"errors"
 	"encoding/binary"
 	"fmt"
 	"math"
@@ -15,6 +16,9 @@ import (
 // year of expiry neither holds the writer lock for long nor builds a huge
 // transaction; appends run between chunks.
 const sweepChunk = 20000
+
+// minSweepChunk is the smallest chunk Sweep falls back to on a full file.
+const minSweepChunk = 64
 
 // SweepResult reports what a Sweep deleted.
 type SweepResult struct {
@@ -50,14 +54,15 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 	if before.Before(maxTime) {
 		limit = before.UnixNano()
 	}
-	for first := true; ; first = false {
+	size, first := sweepChunk, true
+	for {
 		if err := ctx.Err(); err != nil {
 			return res, err
 		}
 		var readings, pressure, rollups, alarms int
-		budget := sweepChunk
+		budget := size
 		err := s.update(func(tx *bolt.Tx) error {
-			readings, pressure, rollups, alarms, budget = 0, 0, 0, 0, sweepChunk
+			readings, pressure, rollups, alarms, budget = 0, 0, 0, 0, size
 			if first {
 				meta := tx.Bucket(bucketMeta)
 				if old, ok := keyNanos(meta.Get(metaSweptBefore)); !ok || old < limit {
@@ -70,6 +75,11 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 			if readings, err = sweepKind(tx.Bucket(bucketReadings), limit, &budget); err != nil {
 				return err
 			}
+			chunked, err := sweepChunks(tx.Bucket(bucketChunks), limit, &budget)
+			if err != nil {
+				return err
+			}
+			readings += chunked
 			if pressure, err = sweepKind(tx.Bucket(bucketPressure), limit, &budget); err != nil {
 				return err
 			}
@@ -89,9 +99,16 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 			}
 			return auditSweep(tx, limit, readings, pressure, rollups, alarms)
 		})
+		if errors.Is(err, ErrDiskFull) && size > minSweepChunk {
+			// A full file has no room for the pages a large chunk
+			// rewrites; smaller chunks free space step by step.
+			size /= 4
+			continue
+		}
 		if err != nil {
 			return res, err
 		}
+		first = false
 		res.Readings += readings
 		res.Pressure += pressure
 		res.Rollups += rollups

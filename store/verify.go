@@ -145,6 +145,7 @@ func (v *verifier) run(tx *bolt.Tx) error {
 		_, err := decodeReading(name, k, val)
 		return err
 	})
+	v.chunks(tx)
 	v.walk(tx, bucketPressure, func(name string, k, val []byte) error {
 		_, err := decodePressure(name, k, val)
 		return err
@@ -214,8 +215,8 @@ func (v *verifier) walkSeries(kind, name []byte, b *bolt.Bucket, decode func(nam
 // rollupCounts compares every rollup bucket's sample count with the
 // readings that fall in it, in both directions.
 func (v *verifier) rollupCounts(tx *bolt.Tx, kind []byte, step time.Duration) {
-	readings, rollups := tx.Bucket(bucketReadings), tx.Bucket(kind)
-	if readings == nil || rollups == nil {
+	rollups := tx.Bucket(kind)
+	if tx.Bucket(bucketReadings) == nil || rollups == nil {
 		return
 	}
 	samples := func(b *bolt.Bucket, start int64) (uint64, bool) {
@@ -235,9 +236,8 @@ func (v *verifier) rollupCounts(tx *bolt.Tx, kind []byte, step time.Duration) {
 		n := d.uvarint("Samples")
 		return n, d.err == nil
 	}
-	_ = readings.ForEachBucket(func(name []byte) error {
-		rb := rollups.Bucket(name)
-		c := readings.Bucket(name).Cursor()
+	for _, name := range readingCounters(tx) {
+		rb := rollups.Bucket([]byte(name))
 		var start int64 = -1
 		var count uint64
 		report := func() {
@@ -252,33 +252,28 @@ func (v *verifier) rollupCounts(tx *bolt.Tx, kind []byte, step time.Duration) {
 				v.add("%s rollup of counter %q at %s counts %d samples, the bucket holds %d readings", step, name, keyString(nanosKey(start)), got, count)
 			}
 		}
-		for k, _ := c.First(); k != nil; k, _ = c.Next() {
-			ns, ok := keyNanos(k)
-			if !ok {
-				continue // reported by walk
-			}
+		forEachReadingKey(tx, name, func(ns int64) {
 			if b := ns - ns%int64(step); b != start {
 				report()
 				start, count = b, 0
 			}
 			count++
-		}
+		})
 		report()
-		return nil
-	})
+	}
 	_ = rollups.ForEachBucket(func(name []byte) error {
-		rb := readings.Bucket(name)
 		c := rollups.Bucket(name).Cursor()
 		for k, _ := c.First(); k != nil; k, _ = c.Next() {
 			start, ok := keyNanos(k)
 			if !ok || start < v.sweptBefore {
 				continue
 			}
-			var rk []byte
-			if rb != nil {
-				rk, _ = rb.Cursor().Seek(k)
+			found := false
+			it := newReadingIter(tx, string(name), start, start+int64(step))
+			if _, ok := it.next(); ok {
+				found = true
 			}
-			if rk == nil || bytes.Compare(rk, nanosKey(start+int64(step))) >= 0 {
+			if !found && it.err == nil {
 				v.add("%s rollup of counter %q at %s has no readings in its bucket", step, name, keyString(k))
 			}
 		}

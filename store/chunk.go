@@ -26,7 +26,7 @@ import (
 // reading lives, not what Verify checks it against.
 //
 // The whole-chunk CRC finds any change; the tag of each reading (the low
-// byte of the CRC-32C of its schema-1 value) names which reading changed,
+// byte of its schema-1 value's CRC-32C) names which reading changed,
 // missing one change in 256. The audit digests catch that one as well.
 const (
 	codecChunk = 2
@@ -97,7 +97,10 @@ func shapeChannels(b []byte) (nch, n int, err error) {
 	return len(sizes), len(b) - len(d.b), nil
 }
 
-func tagOf(v1 []byte) byte { return byte(crc32.Checksum(v1, crcTable)) }
+// tagOf is the low byte of a schema-1 value's own CRC-32C (over its key
+// and body). Not a CRC over the sealed value: that is the same constant
+// for every value, the residue of a CRC.
+func tagOf(v1 []byte) byte { return v1[len(v1)-crcLen] }
 
 // encodeChunk encodes readings in strictly ascending time; key is the
 // 8-byte time of the last.

@@ -248,4 +248,3 @@ func readingCounters(tx *bolt.Tx) []string {
 	slices.Sort(out)
 	return out
 }
-

@@ -3,8 +3,8 @@ package store
 import (
 	"bytes"
 	"context"
-	"errors"
 	"encoding/binary"
+	"errors"
 	"fmt"
 	"math"
 	"time"

@@ -27,6 +27,10 @@ const (
 	// compactTxReadings bounds the readings one compaction transaction
 	// moves, so that appends wait for it a few tens of milliseconds at most.
 	compactTxReadings = 32 << 10
+	// compactKick is how many readings appended since the last pass wake
+	// the compactor early, whatever the timer: the head's pages are freed
+	// and reused rather than growing the file, which bbolt never shrinks.
+	compactKick = 64 << 10
 )
 
 // CompactResult reports what a compaction pass moved.
@@ -237,13 +241,30 @@ func (s *Store) compactor(every time.Duration, stop <-chan struct{}, done chan<-
 	t := time.NewTicker(every)
 	defer t.Stop()
 	for {
+		minHead := compactMinHead
 		select {
 		case <-stop:
 			return
 		case <-t.C:
-			if _, err := s.compact(context.Background(), compactMinHead); err != nil {
-				s.log.Error("store: background compaction failed; readings stay in the head", "error", err.Error())
-			}
+		case <-s.kick:
+			minHead = 1
+		}
+		s.sinceCompact.Store(0)
+		if _, err := s.compact(context.Background(), minHead); err != nil {
+			s.log.Error("store: background compaction failed; readings stay in the head", "error", err.Error())
+		}
+	}
+}
+
+// noteAppended counts stored readings towards the next early pass.
+func (s *Store) noteAppended(n int) {
+	if s.kick == nil || n == 0 {
+		return
+	}
+	if s.sinceCompact.Add(int64(n)) >= compactKick {
+		select {
+		case s.kick <- struct{}{}:
+		default:
 		}
 	}
 }

@@ -194,6 +194,7 @@ func (s *Store) appendReadings(ctx context.Context, rs []Reading, mark bool) (ac
 	if err != nil {
 		return 0, 0, nil, err
 	}
+	s.noteAppended(acc)
 	return acc, dup, stored, nil
 }
 

@@ -76,6 +76,8 @@ type Store struct {
 	committerDone chan struct{}
 	compactStop   chan struct{}
 	compactDone   chan struct{}
+	kick          chan struct{} // wakes the compactor early; nil when it does not run
+	sinceCompact  atomic.Int64  // readings stored since the last pass began
 	commits       atomic.Uint64 // write transactions committed for grouped calls
 	lastBatchTx   atomic.Pointer[bolt.Tx]
 	beforeCommit  func() // test hook: runs before a group is collected; set before the first write
@@ -138,7 +140,7 @@ func Open(dir string, opt Options) (*Store, error) {
 		every = DefaultCompactEvery
 	}
 	if every > 0 {
-		s.compactStop, s.compactDone = make(chan struct{}), make(chan struct{})
+		s.compactStop, s.compactDone, s.kick = make(chan struct{}), make(chan struct{}), make(chan struct{}, 1)
 		go s.compactor(every, s.compactStop, s.compactDone)
 	}
 	return s, nil

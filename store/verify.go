@@ -7,6 +7,7 @@ import (
 	"os"
 	"path/filepath"
 	"runtime/debug"
+	"slices"
 	"strings"
 	"time"
 
@@ -236,14 +237,21 @@ func (v *verifier) rollupCounts(tx *bolt.Tx, kind []byte, step time.Duration) {
 		n := d.uvarint("Samples")
 		return n, d.err == nil
 	}
-	for _, name := range readingCounters(tx) {
+	names := readingCounters(tx)
+	for _, name := range names {
 		rb := rollups.Bucket([]byte(name))
-		var start int64 = -1
-		var count uint64
-		report := func() {
-			if start < 0 || start < v.sweptBefore {
-				return
+		counts := map[int64]uint64{}
+		forEachReadingKey(tx, name, func(ns int64) { counts[ns-ns%int64(step)]++ })
+		starts := make([]int64, 0, len(counts))
+		for start := range counts {
+			starts = append(starts, start)
+		}
+		slices.Sort(starts)
+		for _, start := range starts {
+			if start < v.sweptBefore {
+				continue
 			}
+			count := counts[start]
 			got, ok := samples(rb, start)
 			switch {
 			case !ok && (rb == nil || rb.Get(nanosKey(start)) == nil):
@@ -252,28 +260,23 @@ func (v *verifier) rollupCounts(tx *bolt.Tx, kind []byte, step time.Duration) {
 				v.add("%s rollup of counter %q at %s counts %d samples, the bucket holds %d readings", step, name, keyString(nanosKey(start)), got, count)
 			}
 		}
-		forEachReadingKey(tx, name, func(ns int64) {
-			if b := ns - ns%int64(step); b != start {
-				report()
-				start, count = b, 0
+		if rb == nil {
+			continue
+		}
+		c := rb.Cursor()
+		for k, _ := c.First(); k != nil; k, _ = c.Next() {
+			if start, ok := keyNanos(k); ok && start >= v.sweptBefore && counts[start] == 0 {
+				v.add("%s rollup of counter %q at %s has no readings in its bucket", step, name, keyString(k))
 			}
-			count++
-		})
-		report()
+		}
 	}
 	_ = rollups.ForEachBucket(func(name []byte) error {
+		if slices.Contains(names, string(name)) {
+			return nil
+		}
 		c := rollups.Bucket(name).Cursor()
 		for k, _ := c.First(); k != nil; k, _ = c.Next() {
-			start, ok := keyNanos(k)
-			if !ok || start < v.sweptBefore {
-				continue
-			}
-			found := false
-			it := newReadingIter(tx, string(name), start, start+int64(step))
-			if _, ok := it.next(); ok {
-				found = true
-			}
-			if !found && it.err == nil {
+			if start, ok := keyNanos(k); ok && start >= v.sweptBefore {
 				v.add("%s rollup of counter %q at %s has no readings in its bucket", step, name, keyString(k))
 			}
 		}

@@ -176,16 +176,16 @@ func (a *auditCheck) records(e *AuditEntry, cv *covered) {
 	for _, r := range cv.recs {
 		name := cv.names[r.name]
 		key := seqKey(uint64(r.key))
-		b := root
-		if cv.kind != coverJournal {
-			b = root.Bucket([]byte(name))
-		}
 		var val []byte
-		switch {
-		case cv.kind == coverReadings:
+		switch cv.kind {
+		case coverReadings: // head or chunk, without a bucket lookup per record
 			val = a.chunked.value(name, key)
-		case b != nil:
-			val = b.Get(key)
+		case coverJournal:
+			val = root.Get(key)
+		default:
+			if b := root.Bucket([]byte(name)); b != nil {
+				val = b.Get(key)
+			}
 		}
 		if val == nil {
 			compare = false

@@ -96,8 +96,9 @@ func (v *verifier) chunkReadings(counter string, head *bolt.Bucket, rs []chunkRe
 // the last chunk of each counter decoded: the readings an audit entry
 // lists come in time order per counter.
 type chunkCache struct {
-	tx *bolt.Tx
-	m  map[string]*cachedChunk
+	tx   *bolt.Tx
+	m    map[string]*cachedChunk
+	head map[string]*bolt.Bucket // read transactions do not cache nested buckets
 }
 
 type cachedChunk struct {
@@ -106,29 +107,44 @@ type cachedChunk struct {
 }
 
 func newChunkCache(tx *bolt.Tx) *chunkCache {
-	return &chunkCache{tx: tx, m: map[string]*cachedChunk{}}
+	return &chunkCache{tx: tx, m: map[string]*cachedChunk{}, head: map[string]*bolt.Bucket{}}
 }
 
 // value returns the schema-1 value of counter's reading at key, from the
 // head or a chunk, or nil. A chunk that does not decode gives nil (the
 // walk of the chunks reports it).
 func (cc *chunkCache) value(counter string, key []byte) []byte {
-	if b := cc.tx.Bucket(bucketReadings).Bucket([]byte(counter)); b != nil {
-		if v := b.Get(key); v != nil {
-			return v
-		}
-	}
 	ns, ok := keyNanos(key)
 	if !ok {
 		return nil
 	}
+	// The cached chunk first: after compaction nearly every reading is in
+	// one, and a head lookup per reading would cost a tree search.
+	if ch := cc.m[counter]; ch != nil && ns >= ch.first && ns <= ch.last {
+		if v := ch.find(key, ns); v != nil {
+			return v
+		}
+	}
+	b, seen := cc.head[counter]
+	if !seen {
+		b = cc.tx.Bucket(bucketReadings).Bucket([]byte(counter))
+		cc.head[counter] = b
+	}
+	if b != nil {
+		if v := b.Get(key); v != nil {
+			return v
+		}
+	}
 	ch := cc.m[counter]
 	if ch == nil || ns < ch.first || ns > ch.last {
-		ch = cc.load(counter, key)
-		if ch == nil {
+		if ch = cc.load(counter, key); ch == nil {
 			return nil
 		}
 	}
+	return ch.find(key, ns)
+}
+
+func (ch *cachedChunk) find(key []byte, ns int64) []byte {
 	i := sort.Search(len(ch.rs), func(i int) bool { return ch.rs[i].ns >= ns })
 	if i == len(ch.rs) || ch.rs[i].ns != ns {
 		return nil

@@ -248,9 +248,14 @@ func decodeChunkBody(body []byte, last int64) ([]chunkReading, []byte, error) {
 			d.fail("shape of reading %d: %v", i, err)
 			break
 		}
-		for range run {
+		if uint64(nch)*run > maxChunkReadings*maxChannels {
+			d.fail("shape run of %d readings × %d channels", run, nch)
+			break
+		}
+		backing := make([]uint64, nch*int(run)) // one allocation per run
+		for k := range int(run) {
 			rs[i].shape = shape
-			rs[i].counts = make([]uint64, nch)
+			rs[i].counts = backing[k*nch : (k+1)*nch : (k+1)*nch]
 			i++
 		}
 	}
@@ -275,6 +280,42 @@ func decodeChunkBody(body []byte, last int64) ([]chunkReading, []byte, error) {
 		return nil, nil, d.err
 	}
 	return rs, d.b, nil
+}
+
+// chunkTimes decodes only the times of a chunk (Verify counts readings
+// without their values); nil when they do not decode.
+func chunkTimes(key, v []byte) []int64 {
+	last, ok := keyNanos(key)
+	if !ok || len(v) < 1+crcLen || v[0] != codecChunk {
+		return nil
+	}
+	d := decoder{b: v[1 : len(v)-crcLen]}
+	n := d.uvarint("n")
+	if d.err != nil || n == 0 || n > maxChunkReadings {
+		return nil
+	}
+	out := make([]int64, 1, n)
+	out[0] = d.varint("first time")
+	runs := d.uvarint("time runs")
+	var delta int64
+	for r := uint64(0); r < runs && d.err == nil; r++ {
+		dod, run := d.varint("time"), d.uvarint("time run")
+		if run == 0 || run > n-uint64(len(out)) {
+			return nil
+		}
+		for range run {
+			delta += dod
+			next := out[len(out)-1] + delta
+			if delta <= 0 || next <= out[len(out)-1] {
+				return nil
+			}
+			out = append(out, next)
+		}
+	}
+	if d.err != nil || uint64(len(out)) != n || out[len(out)-1] != last {
+		return nil
+	}
+	return out
 }
 
 // toReading turns a chunk reading into a Reading, checking it as the head

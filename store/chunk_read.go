@@ -137,6 +137,25 @@ func (it *readingIter) advanceHead() {
 	it.headCheck()
 }
 
+// shared is reading without copies: Sizes is the run's own slice, shared
+// by the readings of the run. For StreamReadings only.
+func (it *readingIter) shared(cr *chunkReading) (Reading, error) {
+	var id *byte
+	if len(cr.shape) > 0 && !cr.head {
+		id = &cr.shape[0]
+	}
+	tpl, ok := it.template[id]
+	if !ok || id == nil || tpl.Differential {
+		return it.reading(cr)
+	}
+	tpl.Time = nsTime(cr.ns)
+	tpl.Counts = cr.counts
+	if len(tpl.Counts) != len(tpl.Sizes) {
+		return it.reading(cr)
+	}
+	return tpl, nil
+}
+
 // reading turns cr into a checked Reading. The shape of a run is decoded
 // and checked once; later readings of the run copy it.
 func (it *readingIter) reading(cr *chunkReading) (Reading, error) {
@@ -161,7 +180,7 @@ func (it *readingIter) reading(cr *chunkReading) (Reading, error) {
 	r := tpl
 	r.Time = nsTime(cr.ns)
 	r.Sizes = append([]float64(nil), tpl.Sizes...)
-	r.Counts = append([]uint64(nil), cr.counts...)
+	r.Counts = cr.counts // decoded afresh for this scan: not shared with any other reading
 	if len(r.Counts) != len(r.Sizes) {
 		return r, fmt.Errorf("%w: reading of counter %q at %s: %d counts for %d sizes", ErrCorrupt, it.counter, keyString(nanosKey(cr.ns)), len(r.Counts), len(r.Sizes))
 	}

@@ -410,3 +410,31 @@ func TestSchema1StoreOpens(t *testing.T) {
 		t.Fatalf("schema %d after the upgrade", ver)
 	}
 }
+
+// TestStreamReadingsMatchesScan: the streaming scan gives the same
+// readings as ScanReadings, head and chunks, channels changing mid-way.
+func TestStreamReadingsMatchesScan(t *testing.T) {
+	s := quick(t)
+	rs := series("pc-met", t0, 3000)
+	for i := 1500; i < len(rs); i++ {
+		rs[i].Sizes = []float64{0.5, 5}
+		rs[i].Counts = rs[i].Counts[:2]
+	}
+	appendOK(t, s, rs[:2500])
+	compactOK(t, s)
+	appendOK(t, s, rs[2500:])
+	var got []Reading
+	err := s.StreamReadings("pc-met", time.Time{}, time.Time{}, func(r *Reading) error {
+		c := *r
+		c.Sizes = append([]float64(nil), r.Sizes...)
+		c.Counts = append([]uint64(nil), r.Counts...)
+		got = append(got, c)
+		return nil
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if want := scanAll(t, s, "pc-met", time.Time{}, time.Time{}); !reflect.DeepEqual(got, want) || len(got) != len(rs) {
+		t.Fatalf("streamed %d readings, scanned %d, differ", len(got), len(want))
+	}
+}

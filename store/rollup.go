@@ -252,7 +252,16 @@ func (s *Store) ScanRollups(counter string, step time.Duration, from, to time.Ti
 		}
 		// The partial hours at either edge come from the readings; the
 		// whole hours between from the kept rollups. A bucket that spans
-		// an edge gathers both before it is sent.
+		// an edge gathers both before it is sent; hours go straight out.
+		if step == time.Hour {
+			if err := rawRollups(tx, counter, step, loN, first, emit); err != nil {
+				return err
+			}
+			if err := keptRollups(tx, counter, first, last, emit); err != nil {
+				return err
+			}
+			return rawRollups(tx, counter, step, last, hiN, emit)
+		}
 		agg := &rollupRows{step: step, lo: loN, hi: hiN, emit: emit}
 		if err := rawRollups(tx, counter, time.Hour, loN, first, agg.add); err != nil {
 			return err

@@ -206,10 +206,9 @@ func forEachReadingKey(tx *bolt.Tx, counter string, fn func(ns int64)) {
 	}
 	if cc != nil {
 		for k, v := cc.First(); k != nil; k, v = cc.Next() {
-			rs, _, _ := decodeChunk(counter, k, v)
-			for i := range rs {
-				headUpTo(rs[i].ns - 1)
-				fn(rs[i].ns)
+			for _, ns := range chunkTimes(k, v) {
+				headUpTo(ns - 1)
+				fn(ns)
 			}
 		}
 	}

@@ -24,6 +24,8 @@ const minSweepChunk = 64
 type SweepResult struct {
 	Before                      time.Time
 	Readings, Pressure, Rollups int
+	// Environment counts the environment samples deleted.
+	Environment int
 	// Alarms counts the snapshots of cleared alarms removed.
 	Alarms int
 }
@@ -59,10 +61,10 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 		if err := ctx.Err(); err != nil {
 			return res, err
 		}
-		var readings, pressure, rollups, alarms int
+		var readings, pressure, rollups, alarms, env int
 		budget := size
 		err := s.update(func(tx *bolt.Tx) error {
-			readings, pressure, rollups, alarms, budget = 0, 0, 0, 0, size
+			readings, pressure, rollups, alarms, env, budget = 0, 0, 0, 0, 0, size
 			if first {
 				meta := tx.Bucket(bucketMeta)
 				if old, ok := keyNanos(meta.Get(metaSweptBefore)); !ok || old < limit {
@@ -83,6 +85,9 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 			if pressure, err = sweepKind(tx.Bucket(bucketPressure), limit, &budget); err != nil {
 				return err
 			}
+			if env, err = sweepKind(tx.Bucket(bucketEnvironment), limit, &budget); err != nil {
+				return err
+			}
 			for _, st := range rollupSteps {
 				lim := limit - int64(st.step) + 1 // Start+Step ≤ before
 				if lim <= 0 {
@@ -97,7 +102,7 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 			if alarms, err = s.sweepAlarms(tx, limit, &budget); err != nil {
 				return err
 			}
-			return auditSweep(tx, limit, readings, pressure, rollups, alarms)
+			return auditSweep(tx, limit, readings, pressure, rollups, alarms, env)
 		})
 		if errors.Is(err, ErrDiskFull) && size > minSweepChunk {
 			// A full file has no room for the pages a large chunk
@@ -113,6 +118,7 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 		res.Pressure += pressure
 		res.Rollups += rollups
 		res.Alarms += alarms
+		res.Environment += env
 		if budget > 0 {
 			return res, nil
 		}
@@ -200,18 +206,27 @@ func (s *Store) sweepAlarms(tx *bolt.Tx, limit int64, budget *int) (int, error) 
 
 // auditSweep chains the entry of one Sweep chunk. Detail:
 //
-//	8-byte horizon (Unix ns) | uvarint readings, pressure, rollups, alarms
-func auditSweep(tx *bolt.Tx, limit int64, readings, pressure, rollups, alarms int) error {
+//	8-byte horizon (Unix ns) | uvarint readings, pressure, rollups, alarms, environment samples
+func auditSweep(tx *bolt.Tx, limit int64, readings, pressure, rollups, alarms, env int) error {
 	d := binary.BigEndian.AppendUint64(nil, uint64(limit))
-	for _, n := range []int{readings, pressure, rollups, alarms} {
+	for _, n := range []int{readings, pressure, rollups, alarms, env} {
 		d = binary.AppendUvarint(d, uint64(n))
 	}
 	_, _, err := appendAudit(tx, &AuditEntry{
 		Time: time.Now().UTC(), Actor: AuditActorSystem, Action: AuditSweep,
 		Subject: "before " + nsTime(limit).Format(time.RFC3339Nano),
-		Reason: fmt.Sprintf("retention: %d readings, %d pressure samples, %d rollups, %d cleared alarms deleted",
-			readings, pressure, rollups, alarms),
+		Reason: fmt.Sprintf("retention: %d readings, %d pressure samples, %d rollups, %d cleared alarms deleted%s",
+			readings, pressure, rollups, alarms, envNote(env)),
 		Detail: d,
 	})
 	return err
+}
+
+// envNote adds environment samples to a sweep's reason when there were
+// any, so that the wording of older entries stays as it was.
+func envNote(n int) string {
+	if n == 0 {
+		return ""
+	}
+	return fmt.Sprintf(", %d environment samples deleted", n)
 }

@@ -147,6 +147,10 @@ func (v *verifier) run(tx *bolt.Tx) error {
 		return err
 	})
 	v.chunks(tx)
+	v.walk(tx, bucketEnvironment, func(name string, k, val []byte) error {
+		_, err := decodeEnv(name, k, val)
+		return err
+	})
 	v.walk(tx, bucketPressure, func(name string, k, val []byte) error {
 		_, err := decodePressure(name, k, val)
 		return err

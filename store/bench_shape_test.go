@@ -2,6 +2,7 @@ package store
 
 import (
 	"context"
+
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -10,6 +11,8 @@ import (
 	"sync"
 	"testing"
 	"time"
+
+	bolt "go.etcd.io/bbolt"
 )
 
 // The site shape the store is sized for: 200 counters, one reading a
@@ -105,6 +108,7 @@ func BenchmarkSiteShape(b *testing.B) {
 			b.Fatal(err)
 		}
 		size := fileSize(b, dir)
+		inUse := reportBuckets(b, dir, len(rs))
 		begin := time.Now()
 		problems, err := Verify(dir)
 		if err != nil || len(problems) != 0 {
@@ -113,7 +117,30 @@ func BenchmarkSiteShape(b *testing.B) {
 		b.ReportMetric(float64(len(rs))/time.Since(begin).Seconds(), "verified-readings/s")
 		b.ReportMetric(rate, "durable-readings/s")
 		b.ReportMetric(float64(size)/float64(len(rs)), "bytes/reading")
+		b.ReportMetric(float64(inUse)/float64(len(rs)), "inuse-bytes/reading")
 	}
+}
+
+// reportBuckets logs the bytes each top-level bucket's pages hold per
+// reading, and returns the bytes in use: the rest of the file is free
+// pages (the head's high-water mark) and bbolt's growth allowance.
+func reportBuckets(tb testing.TB, dir string, readings int) int64 {
+	db, err := bolt.Open(filepath.Join(dir, FileName), 0o600, &bolt.Options{ReadOnly: true})
+	if err != nil {
+		tb.Fatal(err)
+	}
+	defer db.Close()
+	var total int64
+	_ = db.View(func(tx *bolt.Tx) error {
+		return tx.ForEach(func(name []byte, b *bolt.Bucket) error {
+			st := b.Stats()
+			n := int64(st.BranchAlloc + st.LeafAlloc)
+			total += n
+			tb.Logf("%-20s %8.2f bytes/reading (%d bytes in pages)", name, float64(n)/float64(readings), n)
+			return nil
+		})
+	})
+	return total
 }
 
 // BenchmarkYearBytes reports the bytes per reading of the year store (one

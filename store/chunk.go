@@ -45,6 +45,8 @@ type chunkReading struct {
 	shape  []byte
 	counts []uint64
 	head   bool // read from the head: its shape is not shared with other readings
+	tag    byte // tagOf its schema-1 value, once known (hasTag)
+	hasTag bool
 }
 
 // v1Value is the schema-1 value of the reading under key.
@@ -137,7 +139,11 @@ func encodeChunk(key []byte, rs []chunkReading) []byte {
 		last = r.counts
 	}
 	for _, r := range rs {
-		b = append(b, tagOf(r.v1Value(nanosKey(r.ns))))
+		if r.hasTag {
+			b = append(b, r.tag)
+		} else {
+			b = append(b, tagOf(r.v1Value(nanosKey(r.ns))))
+		}
 	}
 	return seal(key, b)
 }

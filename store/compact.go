@@ -137,7 +137,7 @@ func compactCounter(tx *bolt.Tx, counter string) (moved, chunks int, err error) 
 			return 0, 0, fmt.Errorf("%w: reading of counter %q at %s: %v", ErrCorrupt, counter, keyString(k), err)
 		}
 		// Copies: the values live in pages this transaction rewrites.
-		fresh = append(fresh, chunkReading{ns: ns, shape: append([]byte(nil), shape...), counts: counts})
+		fresh = append(fresh, chunkReading{ns: ns, shape: append([]byte(nil), shape...), counts: counts, tag: tagOf(v), hasTag: true})
 		headKeys = append(headKeys, append([]byte(nil), k...))
 	}
 	if len(fresh) == 0 {
@@ -179,6 +179,13 @@ func compactCounter(tx *bolt.Tx, counter string) (moved, chunks int, err error) 
 			return 0, 0, err
 		}
 	}
+	if k, _ := head.Cursor().First(); k == nil {
+		// An empty nested bucket still takes a page; the next append
+		// creates it again.
+		if err := tx.Bucket(bucketReadings).DeleteBucket([]byte(counter)); err != nil {
+			return 0, 0, err
+		}
+	}
 	return len(fresh), chunks, nil
 }
 
@@ -199,12 +206,14 @@ func chunksFrom(cb *bolt.Bucket, counter string, ns int64) ([]chunkReading, [][]
 	var out []chunkReading
 	var keys [][]byte
 	for ; k != nil; k, v = c.Next() {
-		rs, _, err := decodeChunk(counter, k, v)
+		rs, tags, err := decodeChunk(counter, k, v)
 		if err != nil {
 			return nil, nil, err
 		}
+		// The checksum held, so the stored tags are the readings' own.
 		for i := range rs {
 			rs[i].shape = append([]byte(nil), rs[i].shape...)
+			rs[i].tag, rs[i].hasTag = tags[i], true
 		}
 		out = append(out, rs...)
 		keys = append(keys, append([]byte(nil), k...))

@@ -38,6 +38,9 @@ var initialMmap = func() int {
 	return 64 << 20
 }()
 
+// allocSize is the file growth step (bbolt's default is 16 MB).
+const allocSize = 4 << 20
+
 // Options tune Open. The zero value is right for the daemon.
 type Options struct {
 	// LockTimeout bounds the wait for the file lock (default
@@ -118,6 +121,10 @@ func Open(dir string, opt Options) (*Store, error) {
 	if err != nil {
 		return nil, err
 	}
+	// bbolt grows the file 16 MB at a time and never gives it back; the
+	// head's churn is reused in place, so smaller steps keep a small
+	// store small at the cost of a few more grow calls.
+	db.AllocSize = allocSize
 	s := &Store{
 		db:            db,
 		path:          path,

@@ -438,3 +438,25 @@ func TestStreamReadingsMatchesScan(t *testing.T) {
 		t.Fatalf("streamed %d readings, scanned %d, differ", len(got), len(want))
 	}
 }
+
+// TestBackgroundCompaction: the timer pass moves a counter's head once it
+// holds enough readings, leaves a counter with few alone, and readings
+// stay readable throughout.
+func TestBackgroundCompaction(t *testing.T) {
+	s := openTest(t, t.TempDir(), Options{NoSync: true, CompactEvery: 20 * time.Millisecond})
+	appendOK(t, s, series("pc-busy", t0, compactMinHead+10))
+	appendOK(t, s, series("pc-quiet", t0, 5))
+	deadline := time.Now().Add(10 * time.Second)
+	for headCount(t, s, "pc-busy") != 0 {
+		if time.Now().After(deadline) {
+			t.Fatal("the background pass did not move the busy counter's head in 10 s")
+		}
+		time.Sleep(10 * time.Millisecond)
+	}
+	if n := headCount(t, s, "pc-quiet"); n != 5 {
+		t.Fatalf("quiet counter: %d head readings, want 5 left for a later pass", n)
+	}
+	if got := scanAll(t, s, "pc-busy", time.Time{}, time.Time{}); len(got) != compactMinHead+10 {
+		t.Fatalf("%d readings after the background pass", len(got))
+	}
+}

@@ -30,7 +30,7 @@ const (
 	// compactKick is how many readings appended since the last pass wake
 	// the compactor early, whatever the timer: the head's pages are freed
 	// and reused rather than growing the file, which bbolt never shrinks.
-	compactKick = 64 << 10
+	compactKick = 16 << 10
 )
 
 // CompactResult reports what a compaction pass moved.

@@ -46,7 +46,7 @@
 // run-length coded, counts as zigzag varint deltas per channel, a one-byte
 // tag per reading. A chunk and the head values it replaces change in one
 // transaction, so a crash leaves each reading in exactly one place. The
-// pass runs every Options.CompactEvery, early once 64 Ki readings arrived
+// pass runs every Options.CompactEvery, early once 16 Ki readings arrived
 // (bbolt never shrinks its file, so the head's pages must be reused, not
 // piled up), and at Close, so a cleanly stopped store is all chunks.
 // Scans merge chunks and head from a Seek: an empty stretch of time costs

@@ -150,6 +150,7 @@ func BenchmarkYearBytes(b *testing.B) {
 	_ = s.Close()
 	for b.Loop() {
 		b.ReportMetric(float64(fileSize(b, yearStore.dir))/yearReadings, "bytes/reading")
+		b.ReportMetric(float64(reportBuckets(b, yearStore.dir, yearReadings))/yearReadings, "inuse-bytes/reading")
 	}
 }
 

@@ -352,6 +352,10 @@ func containsProblem(problems []string, want string) bool {
 // place after a backup, reads back every reading and sample it was given,
 // verifies clean, and still does after its readings move into chunks.
 func TestSchema1StoreOpens(t *testing.T) {
+	// An old file (an old backup, say) verifies as it is, untouched.
+	if p, err := Verify(v1FixtureDir); err != nil || len(p) != 0 {
+		t.Fatalf("Verify of the schema-1 file: %q %v", p, err)
+	}
 	dir := t.TempDir()
 	raw, err := os.ReadFile(filepath.Join(v1FixtureDir, FileName))
 	if err != nil {

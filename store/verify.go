@@ -2,6 +2,7 @@ package store
 
 import (
 	"bytes"
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"os"
@@ -120,9 +121,18 @@ func (v *verifier) run(tx *bolt.Tx) error {
 	known := map[string]bool{}
 	for _, name := range knownBuckets {
 		known[string(name)] = true
-		if tx.Bucket(name) == nil {
+		if tx.Bucket(name) == nil && !v.olderLayout(tx, name) {
 			v.add("bucket %q is missing", name)
 		}
+	}
+	if v.schema(tx) == 1 {
+		// A file of the previous version (an old backup): its minute
+		// rollups are its own; Open upgrades it, Verify reads it as it is.
+		known[string(bucketRollup1m)] = true
+		v.walk(tx, bucketRollup1m, func(name string, k, val []byte) error {
+			_, err := decodeRollup(name, time.Minute, k, val)
+			return err
+		})
 	}
 	_ = tx.ForEach(func(name []byte, _ *bolt.Bucket) error {
 		if !known[string(name)] {
@@ -170,6 +180,25 @@ func (v *verifier) run(tx *bolt.Tx) error {
 	v.alarms(tx)
 	v.audit(tx)
 	return nil
+}
+
+// schema is the file's schema version, 0 when it cannot be read.
+func (v *verifier) schema(tx *bolt.Tx) uint64 {
+	meta := tx.Bucket(bucketMeta)
+	if meta == nil {
+		return 0
+	}
+	ver, n := binary.Uvarint(meta.Get(metaSchema))
+	if n <= 0 {
+		return 0
+	}
+	return ver
+}
+
+// olderLayout reports whether a missing bucket is one a schema-1 file
+// never had.
+func (v *verifier) olderLayout(tx *bolt.Tx, name []byte) bool {
+	return v.schema(tx) == 1 && (bytes.Equal(name, bucketChunks) || bytes.Equal(name, bucketEnvironment))
 }
 
 // walk checks the layout of one kind: nested buckets only, each holding

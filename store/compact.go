@@ -90,6 +90,14 @@ func (s *Store) compact(ctx context.Context, minHead int) (CompactResult, error)
 					break
 				}
 				moved, chunks, err := compactCounter(tx, counter)
+				if errors.Is(err, ErrCorrupt) || errors.Is(err, errChunkOverlap) {
+					// Found before anything of this counter changed: its
+					// readings stay in the head (Verify names the damage),
+					// and the other counters go on.
+					s.log.Error("store: compaction passes over a damaged counter", "counter", counter, "error", err.Error())
+					done++
+					continue
+				}
 				if err != nil {
 					return err
 				}

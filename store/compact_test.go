@@ -464,3 +464,26 @@ func TestBackgroundCompaction(t *testing.T) {
 		t.Fatalf("%d readings after the background pass", len(got))
 	}
 }
+
+// TestCompactionPassesOverDamage: a damaged chunk stops the compaction of
+// its own counter only; the others move, nothing is lost.
+func TestCompactionPassesOverDamage(t *testing.T) {
+	s := openTest(t, t.TempDir(), Options{NoSync: true, CompactEvery: -1})
+	appendOK(t, s, series("pc-bad", t0, 100))
+	compactOK(t, s)
+	err := s.db.Update(func(tx *bolt.Tx) error {
+		b := tx.Bucket(bucketChunks).Bucket([]byte("pc-bad"))
+		k, _ := b.Cursor().First()
+		return b.Put(append([]byte(nil), k...), []byte{codecChunk, 0xde, 0xad, 0xbe, 0xef, 0})
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	appendOK(t, s, series("pc-bad", t0.Add(200*time.Minute), 10))
+	appendOK(t, s, series("pc-good", t0, 10))
+	res := compactOK(t, s)
+	if res.Counters != 1 || res.Readings != 10 || headCount(t, s, "pc-bad") != 10 || headCount(t, s, "pc-good") != 0 {
+		t.Fatalf("compaction %+v; heads %d, %d", res, headCount(t, s, "pc-bad"), headCount(t, s, "pc-good"))
+	}
+	wantErr(t, s.ScanReadings("pc-bad", time.Time{}, time.Time{}, func(Reading) error { return nil }), ErrCorrupt)
+}

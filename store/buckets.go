@@ -24,7 +24,7 @@ var (
 	knownBuckets    = [][]byte{
 		bucketMeta, bucketReadings, bucketPressure, bucketRollup1h, bucketOpState,
 		bucketJournal, bucketJournalAt, bucketAlarms, bucketAlarmsAt, bucketOutbox, bucketAudit,
-		bucketChunks, bucketEnvironment,
+		bucketChunks, bucketEnvironment, bucketPChunks,
 	}
 	metaSchema      = []byte("schema")       // uvarint schemaVersion
 	metaSweptBefore = []byte("swept_before") // 8-byte key: latest Sweep horizon

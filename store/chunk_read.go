@@ -248,10 +248,16 @@ func lastChunkNanos(tx *bolt.Tx, counter string) int64 {
 
 // readingCounters lists the counters with readings in the head or in
 // chunks, in byte order.
-func readingCounters(tx *bolt.Tx) []string {
+func readingCounters(tx *bolt.Tx) []string { return seriesNames(tx, bucketReadings, bucketChunks) }
+
+// pressureSensors lists the DP sensors with samples in the head or in
+// chunks, in byte order.
+func pressureSensors(tx *bolt.Tx) []string { return seriesNames(tx, bucketPressure, bucketPChunks) }
+
+func seriesNames(tx *bolt.Tx, kinds ...[]byte) []string {
 	var out []string
 	seen := map[string]bool{}
-	for _, kind := range [][]byte{bucketReadings, bucketChunks} {
+	for _, kind := range kinds {
 		root := tx.Bucket(kind)
 		if root == nil {
 			continue

@@ -1,6 +1,7 @@
 package store
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"fmt"
@@ -35,8 +36,8 @@ const (
 
 // CompactResult reports what a compaction pass moved.
 type CompactResult struct {
-	Counters int // counters whose head readings moved
-	Readings int // readings moved from the head into chunks
+	Counters int // counters and DP sensors whose head records moved
+	Readings int // readings and pressure samples moved into chunks
 	Chunks   int // chunks written (rewritten ones included)
 }
 
@@ -59,20 +60,30 @@ var compactHook func(counter string) error
 
 func (s *Store) compact(ctx context.Context, minHead int) (CompactResult, error) {
 	var res CompactResult
-	var pending []string
+	type item struct {
+		pressure bool
+		name     string
+	}
+	var pending []item
 	err := s.view(func(tx *bolt.Tx, _ *guard) error {
-		root := tx.Bucket(bucketReadings)
-		return root.ForEachBucket(func(name []byte) error {
-			c := root.Bucket(name).Cursor()
-			n := 0
-			for k, _ := c.First(); k != nil && n < minHead; k, _ = c.Next() {
-				n++
+		for _, kind := range [][]byte{bucketReadings, bucketPressure} {
+			root := tx.Bucket(kind)
+			err := root.ForEachBucket(func(name []byte) error {
+				c := root.Bucket(name).Cursor()
+				n := 0
+				for k, _ := c.First(); k != nil && n < minHead; k, _ = c.Next() {
+					n++
+				}
+				if n >= minHead && n > 0 {
+					pending = append(pending, item{bytes.Equal(kind, bucketPressure), string(name)})
+				}
+				return nil
+			})
+			if err != nil {
+				return err
 			}
-			if n >= minHead && n > 0 {
-				pending = append(pending, string(name))
-			}
-			return nil
-		})
+		}
+		return nil
 	})
 	if err != nil {
 		return res, err
@@ -85,11 +96,16 @@ func (s *Store) compact(ctx context.Context, minHead int) (CompactResult, error)
 		done := 0
 		err := s.update(func(tx *bolt.Tx) error {
 			part, done = CompactResult{}, 0
-			for _, counter := range pending {
+			for _, it := range pending {
 				if part.Readings >= compactTxReadings {
 					break
 				}
-				moved, chunks, err := compactCounter(tx, counter)
+				counter := it.name
+				move := compactCounter
+				if it.pressure {
+					move = compactSensor
+				}
+				moved, chunks, err := move(tx, counter)
 				if errors.Is(err, ErrCorrupt) || errors.Is(err, errChunkOverlap) {
 					// Found before anything of this counter changed: its
 					// readings stay in the head (Verify names the damage),
@@ -290,6 +306,40 @@ func (s *Store) noteAppended(n int) {
 // chunks that end before it, and the older part of the one that straddles
 // it (rewritten). Each chunk touched takes one from *budget.
 func sweepChunks(root *bolt.Bucket, limit int64, budget *int) (int, error) {
+	return sweepChunked(root, limit, budget, func(name string, k, v []byte, limit int64) ([]byte, int, error) {
+		rs, _, err := decodeChunk(name, k, v)
+		if err != nil {
+			return nil, 0, err
+		}
+		i := 0
+		for i < len(rs) && rs[i].ns < limit {
+			i++
+		}
+		for j := range rs {
+			rs[j].shape = append([]byte(nil), rs[j].shape...)
+		}
+		return encodeChunk(k, rs[i:]), i, nil
+	})
+}
+
+// sweepPChunks is sweepChunks for pressure chunks.
+func sweepPChunks(root *bolt.Bucket, limit int64, budget *int) (int, error) {
+	return sweepChunked(root, limit, budget, func(name string, k, v []byte, limit int64) ([]byte, int, error) {
+		ps, _, err := decodePChunk(name, k, v)
+		if err != nil {
+			return nil, 0, err
+		}
+		i := 0
+		for i < len(ps) && ps[i].ns < limit {
+			i++
+		}
+		return encodePChunk(k, ps[i:]), i, nil
+	})
+}
+
+// sweepChunked deletes whole chunks before limit and has cut rewrite the
+// one that straddles it, returning its new value and how many it dropped.
+func sweepChunked(root *bolt.Bucket, limit int64, budget *int, cut func(name string, k, v []byte, limit int64) ([]byte, int, error)) (int, error) {
 	var names [][]byte
 	if err := root.ForEachBucket(func(name []byte) error {
 		names = append(names, append([]byte(nil), name...))
@@ -324,21 +374,14 @@ func sweepChunks(root *bolt.Bucket, limit int64, budget *int) (int, error) {
 			}
 		}
 		if straddle != nil {
-			rs, _, err := decodeChunk(string(name), straddle, b.Get(straddle))
+			nv, n, err := cut(string(name), straddle, b.Get(straddle), limit)
 			if err != nil {
 				return deleted, err
 			}
-			i := 0
-			for i < len(rs) && rs[i].ns < limit {
-				i++
-			}
-			for j := range rs {
-				rs[j].shape = append([]byte(nil), rs[j].shape...)
-			}
-			if err := b.Put(straddle, encodeChunk(straddle, rs[i:])); err != nil {
+			if err := b.Put(straddle, nv); err != nil {
 				return deleted, err
 			}
-			deleted += i
+			deleted += n
 		}
 		if k, _ := b.Cursor().First(); k == nil {
 			if err := root.DeleteBucket(name); err != nil {

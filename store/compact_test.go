@@ -390,7 +390,7 @@ func TestSchema1StoreOpens(t *testing.T) {
 		}
 	}
 	check("as upgraded")
-	if res := compactOK(t, s); res.Readings != len(v1Readings()) {
+	if res := compactOK(t, s); res.Readings != len(v1Readings())+len(v1Pressure()) {
 		t.Fatalf("compaction moved %+v", res)
 	}
 	check("compacted")

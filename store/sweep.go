@@ -85,6 +85,11 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 			if pressure, err = sweepKind(tx.Bucket(bucketPressure), limit, &budget); err != nil {
 				return err
 			}
+			pchunked, err := sweepPChunks(tx.Bucket(bucketPChunks), limit, &budget)
+			if err != nil {
+				return err
+			}
+			pressure += pchunked
 			if env, err = sweepKind(tx.Bucket(bucketEnvironment), limit, &budget); err != nil {
 				return err
 			}

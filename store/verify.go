@@ -157,6 +157,7 @@ func (v *verifier) run(tx *bolt.Tx) error {
 		return err
 	})
 	v.chunks(tx)
+	v.pchunks(tx)
 	v.walk(tx, bucketEnvironment, func(name string, k, val []byte) error {
 		_, err := decodeEnv(name, k, val)
 		return err
@@ -198,7 +199,7 @@ func (v *verifier) schema(tx *bolt.Tx) uint64 {
 // olderLayout reports whether a missing bucket is one a schema-1 file
 // never had.
 func (v *verifier) olderLayout(tx *bolt.Tx, name []byte) bool {
-	return v.schema(tx) == 1 && (bytes.Equal(name, bucketChunks) || bytes.Equal(name, bucketEnvironment))
+	return v.schema(tx) == 1 && (bytes.Equal(name, bucketChunks) || bytes.Equal(name, bucketEnvironment) || bytes.Equal(name, bucketPChunks))
 }
 
 // walk checks the layout of one kind: nested buckets only, each holding

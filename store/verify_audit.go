@@ -180,6 +180,8 @@ func (a *auditCheck) records(e *AuditEntry, cv *covered) {
 		switch cv.kind {
 		case coverReadings: // head or chunk, without a bucket lookup per record
 			val = a.chunked.value(name, key)
+		case coverPressure:
+			val = a.chunked.pressure(name, key)
 		case coverJournal:
 			val = root.Get(key)
 		default:
@@ -238,9 +240,12 @@ func (a *auditCheck) coverage() {
 				before++
 			}
 		}
-		if kind == coverReadings {
+		switch kind {
+		case coverReadings:
 			forEachReadingKey(a.tx, name, count)
-		} else {
+		case coverPressure:
+			forEachKey(a.tx, bucketPressure, bucketPChunks, name, count)
+		default:
 			c := b.Cursor()
 			for k, _ := c.First(); k != nil; k, _ = c.Next() {
 				n, ok := keyNanos(k)
@@ -262,7 +267,10 @@ func (a *auditCheck) coverage() {
 	for _, name := range readingCounters(a.tx) {
 		check(coverReadings, name, nil)
 	}
-	for _, kind := range []byte{coverPressure, coverOpState} {
+	for _, name := range pressureSensors(a.tx) {
+		check(coverPressure, name, nil)
+	}
+	for _, kind := range []byte{coverOpState} {
 		root := a.tx.Bucket(coverBucket(kind))
 		if root == nil {
 			continue

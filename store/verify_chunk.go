@@ -99,6 +99,7 @@ type chunkCache struct {
 	tx   *bolt.Tx
 	m    map[string]*cachedChunk
 	head map[string]*bolt.Bucket // read transactions do not cache nested buckets
+	p    map[string][]pchunkSample
 }
 
 type cachedChunk struct {
@@ -107,7 +108,7 @@ type cachedChunk struct {
 }
 
 func newChunkCache(tx *bolt.Tx) *chunkCache {
-	return &chunkCache{tx: tx, m: map[string]*cachedChunk{}, head: map[string]*bolt.Bucket{}}
+	return &chunkCache{tx: tx, m: map[string]*cachedChunk{}, head: map[string]*bolt.Bucket{}, p: map[string][]pchunkSample{}}
 }
 
 // value returns the schema-1 value of counter's reading at key, from the
@@ -179,11 +180,17 @@ func (cc *chunkCache) load(counter string, key []byte) *cachedChunk {
 // counts a damaged reading as present (the walk reports the damage). A
 // chunk that does not decode is passed over (the chunk walk reports it).
 func forEachReadingKey(tx *bolt.Tx, counter string, fn func(ns int64)) {
+	forEachKey(tx, bucketReadings, bucketChunks, counter, fn)
+}
+
+// forEachKey is forEachReadingKey for any head and chunk bucket pair
+// (readings, pressure samples).
+func forEachKey(tx *bolt.Tx, headKind, chunkKind []byte, counter string, fn func(ns int64)) {
 	var hc, cc *bolt.Cursor
-	if b := tx.Bucket(bucketReadings).Bucket([]byte(counter)); b != nil {
+	if b := tx.Bucket(headKind).Bucket([]byte(counter)); b != nil {
 		hc = b.Cursor()
 	}
-	if root := tx.Bucket(bucketChunks); root != nil {
+	if root := tx.Bucket(chunkKind); root != nil {
 		if b := root.Bucket([]byte(counter)); b != nil {
 			cc = b.Cursor()
 		}
@@ -213,4 +220,101 @@ func forEachReadingKey(tx *bolt.Tx, counter string, fn func(ns int64)) {
 		}
 	}
 	headUpTo(1<<63 - 1)
+}
+
+// pressure is value for a pressure sample: head, or the cached chunk of
+// its sensor.
+func (cc *chunkCache) pressure(sensor string, key []byte) []byte {
+	ns, ok := keyNanos(key)
+	if !ok {
+		return nil
+	}
+	find := func(ps []pchunkSample) []byte {
+		i := sort.Search(len(ps), func(i int) bool { return ps[i].ns >= ns })
+		if i < len(ps) && ps[i].ns == ns {
+			return ps[i].v1Value(key)
+		}
+		return nil
+	}
+	if ps := cc.p[sensor]; len(ps) > 0 && ns >= ps[0].ns && ns <= ps[len(ps)-1].ns {
+		if v := find(ps); v != nil {
+			return v
+		}
+	}
+	if b := cc.tx.Bucket(bucketPressure).Bucket([]byte(sensor)); b != nil {
+		if v := b.Get(key); v != nil {
+			return v
+		}
+	}
+	root := cc.tx.Bucket(bucketPChunks)
+	if root == nil {
+		return nil
+	}
+	b := root.Bucket([]byte(sensor))
+	if b == nil {
+		return nil
+	}
+	k, v := b.Cursor().Seek(key)
+	if k == nil {
+		return nil
+	}
+	ps, _, _ := decodePChunk(sensor, k, v)
+	if ps == nil {
+		return nil
+	}
+	cc.p[sensor] = ps
+	return find(ps)
+}
+
+// pchunks checks every pressure chunk as chunks does reading chunks.
+func (v *verifier) pchunks(tx *bolt.Tx) {
+	root := tx.Bucket(bucketPChunks)
+	if root == nil {
+		return
+	}
+	v.guarded(string(bucketPChunks), func() {
+		_ = root.ForEach(func(name, val []byte) error {
+			if val != nil {
+				v.add("%s: entry %q is a value, not a bucket", bucketPChunks, name)
+				return nil
+			}
+			v.guarded(fmt.Sprintf("%s/%s", bucketPChunks, name), func() { v.pchunkSeries(tx, string(name), root.Bucket(name)) })
+			return nil
+		})
+	})
+}
+
+func (v *verifier) pchunkSeries(tx *bolt.Tx, sensor string, b *bolt.Bucket) {
+	head := tx.Bucket(bucketPressure).Bucket([]byte(sensor))
+	var prevLast int64 = -1
+	c := b.Cursor()
+	for k, val := c.First(); k != nil; k, val = c.Next() {
+		if val == nil {
+			v.add("%s/%s: %s is a bucket, not a value", bucketPChunks, sensor, keyString(k))
+			continue
+		}
+		ps, tags, err := decodePChunk(sensor, k, val)
+		if ps == nil {
+			v.addErr(err)
+			continue
+		}
+		if ps[0].ns <= prevLast {
+			v.add("pressure chunk of sensor %q ending %s overlaps the chunk before it", sensor, keyString(k))
+		}
+		prevLast = ps[len(ps)-1].ns
+		named := 0
+		for i := range ps {
+			key := nanosKey(ps[i].ns)
+			if err != nil && tagOf(ps[i].v1Value(key)) != tags[i] {
+				v.add("pressure of sensor %q at %s: changed after it was stored (its chunk's checksum and its own tag do not match)", sensor, keyString(key))
+				named++
+			}
+			if head != nil && head.Get(key) != nil {
+				v.add("pressure of sensor %q at %s is both in the head and in a chunk", sensor, keyString(key))
+			}
+		}
+		if err != nil && named == 0 {
+			v.addErr(err)
+		}
+	}
 }

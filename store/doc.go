@@ -62,8 +62,12 @@
 // (1, 5, 15, 30 min) are computed from the readings and longer ones (2 to
 // 24 h) add hours. Rows lie inside the range asked for, edges clipped.
 //
-// Environment samples (temperature, humidity, air velocity, any subset;
-// environment.go) and pressure samples are stored one value per sample.
+// Pressure samples take the same path into their own chunks (pchunk.go:
+// values as millipascal deltas when every sample of a chunk is a whole
+// number of them, as XORed float bits otherwise). Environment samples
+// (temperature, humidity, air velocity, any subset; environment.go) are
+// stored one value per sample and are not yet chunked nor covered by the
+// audit chain.
 //
 // # Older files
 //

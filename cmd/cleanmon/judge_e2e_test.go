@@ -313,6 +313,28 @@ func TestJudgeScenarios(t *testing.T) {
 		}
 	})
 
+	// A refused request is counted against its counter, and every result
+	// of every configured counter is there from the start.
+	t.Run("rejected readings are counted", func(t *testing.T) {
+		j := startJudged(t, "", t.TempDir())
+		m := metricsText(t, j.d)
+		for _, c := range []string{"pc-asm-1", "pc-fill"} {
+			for _, r := range []string{"accepted", "duplicate", "conflict", "rejected"} {
+				if v := metricValue(m, `cleanmon_readings_total{counter="`+c+`",result="`+r+`"}`); v != 0 {
+					t.Errorf("cleanmon_readings_total %s %s at start: %v, want 0", c, r, v)
+				}
+			}
+		}
+		bad := fmt.Sprintf(`{"counter":"pc-asm-1","time":%q,"volume_l":-1,"counts":{"0.5":10,"5":0}}`, time.Now().UTC().Format(time.RFC3339))
+		code, body, _ := apiDo(context.Background(), http.MethodPost, j.d.url+"/api/v1/readings", []byte(bad), "application/json")
+		if code != http.StatusBadRequest {
+			t.Fatalf("bad reading: %d %s", code, body)
+		}
+		if v := metricValue(metricsText(t, j.d), `cleanmon_readings_total{counter="pc-asm-1",result="rejected"}`); v != 1 {
+			t.Errorf("rejected readings of pc-asm-1: %v, want 1", v)
+		}
+	})
+
 	// A reading at or beyond the counter's stated maximum is kept but not
 	// trusted: its location is unknown until a trusted reading follows.
 	t.Run("over-range reading makes its location unknown", func(t *testing.T) {

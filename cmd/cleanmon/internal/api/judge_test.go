@@ -153,3 +153,21 @@ func TestCertifyStoredByStateOfItsTime(t *testing.T) {
 		})
 	}
 }
+
+// Every alarm object has the keys scripts rely on, also where they have no
+// value (a DP alarm has no location or size).
+func TestAlarmObjectKeys(t *testing.T) {
+	al := alerts.Alarm{ID: "dp-hood:pressure-reversal", Zone: "hood", Kind: alerts.KindPressureReversal, Level: alerts.LevelAction,
+		State: alerts.StateActive, Sensor: "dp-hood", Since: testNow, Peak: -3.5, PeakTime: testNow, Unit: "Pa"}
+	b, err := json.Marshal(al)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var m map[string]any
+	json.Unmarshal(b, &m)
+	for _, k := range []string{"id", "zone", "kind", "level", "state", "location", "size_um", "since", "peak", "peak_time", "acknowledged_by", "comment"} {
+		if _, ok := m[k]; !ok {
+			t.Errorf("alarm object lacks %q: %s", k, b)
+		}
+	}
+}

@@ -696,6 +696,10 @@ type deployRuleFile struct {
 	} `yaml:"groups"`
 }
 
+// deployValueless are the alerts that say something is missing (a scrape,
+// a notifier, a judgement, an instrument): they have no value to show.
+var deployValueless = map[string]bool{"CleanmonDown": true, "CleanmonNotifierDown": true, "CleanmonZoneStateUnknown": true, "CleanmonInstrumentNeverReported": true}
+
 // TestDeployRules checks what promtool does not: the rules use only
 // metrics cleanmon exports, label every alert for the Alertmanager routes,
 // and each alert has a unit test.
@@ -758,6 +762,11 @@ func TestDeployRules(t *testing.T) {
 			}
 			if r.Annotations["summary"] == "" || r.Annotations["description"] == "" {
 				t.Errorf("%s: want summary and description annotations", where)
+			}
+			// A reader is shown the value with its unit, except where the
+			// alert is that something is missing.
+			if r.Annotations["value"] == "" && !deployValueless[r.Alert] {
+				t.Errorf("%s: no value annotation (the value with its unit)", where)
 			}
 			if !fires[r.Alert] {
 				t.Errorf("%s: no unit test in cleanmon-rules.test.yml where it fires", where)

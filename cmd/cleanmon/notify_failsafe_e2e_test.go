@@ -167,6 +167,7 @@ func TestRestartRedeliversNothing(t *testing.T) {
 	defer hs.Close()
 	notify := fmt.Sprintf(`notifications:
   heartbeat: "1s"
+  labels: {site: veldmark-photonics, suite: building-c}
   webhooks:
     - {name: pager-hook, url: %q, secret: %q}
   retry: {base: "200ms", max: "1s"}
@@ -185,6 +186,18 @@ func TestRestartRedeliversNothing(t *testing.T) {
 		}
 		return false
 	})
+	// The message says how urgent, where, and the value with its unit.
+	hook.mu.Lock()
+	for _, b := range hook.bodies {
+		if b["alarm_id"] != id || b["to"] != alerts.StateActive {
+			continue
+		}
+		labels, _ := b["labels"].(map[string]any)
+		if b["severity"] != "action" || labels["site"] != "veldmark-photonics" || labels["suite"] != "building-c" || !strings.Contains(fmt.Sprint(b["value_text"]), "particles/m³") {
+			t.Errorf("webhook message %v: want severity action, the site's labels and a value in particles/m³", b)
+		}
+	}
+	hook.mu.Unlock()
 	waitFor(t, 30*time.Second, "an empty outbox", func() bool {
 		return metricValue(metricsText(t, j.d), `cleanmon_notification_queue{notifier="pager-hook"}`) == 0
 	})

@@ -44,11 +44,17 @@ func (r *amReceiver) ServeHTTP(w http.ResponseWriter, req *http.Request) {
 }
 
 // seen tells whether path got a notification alert of alertname in
-// status (firing, resolved), with label severity if given.
+// status (firing, resolved), with label severity if given. A resolved
+// one counts only in a notification whose whole group is resolved: a
+// heartbeat whose severity changed ends its old label set while the new
+// one fires, and that is not the daemon's silence.
 func (r *amReceiver) seen(path, alertname, status, severity string) bool {
 	r.mu.Lock()
 	defer r.mu.Unlock()
 	for _, n := range r.got[path] {
+		if status == "resolved" && n.Status != "resolved" {
+			continue
+		}
 		for _, a := range n.Alerts {
 			if a.Labels["alertname"] == alertname && a.Status == status && (severity == "" || a.Labels["severity"] == severity) {
 				return true
@@ -136,6 +142,13 @@ func TestKilledDaemonNotResolved(t *testing.T) {
 	waitFor(t, 30*time.Second, "the pager and the dead-man's switch to be told", func() bool {
 		return recv.seen("/cleanmon", "cleanmon_excursion", "firing", "action") && recv.seen("/cleanmon-heartbeat", alerts.HeartbeatAlertName, "firing", "action")
 	})
+
+	// While the daemon beats, the switch stays quiet, also once the
+	// heartbeat of the old severity has run out.
+	time.Sleep(5 * time.Second)
+	if recv.seen("/cleanmon-heartbeat", alerts.HeartbeatAlertName, "resolved", "") {
+		t.Error("the dead-man's switch was told monitoring is lost while the daemon runs")
+	}
 
 	j.d.kill()
 	killed := time.Now()

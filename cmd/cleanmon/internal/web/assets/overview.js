@@ -99,7 +99,7 @@ function zoneCard(z, now, siteAlarms) {
     card.append(
       ws
         ? el("div", { class: "zc-share" },
-          el("span", { class: "zc-share-text" }, "≥" + ws.size + " µm at ", el("strong", {}, pct(ws.share)), " of limit", ws.mean ? " (" + z.window + " mean)" : " (latest)"),
+          el("span", { class: "zc-share-text" }, "≥" + ws.size + " µm: ", el("strong", {}, pct(ws.share)), " of limit", ws.mean ? ", " + z.window + " mean" : ", latest"),
           shareBar(ws.share))
         : el("div", { class: "zc-share none" }, "No current concentration"),
     );

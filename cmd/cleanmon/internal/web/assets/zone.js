@@ -97,7 +97,7 @@ function renderHead(z) {
       sizes.map((s) => [el("th", { class: "n" }, "≥" + s + " µm latest"), el("th", { class: "n" }, "≥" + s + " µm " + z.window + " mean")]))),
     el("tbody", {}, z.locations.map((l) => {
       const now = current(l);
-      const why = l.trusted === false ? "not trusted" + (l.untrusted ? ": " + l.untrusted : "") : l.time ? "not current (stale)" : "";
+      const why = now ? "" : l.trusted === false ? "not trusted" + (l.untrusted ? ": " + l.untrusted : "") : l.time ? "not current (stale)" : "";
       return el("tr", { dataset: { location: l.id, current: now ? "yes" : "no" } },
         el("td", {}, l.name ? l.name + " (" + l.id + ")" : l.id, el("br"), el("span", { class: "muted" }, "counter " + l.counter)),
         el("td", {}, stateBadge(l.state)),

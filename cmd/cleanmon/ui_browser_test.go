@@ -340,8 +340,8 @@ func (b *browser) signOut() {
 
 type uiAlarm struct {
 	ID, Zone, Kind, State, Level string
-	AcknowledgedBy        string `json:"acknowledged_by"`
-	Comment               string
+	AcknowledgedBy               string `json:"acknowledged_by"`
+	Comment                      string
 }
 
 func uiAlarmByID(t *testing.T, url, id string) uiAlarm {

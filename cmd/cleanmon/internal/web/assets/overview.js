@@ -54,7 +54,7 @@ function openAlarms(z, siteAlarms) {
   return own.filter((a) => a.state !== "delayed" && a.state !== "pending" && a.state !== "cleared");
 }
 
-const MAX_REASONS = 3;
+const MAX_REASONS = 2;
 
 function zoneCard(z, now, siteAlarms) {
   const classified = (z.class !== null && z.class !== undefined) || !!z.grade;
@@ -91,7 +91,7 @@ function zoneCard(z, now, siteAlarms) {
   } else if (!neutral && att === undefined) {
     card.append(el("ul", { class: "zc-reasons" }, el("li", {}, "The daemon did not say whether anything needs a person.")));
   } else if (reasons.length) {
-    const shown = reasons.slice(0, MAX_REASONS).map((r) => el("li", {}, r));
+    const shown = reasons.slice(0, MAX_REASONS).map((r) => el("li", { title: r }, r));
     if (reasons.length > MAX_REASONS) shown.push(el("li", { class: "more" }, "and " + (reasons.length - MAX_REASONS) + " more on the zone page"));
     card.append(el("ul", { class: "zc-reasons" }, shown));
   }

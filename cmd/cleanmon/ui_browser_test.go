@@ -454,6 +454,7 @@ func TestPagesOnTokenSite(t *testing.T) {
 	uiTimesOnSiteClock(t, b, "alarms page", time.FixedZone("Etc/GMT-3", 3*3600))
 
 	uiCertification(t, b, d, now)
+	uiNotCurrent(t, b, d.url)
 	uiYearChart(t, b, d, now)
 	b.checkConsole("status of 401", "status of 403")
 }

@@ -78,6 +78,7 @@ func uiSmallScreen(t *testing.T, b *browser, url, zone string) {
 	b.open(url+"/zones/"+zone, `document.body.dataset.chartsReady === "yes"`)
 	b.waitJS(10*time.Second, "the DP charts", `document.querySelectorAll("#dp-charts svg.chart, #dp-charts p").length > 0`)
 	b.nothingClipped("zone page at 1024×768")
+	uiZoneAlarms(t, b, zone)
 	b.screenshot("zone-1024x768")
 	b.open(url+"/alarms", `document.body.dataset.ready === "yes" && !!document.querySelector(".ack-btn")`)
 	b.nothingClipped("alarms page at 1024×768")
@@ -121,6 +122,61 @@ func uiTimesOnSiteClock(t *testing.T, b *browser, what string, loc *time.Locatio
 		full, short := at.In(loc).Format("2006-01-02 15:04:05"), at.In(loc).Format("15:04:05")
 		if x.Text != full && x.Text != short {
 			t.Errorf("%s: %s shown as %q, want %q or %q (%s)", what, x.Datetime, x.Text, full, short, loc)
+		}
+	}
+}
+
+// uiZoneAlarms checks the zone page's open alarms: every open alarm of the
+// zone object, and no download of the site's alarm list (the page polls
+// every 5 s; it waits for a second poll before looking).
+func uiZoneAlarms(t *testing.T, b *browser, zone string) {
+	b.waitJS(15*time.Second, "every open alarm of "+zone+" on its page", fmt.Sprintf(`(async () => {
+		const z = await (await fetch("/api/v1/zones/%s")).json();
+		const want = z.active_alarms.map(a => a.id).sort().join("\n");
+		const got = [...document.querySelectorAll("#zone-alarms tr[data-alarm-id]")].map(r => r.dataset.alarmId).sort().join("\n");
+		return z.active_alarms.length > 0 && got === want;
+	})()`, zone))
+	b.waitJS(15*time.Second, "a second poll of the zone", `performance.getEntriesByType("resource").filter(e => e.name.includes("/api/v1/zones/")).length >= 2`)
+	var fetched []string
+	b.eval(`performance.getEntriesByType("resource").map(e => e.name).filter(n => n.includes("/api/v1/alarms"))`, &fetched)
+	if len(fetched) > 0 {
+		t.Errorf("the zone page downloads the site's alarm list: %v", fetched)
+	}
+}
+
+// uiNotCurrent checks, on a site whose coating hood was last sampled
+// hours ago and whose DP sensor never reported, that no old value is
+// shown as current: the hood's card and page show no concentration, the
+// sensor no number.
+func uiNotCurrent(t *testing.T, b *browser, url string) {
+	b.open(url+"/", `document.body.dataset.ready === "yes"`)
+	var ov struct {
+		Share, DP string
+		Headline  string
+	}
+	b.eval(`({share: (document.querySelector('.zone-card[data-zone="coating-hood"] .zc-share') || {}).textContent || "",
+		dp: (document.querySelector('.dp-chip[data-sensor="dp-asm"] .dp-value') || {}).textContent || "",
+		headline: (document.querySelector('.zone-card[data-zone="coating-hood"] .headline') || {}).textContent || ""})`, &ov)
+	if ov.Share != "No current concentration" || ov.DP != "—" || strings.Contains(ov.Headline, "CLEAR") {
+		t.Errorf("overview of stale data: %+v; want no concentration, no DP number, no clear headline", ov)
+	}
+	b.open(url+"/zones/coating-hood", `document.body.dataset.chartsReady === "yes"`)
+	var cells []struct {
+		Current string
+		Values  []string
+	}
+	b.eval(`[...document.querySelectorAll("#zone-table tr[data-location]")].map(r => ({current: r.dataset.current, values: [...r.querySelectorAll("td.n")].map(c => c.textContent)}))`, &cells)
+	if len(cells) != 2 {
+		t.Fatalf("coating hood page lists %d locations, want 2", len(cells))
+	}
+	for _, c := range cells {
+		if c.Current != "no" {
+			t.Errorf("a location last sampled hours ago is shown current: %+v", c)
+		}
+		for _, v := range c.Values {
+			if v != "—" {
+				t.Errorf("a location last sampled hours ago shows %q as its value", v)
+			}
 		}
 	}
 }

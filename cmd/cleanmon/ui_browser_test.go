@@ -215,6 +215,7 @@ func TestPagesOnDemoSite(t *testing.T) {
 	uiWallScreen(t, b, d.url, zones)
 	b.waitJS(10*time.Second, "the open alarm on "+target+"'s card", fmt.Sprintf(`!!document.querySelector('.zone-card[data-zone=%q] .zc-alarm')`, target))
 	uiHeadlineNotClear(t, b, target)
+	uiClearRule(t, b)
 	uiSmallScreen(t, b, d.url, "assembly")
 	uiTimesOnSiteClock(t, b, "alarms page", cet)
 	b.checkConsole()

@@ -1,6 +1,8 @@
 package main
 
 import (
+	"context"
+	"encoding/json"
 	"fmt"
 	"strings"
 	"testing"
@@ -178,5 +180,51 @@ func uiNotCurrent(t *testing.T, b *browser, url string) {
 				t.Errorf("a location last sampled hours ago shows %q as its value", v)
 			}
 		}
+	}
+}
+
+// evalAsync evaluates an expression that yields a promise and decodes
+// what it resolves to.
+func (b *browser) evalAsync(js string, v any) {
+	b.t.Helper()
+	ctx, cancel := context.WithTimeout(b.ctx, 20*time.Second)
+	defer cancel()
+	raw, err := chromedp.Run(ctx, chromedp.Evaluate[[]byte](js, chromedp.EvalAwaitPromise))
+	if err != nil {
+		b.t.Fatalf("evaluating %s: %v%s", js, err, b.consoleText())
+	}
+	if err := json.Unmarshal(raw, v); err != nil {
+		b.t.Fatalf("evaluating %s: %v in %s", js, err, raw)
+	}
+}
+
+// uiClearRule drives the pages' own rule for the clear headline in the
+// open page: clear needs the daemon's "none" and nothing in the zone
+// object against it; an absent or unknown attention is UNKNOWN.
+func uiClearRule(t *testing.T, b *browser) {
+	cases := []struct {
+		name, zone string
+		against    int
+	}{
+		{"all well", `{state: "in-class", active_alarms: [], locations: [{id: "l", fresh: true, trusted: true}], sensors: [{id: "dp", status: "ok"}]}`, 0},
+		{"particles not in class", `{state: "alert", active_alarms: [], locations: [], sensors: []}`, 1},
+		{"an alarm open", `{state: "in-class", active_alarms: [{state: "acknowledged"}], locations: [], sensors: []}`, 1},
+		{"a delayed alarm is not open yet", `{state: "in-class", active_alarms: [{state: "delayed"}], locations: [], sensors: []}`, 0},
+		{"a stale and an untrusted location", `{state: "in-class", active_alarms: [], locations: [{id: "a", fresh: false, trusted: true}, {id: "b", fresh: true, trusted: false}], sensors: []}`, 1},
+		{"a silent and a reversed sensor", `{state: "in-class", active_alarms: [], locations: [], sensors: [{id: "a", status: "silent", pa: null}, {id: "b", status: "reversed", pa: -3.5}]}`, 1},
+		{"everything at once", `{state: "unknown", active_alarms: [{state: "active"}], locations: [{id: "a", fresh: false}], sensors: [{id: "b", status: "low"}]}`, 4},
+	}
+	for _, c := range cases {
+		var n int
+		b.evalAsync(fmt.Sprintf(`(async () => (await import("/assets/common.js")).clearContradicted(%s).length)()`, c.zone), &n)
+		if n != c.against {
+			t.Errorf("%s: %d reasons against clear, want %d", c.name, n, c.against)
+		}
+	}
+	var shown []string
+	b.evalAsync(`(async () => { const m = await import("/assets/common.js"); return [undefined, null, "", "fine", "none", "action"].map(a => m.attentionBadge(a).dataset.attention + ":" + m.attentionBadge(a).querySelector(".word").textContent); })()`, &shown)
+	want := []string{"unknown:UNKNOWN", "unknown:UNKNOWN", "unknown:UNKNOWN", "unknown:UNKNOWN", "none:CLEAR", "action:ACTION"}
+	if strings.Join(shown, ",") != strings.Join(want, ",") {
+		t.Errorf("attention badges %v, want %v", shown, want)
 	}
 }

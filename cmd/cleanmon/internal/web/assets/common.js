@@ -312,6 +312,22 @@ export function icon(kind) {
   return svg;
 }
 
+// clearContradicted lists what the page itself sees in a zone object that
+// forbids the clear headline: the particle state not in class, an open
+// alarm, a location that is not fresh and trusted, a DP sensor on its
+// boundary that is not ok. Empty: nothing contradicts the daemon.
+export function clearContradicted(z) {
+  const out = [];
+  if (z.state !== "in-class") out.push("the particle state is " + (STATES[z.state] ? STATES[z.state].word.toLowerCase() : "unknown"));
+  const open = (Array.isArray(z.active_alarms) ? z.active_alarms : []).filter((a) => a.state !== "cleared" && a.state !== "delayed");
+  if (open.length) out.push(open.length + (open.length === 1 ? " alarm is open" : " alarms are open"));
+  const stale = (z.locations || []).filter((l) => l.fresh === false || l.trusted === false).map((l) => l.id);
+  if (stale.length) out.push("not current: " + stale.join(", "));
+  const dp = (Array.isArray(z.sensors) ? z.sensors : []).filter((s) => dpStatus(s) !== "ok").map((s) => (s.id || s.sensor) + " " + dpStatus(s));
+  if (dp.length) out.push("DP " + dp.join(", "));
+  return out;
+}
+
 // badgeOf is a mark with its word; cls picks the colours, family the
 // shape of the pill (zone states) or tag (alarms).
 function badgeOf(def, family, extra) {

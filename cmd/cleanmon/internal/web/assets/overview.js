@@ -4,7 +4,7 @@
 
 import {
   init, get, poll, banner, el, svgEl, attentionBadge, stateBadge, dpBadge, dpStatus, levelBadge, pa, pct,
-  targetText, OP_STATES, STATES, sizeKeys, ago, timeText, timeEl, siteInfo,
+  targetText, OP_STATES, clearContradicted, sizeKeys, ago, timeText, timeEl, siteInfo,
 } from "./common.js";
 
 const EVERY = 2000;
@@ -70,7 +70,8 @@ function zoneCard(z, now, siteAlarms) {
   let shownAtt = neutral ? "none-monitored" : (att in { none: 1, alert: 1, action: 1, "out-of-class": 1 } ? att : "unknown");
   // Belt and braces: clear is shown only when nothing the page can see
   // contradicts it.
-  const contradicted = !neutral && shownAtt === "none" && (z.state !== "in-class" || alarms.length > 0);
+  const against = !neutral && shownAtt === "none" ? clearContradicted({ ...z, active_alarms: alarms }) : [];
+  const contradicted = against.length > 0;
   if (contradicted) shownAtt = "unknown";
   const card = el(
     "a",
@@ -87,7 +88,7 @@ function zoneCard(z, now, siteAlarms) {
   }
   const reasons = Array.isArray(z.attention_reasons) ? z.attention_reasons : [];
   if (contradicted) {
-    card.append(el("ul", { class: "zc-reasons" }, el("li", {}, "Shown as unknown: the daemon says nothing needs a person, but the zone is " + (STATES[z.state] ? STATES[z.state].word.toLowerCase() : "unknown") + (alarms.length ? " with " + alarms.length + " alarm(s) open" : "") + ".")));
+    card.append(el("ul", { class: "zc-reasons" }, el("li", { title: against.join("; ") }, "Shown as unknown: the daemon says nothing needs a person, but " + against.join("; "))));
   } else if (!neutral && att === undefined) {
     card.append(el("ul", { class: "zc-reasons" }, el("li", {}, "The daemon did not say whether anything needs a person.")));
   } else if (reasons.length) {

@@ -5,7 +5,7 @@
 // DP over time, every open alarm of the zone and the operating state.
 
 import {
-  init, get, request, poll, banner, explain, el, attentionBadge, stateBadge, dpBadge, dpStatus, levelBadge, alarmStateBadge, num, pct, pa,
+  init, get, request, poll, banner, explain, el, attentionBadge, clearContradicted, stateBadge, dpBadge, dpStatus, levelBadge, alarmStateBadge, num, pct, pa,
   targetText, OP_STATES, sizeKeys, timeEl, timeText, ago, siteInfo,
 } from "./common.js";
 import { timeChart } from "./chart.js";
@@ -61,12 +61,12 @@ function renderHead(z) {
   document.getElementById("crumb-zone").textContent = z.name || z.id;
   const change = z.operating_state_change;
   const att = Object.hasOwn(z, "attention") ? z.attention : undefined;
-  const open = Array.isArray(z.active_alarms) ? z.active_alarms.filter((a) => a.state !== "cleared" && a.state !== "delayed") : [];
   // Clear only when nothing the page can see contradicts it.
-  const shown = att === "none" && (z.state !== "in-class" || open.length) ? "unknown" : att;
+  const against = att === "none" ? clearContradicted(z) : [];
+  const shown = against.length ? "unknown" : att;
   const reasons = Array.isArray(z.attention_reasons) ? z.attention_reasons.slice() : [];
   if (att === undefined) reasons.unshift("The daemon did not say whether anything needs a person.");
-  if (shown !== att) reasons.unshift("Shown as unknown: the daemon says nothing needs a person, but the particle state or the open alarms say otherwise.");
+  if (shown !== att) reasons.unshift("Shown as unknown: the daemon says nothing needs a person, but " + against.join("; ") + ".");
   document.getElementById("zone-head").replaceChildren(
     el("h1", {}, z.name || z.id),
     attentionBadge(shown, "big headline"),

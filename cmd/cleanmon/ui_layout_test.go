@@ -69,6 +69,13 @@ func uiWallScreen(t *testing.T, b *browser, url string, zones []uiZone) {
 	}
 	b.nothingClipped("overview at 1920×1080")
 	b.screenshot("overview-1920x1080")
+	b.open(url+"/zones/assembly", `document.body.dataset.chartsReady === "yes"`)
+	b.nothingClipped("zone page at 1920×1080")
+	b.screenshot("zone-1920x1080")
+	b.open(url+"/alarms", `document.body.dataset.ready === "yes"`)
+	b.nothingClipped("alarms page at 1920×1080")
+	b.screenshot("alarms-1920x1080")
+	b.open(url+"/", `document.body.dataset.ready === "yes"`)
 }
 
 // uiSmallScreen opens the overview, a zone page and the alarms page on a

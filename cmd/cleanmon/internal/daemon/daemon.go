@@ -352,7 +352,7 @@ func (d *Daemon) routes() http.Handler {
 		httpx.WriteError(w, http.StatusMethodNotAllowed, r.Method+" is not allowed on "+r.URL.Path)
 	})
 	d.api.Register(r)
-	web.New(web.Options{Site: d.cfg, Store: d.st, Certify: d.api, Access: d.auth, Errors: api.Errors, Log: d.log, Now: d.now}).Register(r)
+	web.New(web.Options{Site: d.cfg, Store: d.st, Certify: d.api, Records: d.api, Access: d.auth, Errors: api.Errors, Log: d.log, Now: d.now}).Register(r)
 	return r
 }
 

@@ -78,7 +78,7 @@ function render() {
       el("td", { class: "acked" }, a.acknowledged_by ? [a.acknowledged_by, a.acknowledged_at ? [" ", timeEl(a.acknowledged_at, true)] : "", a.comment ? [el("br"), "“" + a.comment + "”"] : ""] : "—"),
       el("td", {}, a.state === "active"
         ? el("button", { type: "button", class: "ack-btn", onclick: () => openAck(a) }, "Acknowledge")
-        : ""),
+        : "", " ", el("a", { class: "investigate", href: "/alarms/" + pathSegment(a.id) + "/investigation" }, "Investigate")),
     )))));
 }
 

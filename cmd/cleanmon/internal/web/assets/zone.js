@@ -7,6 +7,7 @@ import {
   init, get, request, poll, banner, explain, el, stateBadge, levelBadge, alarmStateBadge, num, pct,
   targetText, OP_STATES, sizeKeys, timeEl, ago,
 } from "./common.js";
+import { startRuns } from "./zone-runs.js";
 import { timeChart } from "./chart.js";
 
 const HOUR = 3600e3;
@@ -92,7 +93,7 @@ function renderAlarms(alarms) {
     return;
   }
   box.replaceChildren(el("table", { class: "alarm-table" },
-    el("thead", {}, el("tr", {}, ["State", "Level", "Kind", "Where", "Since", "Message", "Acknowledged"].map((h) => el("th", {}, h)))),
+    el("thead", {}, el("tr", {}, ["State", "Level", "Kind", "Where", "Since", "Message", "Acknowledged", ""].map((h) => el("th", {}, h)))),
     el("tbody", {}, mine.map((a) => el("tr", { dataset: { alarmId: a.id } },
       el("td", {}, alarmStateBadge(a.state)),
       el("td", {}, levelBadge(a.level)),
@@ -101,6 +102,7 @@ function renderAlarms(alarms) {
       el("td", {}, timeEl(a.since, true)),
       el("td", {}, a.message),
       el("td", {}, a.acknowledged_by ? a.acknowledged_by + (a.comment ? ": " + a.comment : "") : "—"),
+      el("td", {}, el("a", { class: "investigate", href: "/alarms/" + encodeURIComponent(a.id).replace(/%3A/gi, ":") + "/investigation" }, "Investigate")),
     )))));
 }
 
@@ -285,6 +287,7 @@ function wireControls() {
 
 init().then(() => {
   wireControls();
+  startRuns();
   poll(refreshHead, 5000);
   setInterval(() => {
     if (range === "1h" || range === "6h") drawCharts();

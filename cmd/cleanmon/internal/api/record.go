@@ -4,6 +4,7 @@ import (
 	"context"
 	"encoding/json"
 	"fmt"
+	"io"
 	"slices"
 	"time"
 
@@ -257,3 +258,19 @@ func levelTimeline(alarms []alerts.Alarm, first time.Time) []investigate.LevelCh
 	}
 	return out
 }
+
+// NoIngest takes nothing: for an API built over a store no daemon holds
+// (the offline month report), where nothing may be written.
+type NoIngest struct{}
+
+// PostReadings refuses.
+func (NoIngest) PostReadings(context.Context, string, int64, io.Reader) (collector.Result, error) {
+	return collector.Result{}, errReadOnly
+}
+
+// PostPressure refuses.
+func (NoIngest) PostPressure(context.Context, string, int64, io.Reader) (collector.Result, error) {
+	return collector.Result{}, errReadOnly
+}
+
+var errReadOnly = fmt.Errorf("%w: this API reads a store offline and takes no samples", collector.ErrCommit)

@@ -404,6 +404,9 @@ func (d *Daemon) Run(ctx context.Context) error {
 		if d.dm != nil {
 			live = d.dm.Feed(d.ingest)
 		}
+		if err := demoRuns(d.bg, d.st, d.now()); err != nil {
+			d.log.Warn("demo: production runs not recorded", "err", err)
+		}
 		if err := startDemo(d.bg, &d.wg, d.reg, d.zones, d.ingest, live, d.now, d.o.Speed, d.log); err != nil {
 			return fmt.Errorf("demo simulator: %w", err)
 		}

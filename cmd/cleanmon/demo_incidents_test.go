@@ -65,7 +65,9 @@ func demoIncidentAlarms(t *testing.T, d *testDaemon, want func(alarmJSON) bool) 
 func TestDemoIncidentsRankTheirCauseFirst(t *testing.T) {
 	d := startDemoBackfilled(t)
 	any := func(alarmJSON) bool { return true }
-	room := func(a alarmJSON) bool { return a.Kind != "pressure-low" && a.Kind != "pressure-reversal" && a.Kind != "stale" }
+	room := func(a alarmJSON) bool {
+		return a.Kind != "pressure-low" && a.Kind != "pressure-reversal" && a.Kind != "stale"
+	}
 	for _, c := range []struct {
 		name string
 		want func(alarmJSON) bool

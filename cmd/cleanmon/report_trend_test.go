@@ -140,3 +140,31 @@ func TestTrendFiguresAgainstRawReadings(t *testing.T) {
 	var js json.RawMessage
 	d.getJSON("/api/v1/zones/hood/trend", &js) // the default month answers too
 }
+
+// TestMonthlyTrendFiles: with reports.trend_dir set, the daemon writes
+// each zone's last month there at start, as HTML and PDF.
+func TestMonthlyTrendFiles(t *testing.T) {
+	dir := filepath.Join(t.TempDir(), "trends")
+	d := startSite(t, apiSite(false)+"reports:\n  trend_dir: "+dir+"\n", "")
+	n := time.Now().UTC()
+	month := time.Date(n.Year(), n.Month(), 1, 0, 0, 0, 0, time.UTC).AddDate(0, -1, 0).Format("2006-01")
+	want := []string{"trend-assembly-" + month + ".html", "trend-assembly-" + month + ".pdf", "trend-hood-" + month + ".pdf", "trend-fill-" + month + ".pdf"}
+	waitFor(t, 30*time.Second, "the monthly trend files", func() bool {
+		for _, f := range want {
+			if _, err := os.Stat(filepath.Join(dir, f)); err != nil {
+				return false
+			}
+		}
+		return true
+	})
+	b, _ := os.ReadFile(filepath.Join(dir, want[1]))
+	if !bytes.HasPrefix(b, []byte("%PDF-")) {
+		t.Errorf("%s is not a PDF", want[1])
+	}
+	if _, err := os.Stat(filepath.Join(dir, "trend-corridor-"+month+".pdf")); err == nil {
+		t.Error("a trend was written for the corridor, which has no location")
+	}
+	if !strings.Contains(d.stderr.String(), "monthly trend reports written") {
+		t.Error("the daemon did not log the monthly reports")
+	}
+}

@@ -308,6 +308,7 @@ func (d *Daemon) startBackground() error {
 	}
 	// Before the store closes: a poll in flight commits or fails first.
 	d.push(func() error { stopModbus(); return nil })
+	d.startTrendFiles()
 	return nil
 }
 

@@ -42,6 +42,9 @@ type exposureAlarmJSON struct {
 	Peak      float64    `json:"peak"`
 	PeakTime  time.Time  `json:"peak_time"`
 	Excursion bool       `json:"excursion"`
+	// ConditionGone: the condition has passed but the alarm, latched,
+	// waits for its acknowledgement and counts until then.
+	ConditionGone bool `json:"condition_gone"`
 }
 
 type peakJSON struct {
@@ -118,7 +121,7 @@ func (s *Server) exposure(ctx context.Context, id string) (exposureJSON, error) 
 	for _, a := range ex.Alarms {
 		full := byID[a.ID]
 		aj := exposureAlarmJSON{ID: a.ID, Kind: a.Kind, Level: a.Level, Location: a.Location, SizeUM: full.SizeUM, Since: a.Since,
-			Peak: a.Peak, PeakTime: a.PeakTime, Excursion: particleKinds[a.Kind]}
+			Peak: a.Peak, PeakTime: a.PeakTime, Excursion: particleKinds[a.Kind], ConditionGone: full.ConditionGone}
 		if !a.Cleared.IsZero() {
 			c := a.Cleared
 			aj.Cleared = &c
@@ -140,6 +143,7 @@ func (s *Server) exposure(ctx context.Context, id string) (exposureJSON, error) 
 	if rec.First.IsZero() {
 		out.Notes = append(out.Notes, "no reading of the zone during the run: nothing is known of its air, and the time counts as unknown")
 	}
+	out.Notes = append(out.Notes, "an alarm counts from when its condition was first seen until it cleared; a latched alarm whose condition has passed counts until it is acknowledged")
 	out.Notes = append(out.Notes, "time by attention level is reconstructed from the alarm journal: the worst open alarm of the zone, none between alarms, unknown before the first reading")
 	return out, nil
 }

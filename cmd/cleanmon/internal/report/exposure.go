@@ -54,6 +54,8 @@ type ExposureAlarm struct {
 	Peak      float64    `json:"peak"`
 	PeakTime  time.Time  `json:"peak_time"`
 	Excursion bool       `json:"excursion"`
+	// ConditionGone: passed, but latched until acknowledged.
+	ConditionGone bool `json:"condition_gone"`
 }
 
 // Peak is the highest concentration at one size during the run.
@@ -192,7 +194,7 @@ const exposureTemplate = `<!DOCTYPE html>
 </dl>
 <h2>Alarms that overlapped the run ({{len .Alarms}}, {{.Excursions}} about particles)</h2>
 {{if .Alarms}}<table><thead><tr><th>Level</th><th>Kind</th><th>Where</th><th>Size</th><th>Since</th><th>Cleared</th><th>Peak</th><th>Alarm</th></tr></thead><tbody>
-{{range .Alarms}}<tr class="{{.Level}}"><td>{{.Level}}</td><td>{{.Kind}}</td><td>{{dash .Location}}</td><td>{{size .SizeUM}}</td><td>{{stamp .Since}}</td><td>{{cleared .Cleared}}</td><td class="n">{{num .Peak}}</td><td>{{.ID}}</td></tr>
+{{range .Alarms}}<tr class="{{.Level}}"><td>{{.Level}}</td><td>{{.Kind}}</td><td>{{dash .Location}}</td><td>{{size .SizeUM}}</td><td>{{stamp .Since}}</td><td>{{cleared .Cleared}}{{if .ConditionGone}} (condition passed, awaiting acknowledgement){{end}}</td><td class="n">{{num .Peak}}</td><td>{{.ID}}</td></tr>
 {{end}}</tbody></table>{{else}}<p>No alarm of the zone overlapped the run.</p>{{end}}
 <h2>Time by attention level</h2>
 <table><thead><tr><th>Level</th><th>Time</th><th>Share</th></tr></thead><tbody>

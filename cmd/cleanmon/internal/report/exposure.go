@@ -142,8 +142,12 @@ func WriteExposureText(w io.Writer, e Exposure) error {
 	fmt.Fprintf(&b, "Figures up to %s; generated %s\n\n", stamp(e.Until), stamp(e.Generated))
 	fmt.Fprintf(&b, "Alarms that overlapped the run: %d (%d about particles)\n", len(e.Alarms), e.Excursions)
 	for _, a := range e.Alarms {
-		fmt.Fprintf(&b, "  %-7s %-18s %-8s %-10s since %s, cleared %s, peak %s\n", a.Level, a.Kind, dash(a.Location), sizeText(a.SizeUM),
-			stamp(a.Since), clearedText(a.Cleared), GroupDigits(a.Peak))
+		gone := ""
+		if a.ConditionGone {
+			gone = " (condition passed, awaiting acknowledgement)"
+		}
+		fmt.Fprintf(&b, "  %-7s %-18s %-8s %-10s since %s, cleared %s%s, peak %s\n    %s\n", a.Level, a.Kind, dash(a.Location), sizeText(a.SizeUM),
+			stamp(a.Since), clearedText(a.Cleared), gone, GroupDigits(round1(a.Peak)), a.ID)
 	}
 	b.WriteString("\nTime by attention level:\n")
 	for _, r := range LevelRows(e.TimeByLevel) {

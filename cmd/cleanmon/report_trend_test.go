@@ -15,6 +15,7 @@ import (
 
 	"gonum.org/v1/gonum/stat"
 
+	"cleanmon/cmd/cleanmon/internal/daemon"
 	"cleanmon/cmd/cleanmon/internal/report"
 )
 
@@ -166,5 +167,42 @@ func TestMonthlyTrendFiles(t *testing.T) {
 	}
 	if !strings.Contains(d.stderr.String(), "monthly trend reports written") {
 		t.Error("the daemon did not log the monthly reports")
+	}
+}
+
+// TestReportTrendFromStore: with --data and --config the month comes from
+// a store no daemon holds, and a store a daemon holds is refused.
+func TestReportTrendFromStore(t *testing.T) {
+	cfg := filepath.Join(t.TempDir(), "site.yaml")
+	if err := os.WriteFile(cfg, []byte(apiSite(false)), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	data := t.TempDir()
+	d := startTestDaemon(t, daemon.Options{ConfigPath: cfg, DataDir: data})
+	// Seven samples from noon of yesterday: one month, whatever today is.
+	y := time.Now().UTC().AddDate(0, 0, -1)
+	noon := time.Date(y.Year(), y.Month(), y.Day(), 12, 0, 0, 0, time.UTC)
+	var rs []postedReading
+	for i := 1; i <= 7; i++ {
+		rs = append(rs, postedReading{Counter: "pc-hood", Time: rfcTime(noon.Add(time.Duration(i) * time.Minute)), VolumeL: 28.3,
+			Counts: map[string]uint64{"0.3": 30, "0.5": 10, "1": 2, "5": 0}})
+	}
+	d.post(rs...)
+	month := noon.Format("2006-01")
+	var out, errb bytes.Buffer
+	if code := run([]string{"report", "trend", "--zone", "hood", "--month", month, "--data", data, "--config", cfg}, &out, &errb); code != 1 || !strings.Contains(errb.String(), "use --url") {
+		t.Errorf("report trend on a store the daemon holds: exit %d: %s", code, errb.String())
+	}
+	if code := d.stop(); code != 0 {
+		t.Fatalf("daemon exit %d", code)
+	}
+	out.Reset()
+	errb.Reset()
+	if code := run([]string{"report", "trend", "--zone", "hood", "--month", month, "--data", data, "--config", cfg}, &out, &errb); code != 0 {
+		t.Fatalf("report trend --data: exit %d: %s", code, errb.String())
+	}
+	// 10 particles in 28.3 L, every sample: 353.4 /m³, printed whole.
+	if !strings.Contains(out.String(), "n 7, mean 353, p95 353") {
+		t.Errorf("report trend --data lacks n 7 and the mean 353 /m³:\n%s", out.String())
 	}
 }

@@ -5,6 +5,8 @@ import (
 	"encoding/json"
 	"fmt"
 	"net/http"
+	"os"
+	"path/filepath"
 	"strings"
 	"testing"
 	"time"
@@ -152,9 +154,22 @@ func TestRunsRecordAuditAndRefuse(t *testing.T) {
 	if code, _, _ := d.do("POST", "/api/v1/runs/NO-SUCH/close", secretOperator, "", nil); code != 404 {
 		t.Fatalf("close of an unknown run: %d, want 404", code)
 	}
+	// The command posts a file the same way, naming the file and line of
+	// a refusal.
+	t.Setenv("CLEANMON_TOKEN", secretOperator)
+	file := filepath.Join(t.TempDir(), "runs.csv")
+	os.WriteFile(file, []byte("id,zone,start\nLOT-D1,assembly,"+rfcTime(t0)+"\nLOT-D2,nowhere,"+rfcTime(t0)+"\n"), 0o600)
+	var out, errb bytes.Buffer
+	if code := run([]string{"runs", "import", "--url", d.url, file}, &out, &errb); code != 2 || !strings.Contains(errb.String(), "runs.csv") || !strings.Contains(errb.String(), "zone") {
+		t.Errorf("runs import of a bad file: exit %d, %s", code, errb.String())
+	}
+	os.WriteFile(file, []byte("id,zone,start\nLOT-D1,assembly,"+rfcTime(t0)+"\n"), 0o600)
+	if code := run([]string{"runs", "import", "--url", d.url, file}, &out, &errb); code != 0 {
+		t.Errorf("runs import: exit %d, %s", code, errb.String())
+	}
 	d.getJSON("/api/v1/runs", &runs)
-	if len(runs) != 3 {
-		t.Fatalf("%d runs, want 3: %+v", len(runs), runs)
+	if len(runs) != 4 {
+		t.Fatalf("%d runs, want 4: %+v", len(runs), runs)
 	}
 	// Every change is in the audit chain, tied to the token that made it.
 	var audit []struct{ Actor, Action, Subject string }
@@ -165,7 +180,8 @@ func TestRunsRecordAuditAndRefuse(t *testing.T) {
 			got[a.Action+" "+strings.SplitN(a.Subject, ":", 2)[0]] = a.Actor
 		}
 	}
-	want := map[string]string{"run-create LOT-A1": "scada", "run-create LOT-C1": "shift-lead", "run-create LOT-C2": "shift-lead", "run-close LOT-A1": "shift-lead"}
+	want := map[string]string{"run-create LOT-A1": "scada", "run-create LOT-C1": "shift-lead", "run-create LOT-C2": "shift-lead", "run-close LOT-A1": "shift-lead",
+		"run-create LOT-D1": "shift-lead"}
 	for k, v := range want {
 		if got[k] != v {
 			t.Errorf("audit %s by %q, want %q (all: %v)", k, got[k], v, got)

@@ -161,11 +161,12 @@ func (f *incidentFeed) SubmitReadings(ctx context.Context, raws []collector.RawR
 	}
 	f.due(&f.readTo, first, last, func(s *staged) []time.Time { return s.times },
 		func(s *staged, i int) { out = append(out, s.readings[i]) })
+	next := f.next
 	f.mu.Unlock()
 	if len(out) == 0 {
 		return collector.Result{}, nil
 	}
-	return f.next.SubmitReadings(ctx, out)
+	return next.SubmitReadings(ctx, out)
 }
 
 // SubmitPressure implements collector.Submitter.
@@ -186,11 +187,12 @@ func (f *incidentFeed) SubmitPressure(ctx context.Context, raws []collector.RawP
 	}
 	f.due(&f.dpTo, first, last, func(s *staged) []time.Time { return s.ptimes },
 		func(s *staged, i int) { out = append(out, s.pressure[i]) })
+	next := f.next
 	f.mu.Unlock()
 	if len(out) == 0 {
 		return collector.Result{}, nil
 	}
-	return f.next.SubmitPressure(ctx, out)
+	return next.SubmitPressure(ctx, out)
 }
 
 // due hands on (through add) the staged samples with times in

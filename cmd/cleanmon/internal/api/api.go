@@ -89,6 +89,8 @@ func (s *Server) Register(r chi.Router) {
 		r.With(short, read).Get("/audit/head", s.auditHead)
 		r.With(long, read).Get("/sensors/{sensor}/pressure", s.sensorPressure)
 
+		s.registerRecords(r, read, short, long)
+
 		r.With(httpx.Timeout(httpx.BackupTimeout), s.auth.Require(access.PermAdmin)).Get("/backup", s.backup)
 	})
 }

@@ -25,7 +25,7 @@ func (f *targetFlags) register(fs *flag.FlagSet, defSizes string, withArea bool)
 	fs.BoolVar(&f.allowBlank, "allow-blank-cells", false, "accept sizes the class table leaves blank (reported, not judged)")
 	if withArea {
 		fs.Float64Var(&f.area, "area", 0, "floor area of the zone in m²")
-		fs.Float64Var(&f.flow, "flow", classify.DefaultFlowLPM, "counter sample flow in L/min")
+		fs.Float64Var(&f.flow, "flow", classify.DefaultFlowLPM, "counter sample flow in L/min: the plan's sample time, and the sampling time of a sample without duration_s (its volume over this flow), checked against the 1-minute minimum")
 	}
 }
 

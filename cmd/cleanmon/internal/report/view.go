@@ -110,7 +110,7 @@ func newView(t classify.Target, o Certification) (view, error) {
 	}
 	v.Sequential = sequentialLines(r)
 	v.Instruments, v.NoInstr = instrumentRows(r)
-	v.Samples = sampleRows(r)
+	v.Samples = sampleRows(r, o.SamplesFile)
 	v.Map, v.MapNote = locationMap(o)
 	v.Signatures = signatureLines(o.Signatures)
 	return v, nil
@@ -272,7 +272,7 @@ func calibrationStatus(in classify.Instrument, at []time.Time) string {
 	return "valid on every sampling date"
 }
 
-func sampleRows(r classify.Report) []sampleRow {
+func sampleRows(r classify.Report, file string) []sampleRow {
 	var out []sampleRow
 	for _, l := range r.Locations {
 		for _, s := range l.SampleResults {
@@ -280,6 +280,9 @@ func sampleRows(r classify.Report) []sampleRow {
 				Volume: fmt.Sprintf("%.2f", s.VolumeL), Minutes: fmt.Sprintf("%.2f", s.Minutes)}
 			if row.Sample == "" {
 				row.Sample = s.Ref
+				if file != "" {
+					row.Sample = strings.TrimPrefix(s.Ref, file+" ") // "line 7": the file is named above
+				}
 			}
 			if s.Time != nil {
 				row.Time = s.Time.UTC().Format("2006-01-02 15:04:05")

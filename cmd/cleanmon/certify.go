@@ -57,22 +57,7 @@ func runCertify(args []string, stdout, stderr io.Writer) int {
 	if err != nil {
 		return fail(stderr, "certify", err)
 	}
-	err = writeOutput(c.out, stdout, func(w io.Writer) error {
-		switch c.format {
-		case "json":
-			b, err := report.JSON(o)
-			if err == nil {
-				_, err = w.Write(b)
-			}
-			return err
-		case "html":
-			return report.WriteHTML(w, t, o)
-		case "pdf":
-			return report.WritePDF(w, t, o)
-		default:
-			return report.WriteText(w, t, o)
-		}
-	})
+	err = writeOutput(c.out, stdout, func(w io.Writer) error { return report.Write(w, c.format, t, o) })
 	if err != nil {
 		// Not exit 1: scripts read 1 as "the zone failed".
 		return fail(stderr, "certify", fmt.Errorf("writing the report: %w", err))
@@ -86,10 +71,8 @@ func runCertify(args []string, stdout, stderr io.Writer) int {
 // certify reads the files the flags name and certifies the samples.
 func (c *certifyFlags) certify(name string) (report.Certification, classify.Target, error) {
 	o := c.meta
-	switch c.format {
-	case "text", "json", "html", "pdf":
-	default:
-		return o, classify.Target{}, fmt.Errorf("--format: %q (want text, json, html or pdf)", c.format)
+	if err := report.CheckFormat(c.format); err != nil {
+		return o, classify.Target{}, fmt.Errorf("--format: %w", err)
 	}
 	t, err := c.tf.target(true)
 	if err != nil {
@@ -110,11 +93,13 @@ func (c *certifyFlags) certify(name string) (report.Certification, classify.Targ
 		opt.Macro = &m
 	}
 	if c.instr != "" {
-		in, err := readInstruments(c.instr)
+		data, err := os.ReadFile(c.instr)
+		if err == nil {
+			opt.Instruments, err = collector.ReadInstruments(bytes.NewReader(data), c.instr)
+		}
 		if err != nil {
 			return o, t, err
 		}
-		opt.Instruments = in
 	}
 	data, err := os.ReadFile(name)
 	if err != nil {
@@ -134,39 +119,9 @@ func (c *certifyFlags) certify(name string) (report.Certification, classify.Targ
 		o.Date = time.Now().UTC().Format("2006-01-02")
 	}
 	if c.length > 0 {
-		if err := placeAtPlan(&o, c.length, c.width); err != nil {
-			return o, t, err
+		if err := report.PlaceAtPlan(&o, c.length, c.width); err != nil {
+			return o, t, fmt.Errorf("--length, --width: %w", err)
 		}
 	}
 	return o, t, nil
-}
-
-// readInstruments reads an instruments CSV (--instruments).
-func readInstruments(name string) ([]classify.Instrument, error) {
-	f, err := os.Open(name)
-	if err != nil {
-		return nil, err
-	}
-	defer f.Close()
-	return collector.ReadInstruments(f, name)
-}
-
-// placeAtPlan gives the map its outline and puts each location that has
-// no coordinates of its own at the plan layout's section centre of the
-// same rank (the order the locations were first sampled in).
-func placeAtPlan(o *report.Certification, length, width float64) error {
-	o.Room = &report.Room{LengthM: length, WidthM: width}
-	pts, err := classify.Layout(length, width, max(o.RequiredLocations, len(o.Locations)))
-	if err != nil {
-		return fmt.Errorf("--length, --width: %w", err)
-	}
-	for i := range o.Locations {
-		l := &o.Locations[i]
-		if l.XM == nil && l.YM == nil {
-			x, y := pts[i].XM, pts[i].YM
-			l.XM, l.YM = &x, &y
-			o.PositionsFromPlan = true
-		}
-	}
-	return nil
 }

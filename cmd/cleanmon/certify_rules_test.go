@@ -156,7 +156,7 @@ func TestRecoveryBadInput(t *testing.T) {
 		args       []string
 		want       string
 	}{
-		{"two locations", "location,time,volume_l,0.5um\nA,2026-03-04T09:00:00Z,100,10\nB,2026-03-04T09:01:00Z,100,5\n", nil, "--location"},
+		{"two locations", "location,time,volume_l,0.5um\nA,2026-03-04T09:00:00Z,100,10\nB,2026-03-04T09:01:00Z,100,5\n", nil, "r.csv: classify: invalid samples: the samples hold 2 locations"},
 		{"no time", "location,volume_l,0.5um\nA,100,10\nA,100,5\nA,100,2\n", nil, "line 2, field time"},
 		{"no decay", "location,time,volume_l,0.5um\nA,2026-03-04T09:00:00Z,100,10\nA,2026-03-04T09:01:00Z,100,20\n", nil, "r.csv"},
 		{"bad size", "location,time,volume_l,0.5um\nA,2026-03-04T09:00:00Z,100,10\n", []string{"--size", "9"}, "--size"},

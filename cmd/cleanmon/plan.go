@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -9,22 +8,6 @@ import (
 	"cleanmon/classify"
 	"cleanmon/cmd/cleanmon/internal/report"
 )
-
-// planOut is the JSON of `cleanmon plan --json`: the plan, and the
-// location layout when the zone's length and width were given.
-type planOut struct {
-	classify.Plan
-	LengthM float64        `json:"length_m,omitempty"`
-	WidthM  float64        `json:"width_m,omitempty"`
-	Layout  []plannedPlace `json:"layout,omitempty"`
-}
-
-// plannedPlace is one sampling location of the layout.
-type plannedPlace struct {
-	ID string  `json:"id"`
-	XM float64 `json:"x_m"`
-	YM float64 `json:"y_m"`
-}
 
 func runPlan(args []string, stdout, stderr io.Writer) int {
 	fs := newFlags("plan", "--class N (--area M2 | --length L --width W) --sizes LIST [--edition 2015|1999] [--flow LPM] [--json]   (or --grade A|B|C|D --state …)", stderr)
@@ -45,21 +28,16 @@ func runPlan(args []string, stdout, stderr io.Writer) int {
 		return fail(stderr, "plan", err)
 	}
 	if *asJSON {
-		enc := json.NewEncoder(stdout)
-		enc.SetIndent("", "  ")
-		if err := enc.Encode(out); err != nil {
-			return exitFail
-		}
-		return exitOK
+		return printJSON(stdout, out)
 	}
-	printPlan(stdout, t, out)
+	report.WritePlan(stdout, t, out)
 	return exitOK
 }
 
 // makePlan checks the flags and makes the plan, its sequential-sampling
 // advice and, with a length and width, its layout.
-func makePlan(tf *targetFlags, length, width float64) (planOut, classify.Target, error) {
-	var out planOut
+func makePlan(tf *targetFlags, length, width float64) (report.PlanSheet, classify.Target, error) {
+	var out report.PlanSheet
 	if (length > 0) != (width > 0) || length < 0 || width < 0 {
 		return out, classify.Target{}, fmt.Errorf("--length and --width: give both, in metres, or neither")
 	}
@@ -75,53 +53,8 @@ func makePlan(tf *targetFlags, length, width float64) (planOut, classify.Target,
 		return out, t, err
 	}
 	p, err := classify.MakePlan(t)
-	if err != nil {
-		return out, t, err
+	if err == nil {
+		out, err = report.NewPlanSheet(p, length, width)
 	}
-	adv := classify.AdviseSequential(p.LimitAtLargestPerM3, p.FlowLPM)
-	p.Sequential = &adv
-	out.Plan = p
-	if length > 0 {
-		pts, err := classify.Layout(length, width, p.Locations)
-		if err != nil {
-			return out, t, err
-		}
-		out.LengthM, out.WidthM = length, width
-		for i, q := range pts {
-			out.Layout = append(out.Layout, plannedPlace{ID: fmt.Sprintf("L%02d", i+1), XM: math.Round(q.XM*100) / 100, YM: math.Round(q.YM*100) / 100})
-		}
-	}
-	return out, t, nil
-}
-
-func printPlan(w io.Writer, t classify.Target, o planOut) {
-	p := o.Plan
-	fmt.Fprintf(w, "Sampling plan: %s, %s, %s m², ISO 14644-1:%s\n", t.Name(), p.State, classify.FormatSize(p.AreaM2), p.Edition)
-	fmt.Fprintf(w, "  sampling locations (minimum)  %d\n", p.Locations)
-	fmt.Fprintf(w, "  largest considered size       %s µm (limit %s /m³)\n", classify.FormatSize(p.LargestSizeUM), report.GroupDigits(p.LimitAtLargestPerM3))
-	fmt.Fprintf(w, "  single sample volume (min)    %.2f L\n", p.SampleVolumeL)
-	fmt.Fprintf(w, "  sample time at %s L/min     %.2f min (%.2f L drawn)\n", classify.FormatSize(p.FlowLPM), p.SampleMinutes, p.VolumeAtFlowL)
-	if p.MinSamplesPerLocation > 1 {
-		fmt.Fprintf(w, "  samples per location (min)    %d\n", p.MinSamplesPerLocation)
-	}
-	if p.MinVolumePerLocationL > 0 {
-		fmt.Fprintf(w, "  air per location (min)        %s L\n", report.GroupDigits(p.MinVolumePerLocationL))
-	}
-	if s := p.Sequential; s != nil {
-		if s.Suggested {
-			fmt.Fprintf(w, "  sequential sampling           suggested: %s\n", s.Reason)
-		} else {
-			fmt.Fprintf(w, "  sequential sampling           not needed: %s\n", s.Reason)
-		}
-	}
-	if len(o.Layout) > 0 {
-		fmt.Fprintf(w, "  locations at the centres of %d equal sections of %s m × %s m (x along the length, y along the width):\n",
-			len(o.Layout), classify.FormatSize(o.LengthM), classify.FormatSize(o.WidthM))
-		for _, l := range o.Layout {
-			fmt.Fprintf(w, "    %s  x %6.2f m  y %6.2f m\n", l.ID, l.XM, l.YM)
-		}
-	}
-	for _, n := range p.Notes {
-		fmt.Fprintf(w, "note: %s\n", n)
-	}
+	return out, t, err
 }

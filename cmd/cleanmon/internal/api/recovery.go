@@ -3,7 +3,6 @@ package api
 import (
 	"errors"
 	"fmt"
-	"math"
 	"net/http"
 	"strconv"
 	"time"
@@ -15,68 +14,10 @@ import (
 	"cleanmon/store"
 )
 
-// RecoveryPoint is one concentration of a recovery series.
-type RecoveryPoint struct {
-	Time   time.Time `json:"time"`
-	Minute float64   `json:"minute"` // since the first point of the series
-	PerM3  float64   `json:"per_m3"`
-	Used   bool      `json:"used"` // part of the fitted decay
-}
-
-// RecoveryAnswer is an ISO 14644-3 recovery test: the JSON of
-// GET /api/v1/zones/{zone}/recovery and of `cleanmon recovery --format
-// json`, which are made by the same FitRecovery.
-type RecoveryAnswer struct {
-	SizeUM      string    `json:"size_um"`
-	TargetClass *float64  `json:"target_class,omitempty"`
-	FloorPerM3  float64   `json:"floor_per_m3"`
-	Start       time.Time `json:"start"`
-	classify.Recovery
-	Series []RecoveryPoint `json:"series"`
-}
-
-// ErrRecovery reports a series from which no recovery rate can be fitted.
-var ErrRecovery = errors.New("no recovery rate")
-
-// FitRecovery fits the log-linear decay of a series of concentrations at
-// one size, in time order. With a target class the fit stops before the
-// first point at or below the class limit at that size (ISO 14644-1:2015),
-// where the decay flattens into the room's background.
-func FitRecovery(times []time.Time, perM3 []float64, sizeUM float64, targetClass *float64) (RecoveryAnswer, error) {
-	a := RecoveryAnswer{SizeUM: classify.FormatSize(sizeUM), TargetClass: targetClass, Series: []RecoveryPoint{}}
-	if len(times) == 0 || len(times) != len(perM3) {
-		return a, fmt.Errorf("%w: %d times and %d concentrations", ErrRecovery, len(times), len(perM3))
-	}
-	if targetClass != nil {
-		l, err := classify.ISOLimit(*targetClass, sizeUM, classify.Edition2015)
-		if err != nil {
-			return a, fmt.Errorf("%w: target class: %v", ErrRecovery, err)
-		}
-		if !l.Specified {
-			return a, fmt.Errorf("%w: ISO %s has no limit at %s µm: %s", ErrRecovery, classify.FormatClass(*targetClass), a.SizeUM, l.Note)
-		}
-		a.FloorPerM3 = l.PerM3
-	}
-	a.Start = times[0].UTC()
-	mins := make([]float64, len(times))
-	for i, t := range times {
-		mins[i] = t.Sub(times[0]).Minutes()
-		a.Series = append(a.Series, RecoveryPoint{Time: t.UTC(), Minute: math.Round(mins[i]*1000) / 1000, PerM3: perM3[i]})
-	}
-	r, err := classify.RecoveryFit(mins, perM3, a.FloorPerM3)
-	if err != nil {
-		return a, fmt.Errorf("%w: %v", ErrRecovery, err)
-	}
-	a.Recovery = r
-	for i := range a.Series {
-		a.Series[i].Used = mins[i] >= r.FromMin && mins[i] <= r.ToMin
-	}
-	return a, nil
-}
-
 // zoneRecovery is GET /api/v1/zones/{zone}/recovery?from=&to=[&location=]
 // [&size=][&target_class=]: the recovery test on the stored readings of
-// one location in [from, to). The size defaults to 0.5 µm when the zone
+// one location in [from, to), the same classify.FitRecoveryTest as
+// `cleanmon recovery`. The size defaults to 0.5 µm when the zone
 // is judged there, else its smallest size; the target class to the
 // zone's class.
 func (s *Server) zoneRecovery(w http.ResponseWriter, r *http.Request) {
@@ -105,7 +46,7 @@ func (s *Server) zoneRecovery(w http.ResponseWriter, r *http.Request) {
 		p.write(w)
 		return
 	}
-	a, err := FitRecovery(times, conc, size, target)
+	a, err := classify.FitRecoveryTest(times, conc, size, target)
 	if err != nil {
 		httpx.WriteError(w, http.StatusUnprocessableEntity, fmt.Sprintf("location %s, %s µm: %v", counters[0].location, classify.FormatSize(size), err))
 		return

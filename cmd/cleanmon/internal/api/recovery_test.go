@@ -13,6 +13,7 @@ import (
 	"github.com/go-chi/chi/v5"
 
 	"cleanmon/alerts"
+	"cleanmon/classify"
 	"cleanmon/store"
 )
 
@@ -82,7 +83,7 @@ func TestZoneRecovery(t *testing.T) {
 	}
 }
 
-// The CLI and the route answer with the same FitRecovery: the JSON keys
+// The CLI and the route answer with the same FitRecoveryTest: the JSON keys
 // are the ones the README documents.
 func TestRecoveryAnswerKeys(t *testing.T) {
 	var times []time.Time
@@ -92,7 +93,7 @@ func TestRecoveryAnswerKeys(t *testing.T) {
 		conc = append(conc, float64(c)*10)
 	}
 	five := 5.0
-	a, err := FitRecovery(times, conc, 0.5, &five)
+	a, err := classify.FitRecoveryTest(times, conc, 0.5, &five)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -102,7 +103,7 @@ func TestRecoveryAnswerKeys(t *testing.T) {
 			t.Errorf("answer lacks %q: %s", k, b)
 		}
 	}
-	if _, err := FitRecovery(times[:2], conc[:2], 0.5, nil); err == nil {
+	if _, err := classify.FitRecoveryTest(times[:2], conc[:2], 0.5, nil); err == nil {
 		t.Error("two points fitted")
 	}
 }

@@ -10,7 +10,10 @@ import (
 	"encoding/base64"
 	"encoding/hex"
 	"encoding/json"
+	"errors"
 	"fmt"
+	"io"
+	"slices"
 	"strings"
 	"time"
 
@@ -39,6 +42,39 @@ type Certification struct {
 	// Signatures are electronic signatures of the report identifier; they
 	// are shown in the signature block and are not part of the JSON.
 	Signatures []Signature `json:"-"`
+}
+
+// ErrFormat reports a report format that is not one of Formats.
+var ErrFormat = errors.New("unknown report format")
+
+// Formats are the formats Write renders.
+var Formats = []string{"text", "json", "html", "pdf"}
+
+// CheckFormat accepts one of Formats.
+func CheckFormat(format string) error {
+	if !slices.Contains(Formats, format) {
+		return fmt.Errorf("%w %q (want %s)", ErrFormat, format, strings.Join(Formats, ", "))
+	}
+	return nil
+}
+
+// Write renders o, certified against t, in a format of Formats.
+func Write(w io.Writer, format string, t classify.Target, o Certification) error {
+	switch format {
+	case "json":
+		b, err := JSON(o)
+		if err == nil {
+			_, err = w.Write(b)
+		}
+		return err
+	case "html":
+		return WriteHTML(w, t, o)
+	case "pdf":
+		return WritePDF(w, t, o)
+	case "text":
+		return WriteText(w, t, o)
+	}
+	return CheckFormat(format)
 }
 
 // Room is the zone's floor rectangle in metres, x along its length.

@@ -151,7 +151,7 @@ func (s *Server) certifyStored(ctx context.Context, zone string, from, to time.T
 	for _, state := range sortedStates(pooled.byState) {
 		t := base
 		t.State = state
-		rep, err := classify.Certify(t, pooled.byState[state])
+		rep, err := classify.CertifyWith(t, pooled.byState[state], classify.Options{Instruments: s.cfg.Instruments(zone)})
 		if err != nil {
 			return classify.Report{}, &problem{status: http.StatusUnprocessableEntity, msg: fmt.Sprintf("stored readings taken %s cannot be certified: %v", state, err)}
 		}

@@ -1,6 +1,8 @@
 package main
 
 import (
+	"cleanmon/alerts/investigate"
+	"cleanmon/cmd/cleanmon/internal/daemon"
 	"context"
 	"crypto/sha256"
 	"encoding/hex"
@@ -372,11 +374,27 @@ func TestDemoFirstDayIsQuiet(t *testing.T) {
 	metrics := metricsText(t, d)
 	var all []judgedAlarm
 	getJSON(t, d, "/api/v1/alarms?state=all&since="+time.Now().UTC().Add(-26*time.Hour).Format(time.RFC3339), &all)
-	trend := 0
+	// The demo stages incidents of known cause every two hours (a door
+	// held open for minutes, a fan failure among them): a DP alarm must be
+	// one of those, never one of the simulator's door openings, each
+	// shorter than its sensor's delay.
+	incidents := daemon.DemoIncidents(time.Now().Add(-27*time.Hour), time.Now().Add(time.Hour))
+	staged := func(at time.Time) bool {
+		for _, inc := range incidents {
+			if (inc.Cause == investigate.CauseDoorHeldOpen || inc.Cause == investigate.CauseFanFailure) && !at.Before(inc.From) && at.Before(inc.To) {
+				return true
+			}
+		}
+		return false
+	}
+	trend, dp := 0, 0
 	for _, a := range all {
 		switch a.Kind {
 		case "pressure-low":
-			t.Errorf("alarm record for a door opening: %+v", a)
+			dp++
+			if !staged(a.Since) {
+				t.Errorf("alarm record of a DP dip that no staged incident explains (a door opening?): %+v", a)
+			}
 		case "trend":
 			trend++
 		}
@@ -414,5 +432,5 @@ func TestDemoFirstDayIsQuiet(t *testing.T) {
 			t.Errorf("zone %s has open alarms and attention none: %+v", z.ID, z)
 		}
 	}
-	t.Logf("demo day: %d alarm records, %d trend, %.0f door openings", len(all), trend, doors)
+	t.Logf("demo day: %d alarm records, %d trend, %d DP alarms of %d staged incidents, %.0f door openings", len(all), trend, dp, len(incidents), doors)
 }

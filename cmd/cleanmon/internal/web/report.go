@@ -93,5 +93,5 @@ func (s *Server) certifyReport(w http.ResponseWriter, r *http.Request) {
 	w.Header().Set("Content-Disposition", `attachment; filename="`+name+`.html"`)
 	w.Header().Set("Cache-Control", "no-store")
 	w.WriteHeader(http.StatusOK)
-	w.Write(b.Bytes())
+	w.Write(report.WithSignatures(b.Bytes(), s.reportSignatureLines(reportSubject(zone, from, to), body)))
 }

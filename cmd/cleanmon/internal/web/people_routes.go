@@ -185,4 +185,3 @@ func (s *Server) reportSignatureLines(subject string, content []byte) []string {
 	}
 	return lines
 }
-

@@ -92,7 +92,9 @@ func (s *Server) ackAlarm(w http.ResponseWriter, r *http.Request) {
 	}
 	open, content, found := s.activeAlarm(id)
 	if !found {
-		content = []byte(id)
+		// Nothing open to sign: the acknowledgement below is refused
+		// (unknown or cleared alarm) and says why.
+		req.Signature = nil
 	}
 	act, ok := s.signedActor(w, r, req.By, req.Signature, people.MeaningAcknowledged, found && open.Level == "action", alarmSubject(id), content)
 	if !ok {

@@ -46,7 +46,7 @@ func (s *Server) signedActor(w http.ResponseWriter, r *http.Request, remark stri
 	}
 	who := sess.Person.FullName + " (" + sess.Person.Name + ")"
 	if sr == nil {
-		if need || s.auth.SignaturesRequired() {
+		if need || (content != nil && s.auth.SignaturesRequired()) {
 			httpx.WriteFieldError(w, "signature", fmt.Sprintf("missing: sign with your password and the meaning %q", want))
 			return actor{}, false
 		}

@@ -20,8 +20,8 @@ func (d *nodeDecoder) checkPeople(a access.AccountsConfig, o access.OIDCConfig) 
 	if a.Lockout < 0 {
 		d.add("accounts.lockout", "%d: want the number of wrong passwords in a row that lock an account (default %d)", a.Lockout, people.DefaultMaxFailures)
 	}
-	if a.Idle() < 0 || (a.Idle() > 0 && a.Idle() < 10*time.Second) {
-		d.add("accounts.idle_timeout", "%s: want at least 10s (default %s)", a.Idle(), people.DefaultIdleTimeout)
+	if a.Idle() < 0 || (a.Idle() > 0 && a.Idle() < time.Second) {
+		d.add("accounts.idle_timeout", "%s: want at least 1s (default %s)", a.Idle(), people.DefaultIdleTimeout)
 	}
 	if a.Absolute() < 0 || (a.Absolute() > 0 && a.Absolute() < a.Idle()) {
 		d.add("accounts.absolute_timeout", "%s: want at least the idle time-out (default %s)", a.Absolute(), people.DefaultAbsoluteTimeout)

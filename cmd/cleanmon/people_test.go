@@ -289,7 +289,7 @@ func TestSessionFixationAndCSRF(t *testing.T) {
 		t.Fatalf("the signed change with the token: %d %s", code, body)
 	}
 	var z struct {
-		OperatingState string `json:"operating_state"`
+		OperatingState string              `json:"operating_state"`
 		Change         struct{ By string } `json:"operating_state_change"`
 	}
 	json.Unmarshal(body, &z)

@@ -115,8 +115,11 @@ export function explain(err, doing) {
   if (!(err instanceof APIError)) return doing + " failed: " + err.message;
   switch (err.status) {
     case 401:
-      return doing + " needs you signed in (top right). The daemon said: " + err.message + ".";
+      return doing + " needs a valid access token or a person signed in (top right). The daemon said: " + err.message + ".";
     case 403:
+      if (err.message.includes("which may not")) {
+        return doing + " is not allowed for this sign-in. It needs the operator role. The daemon said: " + err.message + ".";
+      }
       return doing + " was refused. The daemon said: " + err.message + ".";
     case 0:
       return doing + " failed: " + err.message + ".";

@@ -50,6 +50,20 @@ func ReadableDetail(e AuditEntry) AuditDetail {
 					nsTime(int64(binary.BigEndian.Uint64(e.Detail))).Format("2006-01-02T15:04:05Z07:00"), n[0], n[1], n[2], n[3])}
 			}
 		}
+	case AuditKeyChange:
+		if d := e.Detail; len(d) == 1+8+32+8 {
+			return AuditDetail{Text: fmt.Sprintf("version: %d\nnew key id: %s\npublic key: %s\nprevious key id: %s",
+				d[0], hex.EncodeToString(d[1:9]), hex.EncodeToString(d[9:41]), hex.EncodeToString(d[41:49]))}
+		}
+	case AuditUncleanStop:
+		if d := e.Detail; len(d) == 8+32+8 {
+			opened := "unknown"
+			if ns := int64(binary.BigEndian.Uint64(d[40:])); ns != 0 {
+				opened = nsTime(ns).Format("2006-01-02T15:04:05.999999999Z07:00")
+			}
+			return AuditDetail{Text: fmt.Sprintf("last entry before: #%d\nits hash: %s\nthe unclosed run opened the store at: %s",
+				binary.BigEndian.Uint64(d), hex.EncodeToString(d[8:40]), opened)}
+		}
 	case AuditBackup:
 		d := decoder{b: e.Detail}
 		n := d.uvarint("bytes")

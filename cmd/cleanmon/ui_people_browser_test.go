@@ -227,3 +227,92 @@ func TestPeopleOnPages(t *testing.T) {
 	b.waitJS(20*time.Second, "the signed-out page", `document.body.dataset.person === "no" && document.getElementById("who").textContent.startsWith("Not signed in")`)
 	b.checkConsole("401", "403", "favicon.ico") // the provider's bare sign-in endpoint has no icon
 }
+
+// personSignOut signs out from the alarms page.
+func (b *browser) personSignOut(url string) {
+	b.t.Helper()
+	b.open(url+"/alarms", `document.body.dataset.person === "yes"`)
+	b.do(10*time.Second, "signing out", chromedp.Click(chromedp.ID("signout-btn")))
+	b.waitAcrossNavigation(20*time.Second, "the signed-out page", `document.body.dataset.person === "no" && document.getElementById("who").textContent.startsWith("Not signed in")`)
+}
+
+// TestSignaturesOnPages drives the real binary in Chromium: an admin adds
+// a person on the accounts page (the password shown once); a QA reviewer
+// signs a report as performed and is refused approving it; the new person
+// approves it; an operator changes an operating state with a signature.
+func TestSignaturesOnPages(t *testing.T) {
+	b := newBrowser(t)
+	dir := t.TempDir()
+	pw := map[string]string{}
+	for _, p := range []testPerson{piotr, ines, admin} {
+		var out, errb bytes.Buffer
+		if code := run([]string{"user", "add", p.name, "--role", p.role, "--full-name", p.fullName, "--data", dir}, &out, &errb); code != exitOK {
+			t.Fatalf("user add: %d %s", code, errb.String())
+		}
+		pw[p.name] = strings.TrimPrefix(strings.TrimSpace(out.String()), "password of "+p.name+" (shown once): ")
+	}
+	cfg := filepath.Join(t.TempDir(), "site.yaml")
+	os.WriteFile(cfg, []byte(peopleSiteYAML("15m", "")), 0o600)
+	d := startDaemon(t, "--config", cfg, "--data", dir)
+	start := time.Now().UTC().Add(-40 * time.Minute).Truncate(time.Minute)
+	var rs []string
+	for i := 0; i < 5; i++ {
+		rs = append(rs, fmt.Sprintf(`{"counter":"pc-asm-1","time":%q,"volume_l":28.3,"counts":{"0.5":300,"5":2},"flow_lpm":28.3,"status":"ok"}`, start.Add(time.Duration(i+1)*time.Minute).Format(time.RFC3339)))
+	}
+	if code, body := call(t, "POST", d.url+"/api/v1/readings", secretIngest, "["+strings.Join(rs, ",")+"]"); code != 200 {
+		t.Fatalf("POST readings: %d %s", code, body)
+	}
+
+	// The admin adds Noor; the page shows her password once.
+	b.personSignIn(d.url, "kadmin", pw["kadmin"], "Signed in as Karin Admin (kadmin, admin)")
+	b.open(d.url+"/accounts", `document.body.dataset.ready === "yes" && !document.getElementById("nav-accounts").hidden`)
+	b.do(10*time.Second, "adding Noor",
+		chromedp.SendKeys(chromedp.ID("acc-name"), "noor"),
+		chromedp.SendKeys(chromedp.ID("acc-full"), "Noor Haddad"),
+		chromedp.SetValue(chromedp.ID("acc-role"), "qa"),
+		chromedp.Click(chromedp.ID("acc-add")))
+	b.waitJS(30*time.Second, "the new password", `!!document.getElementById("new-password") && !!document.querySelector('tr[data-name="noor"]')`)
+	var noorPW string
+	b.eval(`document.getElementById("new-password").textContent`, &noorPW)
+	b.personSignOut(d.url)
+
+	period := fmt.Sprintf("zone=assembly&from=%s&to=%s", start.Format(time.RFC3339), start.Add(10*time.Minute).Format(time.RFC3339))
+	signAs := func(meaning, password string) {
+		b.do(10*time.Second, "signing as "+meaning,
+			chromedp.SetValue(chromedp.ID("sign-meaning"), meaning),
+			chromedp.SendKeys(chromedp.ID("sign-password"), password),
+			chromedp.Click(chromedp.ID("sign-submit")))
+	}
+	// Ines signs as performed, then may not approve her own work.
+	b.personSignIn(d.url, "ines", pw["ines"], "Signed in as Ines Varga (ines, qa)")
+	b.open(d.url+"/certify?"+period, `document.body.dataset.certReady === "yes" && !document.getElementById("sign-form").hidden`)
+	signAs("performed", pw["ines"])
+	b.waitJS(30*time.Second, "the performed signature", `!!document.querySelector('#sig-list li[data-meaning="performed"][data-user="ines"]')`)
+	signAs("approved", pw["ines"])
+	b.waitJS(30*time.Second, "the refusal", `document.getElementById("sign-msg").textContent.includes("cannot also approve")`)
+	b.screenshot("people-report-refused")
+	b.personSignOut(d.url)
+
+	// Noor, a second person, approves.
+	b.personSignIn(d.url, "noor", noorPW, "Signed in as Noor Haddad (noor, qa)")
+	b.open(d.url+"/certify?"+period, `document.body.dataset.certReady === "yes" && !document.getElementById("sign-form").hidden`)
+	signAs("approved", noorPW)
+	b.waitJS(30*time.Second, "the approval", `(() => { const li = document.querySelector('#sig-list li[data-meaning="approved"][data-user="noor"]'); return li && li.textContent.includes("approved by Noor Haddad (noor)"); })()`)
+	b.screenshot("people-report-approved")
+	b.personSignOut(d.url)
+
+	// An operator changes the zone's operating state with a signature.
+	b.personSignIn(d.url, "piotr", pw["piotr"], "Signed in as Piotr Lind (piotr, operator)")
+	b.open(d.url+"/zones/assembly", `document.body.dataset.person === "yes" && !document.getElementById("opstate-sign").hidden`)
+	b.do(10*time.Second, "changing the state",
+		chromedp.SetValue(chromedp.ID("opstate-state"), "at-rest"),
+		chromedp.SendKeys(chromedp.ID("opstate-reason"), "end of the last shift"),
+		chromedp.SendKeys(chromedp.ID("opstate-password"), pw["piotr"]),
+		chromedp.Click(chromedp.CSS(`#opstate-form button[type="submit"]`)))
+	b.waitJS(30*time.Second, "the new state", `document.getElementById("opstate-msg").textContent.includes("AT REST")`)
+	_, body := call(t, "GET", d.url+"/api/v1/zones/assembly", secretViewer, "")
+	if !strings.Contains(string(body), `"by":"Piotr Lind (piotr)"`) {
+		t.Errorf("the zone's state change is not under Piotr's name: %s", body)
+	}
+	b.checkConsole("401", "403")
+}

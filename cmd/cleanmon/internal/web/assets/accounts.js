@@ -12,7 +12,7 @@ function setMsg(id, text, kind) {
 function showPassword(name, pw) {
   const p = document.getElementById("acc-password");
   p.hidden = !pw;
-  p.replaceChildren(pw ? ["Password of ", el("strong", {}, name), " (shown once, give it to the person): ", el("code", { id: "new-password" }, pw)] : "");
+  p.replaceChildren(...(pw ? ["Password of ", el("strong", {}, name), " (shown once, give it to the person): ", el("code", { id: "new-password" }, pw)] : []));
 }
 
 async function change(op, a, extra) {

@@ -303,7 +303,7 @@ func TestSignaturesOnPages(t *testing.T) {
 
 	// An operator changes the zone's operating state with a signature.
 	b.personSignIn(d.url, "piotr", pw["piotr"], "Signed in as Piotr Lind (piotr, operator)")
-	b.open(d.url+"/zones/assembly", `document.body.dataset.person === "yes" && !document.getElementById("opstate-sign").hidden`)
+	b.open(d.url+"/zones/assembly", `document.body.dataset.chartsReady === "yes" && document.body.dataset.person === "yes" && !document.getElementById("opstate-sign").hidden`)
 	b.do(10*time.Second, "changing the state",
 		chromedp.SetValue(chromedp.ID("opstate-state"), "at-rest"),
 		chromedp.SendKeys(chromedp.ID("opstate-reason"), "end of the last shift"),

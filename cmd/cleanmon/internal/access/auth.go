@@ -36,7 +36,11 @@ const (
 	PermIngest                    // POST readings and pressure
 	PermOperate                   // operating-state changes and alarm acknowledgements
 	PermAdmin                     // backup, accounts and everything else
-	PermSign                      // sign certification reports (which meanings: SignMeanings)
+	// PermRecordRuns records and closes production runs: an operator at
+	// the room, or the ingest token of an execution system that books
+	// batches and lots.
+	PermRecordRuns
+	PermSign // sign certification reports (which meanings: SignMeanings)
 )
 
 // String is the verb of the permission, as the 403 answer words it.
@@ -48,6 +52,8 @@ func (p Permission) String() string {
 		return "ingest"
 	case PermOperate:
 		return "operate"
+	case PermRecordRuns:
+		return "record runs"
 	case PermSign:
 		return "sign reports"
 	}
@@ -64,13 +70,13 @@ func Grants(role string, p Permission) bool {
 	case RoleAdmin:
 		return true
 	case RoleOperator:
-		return p == PermRead || p == PermOperate || p == PermSign
+		return p == PermRead || p == PermOperate || p == PermRecordRuns || p == PermSign
 	case RoleQA:
 		return p == PermRead || p == PermSign
 	case RoleViewer:
 		return p == PermRead
 	case RoleIngest:
-		return p == PermIngest
+		return p == PermIngest || p == PermRecordRuns
 	}
 	return false
 }

@@ -4,14 +4,14 @@ import "testing"
 
 func TestGrants(t *testing.T) {
 	// The role table of the access rules, checked cell by cell.
-	table := map[string][5]bool{ // read, ingest, operate, admin, sign
-		RoleIngest:   {false, true, false, false, false},
-		RoleViewer:   {true, false, false, false, false},
-		RoleOperator: {true, false, true, false, true},
-		RoleQA:       {true, false, false, false, true},
-		RoleAdmin:    {true, true, true, true, true},
-		"":           {false, false, false, false, false},
-		"root":       {false, false, false, false, false},
+	table := map[string][6]bool{ // read, ingest, operate, admin, record runs, sign
+		RoleIngest:   {false, true, false, false, true, false},
+		RoleViewer:   {true, false, false, false, false, false},
+		RoleOperator: {true, false, true, false, true, true},
+		RoleQA:       {true, false, false, false, false, true},
+		RoleAdmin:    {true, true, true, true, true, true},
+		"":           {false, false, false, false, false, false},
+		"root":       {false, false, false, false, false, false},
 	}
 	for role, w := range table {
 		for p, want := range w {

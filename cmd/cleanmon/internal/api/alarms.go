@@ -123,12 +123,16 @@ func (s *Server) ackAlarm(w http.ResponseWriter, r *http.Request) {
 }
 
 // identityOf is who a change is attributed to: the token's name, with the
-// request's free-text name as a remark when it adds something; without a
-// token (the open demo) the free text alone.
+// request's free-text name as a remark when it adds something; a person
+// signed in on the pages as "Full Name (name)"; with neither (the open
+// demo) the free text alone.
 func identityOf(r *http.Request, remark string) string {
 	remark = strings.TrimSpace(remark)
-	tok := httpx.IdentityOf(r).Token
+	id := httpx.IdentityOf(r)
+	tok := id.Token
 	switch {
+	case tok == "" && id.User != "":
+		return id.FullName + " (" + id.User + ")"
 	case tok == "":
 		return remark
 	case remark == "" || remark == tok:

@@ -328,6 +328,7 @@ func (d *Daemon) startBackground() error {
 	}
 	// Before the store closes: a poll in flight commits or fails first.
 	d.push(func() error { stopModbus(); return nil })
+	d.startTrendFiles()
 	return nil
 }
 
@@ -373,7 +374,7 @@ func (d *Daemon) routes() http.Handler {
 	})
 	d.api.Register(r)
 	d.people.register(r)
-	web.New(web.Options{Site: d.cfg, Store: d.st, Certify: d.api, Access: d.auth, Errors: api.Errors, Log: d.log, Now: d.now,
+	web.New(web.Options{Site: d.cfg, Store: d.st, Certify: d.api, Records: d.api, Access: d.auth, Errors: api.Errors, Log: d.log, Now: d.now,
 		Accounts: d.people, Signatures: d.people, Audit: d.people}).Register(r)
 	return r
 }
@@ -430,6 +431,9 @@ func (d *Daemon) Run(ctx context.Context) error {
 		var live collector.Submitter = d.ingest
 		if d.dm != nil {
 			live = d.dm.Feed(d.ingest)
+		}
+		if err := demoRuns(d.bg, d.st, d.now()); err != nil {
+			d.log.Warn("demo: production runs not recorded", "err", err)
 		}
 		if err := startDemo(d.bg, &d.wg, d.reg, d.zones, d.ingest, live, d.now, d.o.Speed, d.log); err != nil {
 			return fmt.Errorf("demo simulator: %w", err)

@@ -35,6 +35,7 @@ func TestPageRoutes(t *testing.T) {
 	}
 	var cases []want
 	for name, page := range map[string]string{"/": "overview.html", "/alarms": "alarms.html", "/certify": "certify.html", "/zones/hood": "zone.html",
+		"/alarms/a1/investigation": "investigation.html", "/runs/LOT-1": "run.html", "/zones/hood/trend": "trend.html",
 		"/signin": "signin.html", "/accounts": "accounts.html", "/audit": "audit.html"} {
 		cases = append(cases, want{name, "text/html; charset=utf-8", webPages[page].body})
 	}
@@ -42,8 +43,8 @@ func TestPageRoutes(t *testing.T) {
 		cases = append(cases, want{"/assets/" + name, contentTypes[path.Ext(name)], f.body})
 	}
 	sort.Slice(cases, func(i, j int) bool { return cases[i].path < cases[j].path })
-	if len(webAssets) < 10 || len(webPages) != 7 {
-		t.Fatalf("embedded %d assets and %d pages; want the 7 pages and their scripts, style sheet and icon", len(webAssets), len(webPages))
+	if len(webAssets) < 10 || len(webPages) != 10 {
+		t.Fatalf("embedded %d assets and %d pages; want the 10 pages and their scripts, style sheet and icon", len(webAssets), len(webPages))
 	}
 	for _, c := range cases {
 		t.Run(c.path, func(t *testing.T) {
@@ -255,7 +256,7 @@ func newPageServer(t *testing.T) *pageServer {
 		t.Fatal(err)
 	}
 	r := chi.NewRouter()
-	New(Options{Site: cfg, Store: fakePressure{}, Certify: fakeCertifier{}, Access: auth, Log: slog.New(slog.NewTextHandler(io.Discard, nil)),
+	New(Options{Site: cfg, Store: fakePressure{}, Certify: fakeCertifier{}, Records: fakeRecords{}, Access: auth, Log: slog.New(slog.NewTextHandler(io.Discard, nil)),
 		Accounts: noPeople{}, Signatures: noPeople{}, Audit: noPeople{},
 		Now: func() time.Time { return time.Date(2026, 3, 2, 12, 0, 0, 0, time.UTC) }}).Register(r)
 	return &pageServer{t: t, h: r}

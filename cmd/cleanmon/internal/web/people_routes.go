@@ -12,6 +12,7 @@ import (
 	"cleanmon/cmd/cleanmon/internal/access"
 	"cleanmon/cmd/cleanmon/internal/httpx"
 	"cleanmon/cmd/cleanmon/internal/people"
+	"cleanmon/cmd/cleanmon/internal/report"
 )
 
 // registerPeople mounts the sign-in, accounts and audit pages and their
@@ -171,6 +172,20 @@ func (s *Server) signReport(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	httpx.WriteJSON(w, http.StatusOK, s.signaturesOf(subject, content))
+}
+
+// reportSignaturesFor are the signatures of the report's signature block:
+// only those whose SHA-256 matches the report as it reads now (the block
+// below it lists every one, a mismatch marked).
+func (s *Server) reportSignaturesFor(subject string, content []byte) []report.Signature {
+	var out []report.Signature
+	for _, sig := range s.signaturesOf(subject, content) {
+		if sig.Matches {
+			out = append(out, report.Signature{Meaning: string(sig.Meaning), FullName: sig.FullName, UserName: sig.UserName,
+				Time: sig.Time, Method: sig.Method, SHA256: sig.SHA256})
+		}
+	}
+	return out
 }
 
 // reportSignatureLines are the signature lines printed on the report.

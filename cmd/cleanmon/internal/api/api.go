@@ -32,6 +32,8 @@ type Options struct {
 	Metrics *prometheus.Registry
 	Log     *slog.Logger
 	Now     func() time.Time
+	// Signatures signs acknowledgements and state changes of people.
+	Signatures Signatures
 }
 
 // Server holds the API's collaborators; Register mounts its routes.
@@ -45,6 +47,7 @@ type Server struct {
 	metrics *prometheus.Registry
 	log     *slog.Logger
 	now     func() time.Time
+	sigs    Signatures
 
 	// ready is set once the store is open and ingest runs, and cleared
 	// when shutdown begins, so a balancer stops sending work first.
@@ -54,7 +57,7 @@ type Server struct {
 // New returns the API over o.
 func New(o Options) *Server {
 	return &Server{cfg: o.Site, zones: o.Zones, store: o.Store, ingest: o.Ingest, alarms: o.Alarms,
-		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now}
+		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now, sigs: o.Signatures}
 }
 
 // SetReady says whether /readyz answers ready.

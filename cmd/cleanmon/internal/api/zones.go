@@ -1,6 +1,7 @@
 package api
 
 import (
+	"encoding/json"
 	"errors"
 	"fmt"
 	"net/http"
@@ -11,6 +12,7 @@ import (
 	"cleanmon/alerts"
 	"cleanmon/classify"
 	"cleanmon/cmd/cleanmon/internal/httpx"
+	"cleanmon/cmd/cleanmon/internal/people"
 	"cleanmon/store"
 )
 
@@ -186,9 +188,10 @@ func (s *Server) getZone(w http.ResponseWriter, r *http.Request) {
 
 // stateRequest is the body of PUT /api/v1/zones/{zone}/state.
 type stateRequest struct {
-	State  string `json:"state"`
-	By     string `json:"by"`
-	Reason string `json:"reason"`
+	State     string            `json:"state"`
+	By        string            `json:"by"`
+	Reason    string            `json:"reason"`
+	Signature *signatureRequest `json:"signature"`
 }
 
 // maxStateBody bounds the body of a state change.
@@ -199,19 +202,26 @@ const maxStateBody = 64 << 10
 func (s *Server) putZoneState(w http.ResponseWriter, r *http.Request) {
 	id := zoneOf(r).ID
 	var req stateRequest
-	if !httpx.DecodeStrict(w, r, maxStateBody, &req, "state, by, reason") {
+	if !httpx.DecodeStrict(w, r, maxStateBody, &req, "state, by, reason, signature") {
 		return
 	}
 	if _, err := alerts.ParseOperatingState(req.State); err != nil {
 		httpx.WriteFieldError(w, "state", fmt.Sprintf("%q: want at-rest, in-operation or maintenance", req.State))
 		return
 	}
-	if strings.TrimSpace(req.By) == "" && httpx.IdentityOf(r).Token == "" {
+	now := s.now().UTC()
+	// A person signs the change; a token is recorded by its name, the
+	// free-text by kept as a remark.
+	content, _ := json.Marshal(map[string]string{"zone": id, "state": req.State, "reason": req.Reason, "time": now.Format(time.RFC3339Nano)})
+	act, ok := s.signedActor(w, r, req.By, req.Signature, people.MeaningPerformed, true, "operating state "+id+" "+req.State+" "+now.Format(time.RFC3339), content)
+	if !ok {
+		return
+	}
+	if strings.TrimSpace(act.who) == "" {
 		httpx.WriteFieldError(w, "by", "missing: say who makes the change (it is kept for the audit trail)")
 		return
 	}
-	// Attributed to the token; the free-text by is kept as a remark.
-	ch := alerts.OperatingChange{Zone: id, State: req.State, By: identityOf(r, req.By), Reason: req.Reason, Time: s.now().UTC()}
+	ch := alerts.OperatingChange{Zone: id, State: req.State, By: act.who, Reason: req.Reason, Time: now}
 	v, err := s.zones.SetOperatingState(r.Context(), ch, func(ch alerts.OperatingChange) error {
 		return s.store.SetOperatingState(r.Context(), store.OperatingState{Zone: ch.Zone, State: ch.State, By: ch.By, Reason: ch.Reason, Time: ch.Time})
 	})

@@ -3,10 +3,12 @@ package daemon
 import (
 	"cleanmon/alerts"
 	"cleanmon/cmd/cleanmon/internal/api"
+	"cleanmon/cmd/cleanmon/internal/people"
 	"cleanmon/collector"
 	"cleanmon/store"
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"log/slog"
 	"time"
@@ -203,3 +205,55 @@ var (
 	_ collector.DeviceEvents = (*alarmService)(nil)
 	_ prometheus.Collector   = auditCollector{}
 )
+
+// accountStore keeps people's accounts in the store for the people
+// package; the two Account types match field for field.
+type accountStore struct{ st *store.Store }
+
+var _ people.AccountStore = accountStore{}
+
+// peopleErr maps the store's account errors onto the people package's.
+func peopleErr(err error) error {
+	switch {
+	case errors.Is(err, store.ErrAccountExists):
+		return fmt.Errorf("%w: %w", people.ErrExists, err)
+	case errors.Is(err, store.ErrNoAccount):
+		return fmt.Errorf("%w: %w", people.ErrNotFound, err)
+	}
+	return err
+}
+
+// CreateAccount implements people.AccountStore.
+func (a accountStore) CreateAccount(ctx context.Context, acc people.Account, c people.Change) error {
+	return peopleErr(a.st.CreateAccount(ctx, store.Account(acc), store.AccountChange(c)))
+}
+
+// UpdateAccount implements people.AccountStore.
+func (a accountStore) UpdateAccount(ctx context.Context, name string, c people.Change, fn func(*people.Account) error) error {
+	return peopleErr(a.st.UpdateAccount(ctx, name, store.AccountChange(c), func(x *store.Account) error {
+		return fn((*people.Account)(x))
+	}))
+}
+
+// GetAccount implements people.AccountStore.
+func (a accountStore) GetAccount(name string) (people.Account, error) {
+	x, err := a.st.GetAccount(name)
+	return people.Account(x), peopleErr(err)
+}
+
+// peopleAudit writes the people package's events (sign-ins, signatures)
+// into the store's audit chain.
+type peopleAudit struct{ st *store.Store }
+
+var _ people.AuditSink = peopleAudit{}
+
+// Record implements people.AuditSink.
+func (a peopleAudit) Record(ctx context.Context, e people.Event) (uint64, error) {
+	actor := e.Actor
+	if actor == "" {
+		actor = store.AuditActorSystem
+	}
+	seq, _, err := a.st.AppendAudit(ctx, store.AuditEntry{Time: e.Time, Actor: actor, Action: e.Action,
+		Subject: e.Subject, Reason: e.Reason, Detail: []byte(e.Detail)})
+	return seq, err
+}

@@ -82,6 +82,7 @@ type Daemon struct {
 	certs   access.CertReloader
 	metrics *prometheus.Registry
 	api     *api.Server
+	people  *peopleSide
 
 	ln     net.Listener
 	url    string
@@ -90,6 +91,9 @@ type Daemon struct {
 
 	bg context.Context // background work; cancelled by its stop
 	wg sync.WaitGroup
+
+	// demoPassword is the demo admin's password until Run prints it.
+	demoPassword string
 
 	stops   []func() error // run in reverse by Close
 	running bool           // Run was called: Close records a clean stop
@@ -136,7 +140,7 @@ func New(o Options) (d *Daemon, err error) {
 			d = nil
 		}
 	}()
-	steps := []func() error{d.loadConfig, d.openStore, d.startJudge, d.startIngest, d.startBackground, d.listen}
+	steps := []func() error{d.loadConfig, d.openStore, d.startPeople, d.startJudge, d.startIngest, d.startBackground, d.listen}
 	for _, step := range steps {
 		if err := step(); err != nil {
 			return d, err
@@ -213,6 +217,21 @@ func (d *Daemon) openStore() error {
 	return nil
 }
 
+// startPeople builds the accounts, sessions and signatures, and in the
+// demo gives the admin account a new password.
+func (d *Daemon) startPeople() error {
+	var err error
+	if d.people, err = newPeople(context.Background(), d.st, d.cfg, d.cfg.TLS.Enabled()); err != nil {
+		return err
+	}
+	if d.o.Demo {
+		if d.demoPassword, err = d.people.demoAdmin(context.Background()); err != nil {
+			return fmt.Errorf("demo administrator: %w", err)
+		}
+	}
+	return nil
+}
+
 // startJudge builds the registry of instruments, the live zone state
 // (restored from the store) and the alarm rules with their notifiers.
 func (d *Daemon) startJudge() error {
@@ -258,6 +277,7 @@ func (d *Daemon) startIngest() error {
 	if d.auth, err = access.NewAuthorizer(d.cfg.Access, d.o.Demo); err != nil {
 		return asUsage(err)
 	}
+	d.auth.SetSignaturesRequired(d.cfg.SignaturesRequired)
 	d.metrics = prometheus.NewRegistry()
 	d.metrics.MustRegister(
 		collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}), collectors.NewGoCollector(),
@@ -271,7 +291,7 @@ func (d *Daemon) startIngest() error {
 		alerts.NewNotifierCollector(d.alarms.disp),
 	)
 	d.api = api.New(api.Options{Site: d.cfg, Zones: d.alarms.judge, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
-		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now})
+		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now, Signatures: d.people})
 	return nil
 }
 
@@ -331,7 +351,7 @@ func (d *Daemon) listen() error {
 // routes assembles the API and the pages behind the common middleware.
 func (d *Daemon) routes() http.Handler {
 	r := chi.NewRouter()
-	r.Use(httpx.Recoverer(d.log), httpx.RequestLog(d.log))
+	r.Use(httpx.Recoverer(d.log), httpx.RequestLog(d.log), d.people.web.Middleware)
 	r.NotFound(func(w http.ResponseWriter, r *http.Request) {
 		httpx.WriteError(w, http.StatusNotFound, "no such endpoint: "+r.URL.Path)
 	})
@@ -339,7 +359,9 @@ func (d *Daemon) routes() http.Handler {
 		httpx.WriteError(w, http.StatusMethodNotAllowed, r.Method+" is not allowed on "+r.URL.Path)
 	})
 	d.api.Register(r)
-	web.New(web.Options{Site: d.cfg, Store: d.st, Certify: d.api, Records: d.api, Access: d.auth, Errors: api.Errors, Log: d.log, Now: d.now}).Register(r)
+	d.people.register(r)
+	web.New(web.Options{Site: d.cfg, Store: d.st, Certify: d.api, Records: d.api, Access: d.auth, Errors: api.Errors, Log: d.log, Now: d.now,
+		Accounts: d.people, Signatures: d.people, Audit: d.people}).Register(r)
 	return r
 }
 
@@ -377,6 +399,11 @@ func (d *Daemon) Run(ctx context.Context) error {
 	// On record before anyone is told where to connect.
 	d.audit.record(ctx, store.AuditActorSystem, store.AuditStart, d.cfg.Site, "cleanmon serve on "+d.url, nil)
 	fmt.Fprintf(d.o.Stdout, "cleanmon: serving on %s\n", d.url)
+	if d.demoPassword != "" {
+		// Once, here: the password is kept nowhere but in its hash.
+		fmt.Fprintf(d.o.Stdout, "cleanmon: sign in at %s/signin as admin with password %s\n", d.url, d.demoPassword)
+		d.demoPassword = ""
+	}
 	d.log.Info("serving", "url", d.url, "site", d.cfg.Site, "data", d.o.DataDir, "zones", len(d.cfg.Zones), "counters", len(d.cfg.Counters), "sensors", len(d.cfg.PressureSensors))
 	if !d.o.Demo && len(d.cfg.Access.Tokens) == 0 {
 		d.log.Warn("no access tokens configured: nothing can post readings or change a zone", "open_reads", d.cfg.Access.OpenReads)

@@ -58,6 +58,13 @@ type Config struct {
 	Shifts   []string `yaml:"shifts"`
 	// Reports are the files the daemon writes by itself.
 	Reports Reports `yaml:"reports"`
+	// Accounts are the rules for people who sign in on the pages; OIDC
+	// the site's identity provider, if any.
+	Accounts access.AccountsConfig `yaml:"accounts"`
+	OIDC     access.OIDCConfig     `yaml:"oidc"`
+	// SignaturesRequired refuses acknowledgements and operating-state
+	// changes made with an API token: only a person's signature makes them.
+	SignaturesRequired bool `yaml:"signatures_required"`
 
 	// source and digest name the file the configuration was read from and
 	// the SHA-256 of its bytes, for the audit trail.
@@ -535,6 +542,7 @@ func (d *nodeDecoder) check(c *Config) {
 
 	d.checkClock(c)
 	d.checkTokens(c.Access.Tokens)
+	d.checkPeople(c.Accounts, c.OIDC)
 	d.checkSections(c)
 	d.checkAcross(c)
 	d.checkInstruments(c)

@@ -33,6 +33,7 @@ func commands() []command {
 		{"certify", "evaluate planned samples against a class and print the verdict", runCertify},
 		{"backup", "write a consistent copy of a store to a file", runBackup},
 		{"verify", "check a store's consistency and integrity", runVerify},
+		{"keygen", "write a key pair that signs the audit chain", runKeygen},
 		{"bench", "measure ingest throughput and latency on loopback", runBench},
 		{"soak", "run ingest and queries together on loopback for a bounded time", runSoak},
 	}

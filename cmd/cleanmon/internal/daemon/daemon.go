@@ -95,6 +95,12 @@ type Daemon struct {
 	bg context.Context // background work; cancelled by its stop
 	wg sync.WaitGroup
 
+	// keys, gate and the fault found are the signed record's (trust.go).
+	keys     auditKeys
+	gate     writeGate
+	faultMu  sync.Mutex
+	faultMsg string
+
 	stops   []func() error // run in reverse by Close
 	running bool           // Run was called: Close records a clean stop
 	closed  bool
@@ -140,7 +146,7 @@ func New(o Options) (d *Daemon, err error) {
 			d = nil
 		}
 	}()
-	steps := []func() error{d.loadConfig, d.openStore, d.startJudge, d.startIngest, d.startBackground, d.listen}
+	steps := []func() error{d.loadConfig, d.openStore, d.startTrust, d.startJudge, d.startIngest, d.startBackground, d.startChecks, d.listen}
 	for _, step := range steps {
 		if err := step(); err != nil {
 			return d, err
@@ -231,6 +237,9 @@ func (d *Daemon) startJudge() error {
 	if d.reg, err = collector.NewRegistry(d.cfg.Counters, d.cfg.PressureSensors); err != nil {
 		return asUsage(err)
 	}
+	if d.reg, err = d.reg.WithBounds(d.cfg.Bounds()); err != nil {
+		return asUsage(err)
+	}
 	if d.zones, err = alerts.NewZoneTracker(d.cfg.Zones, d.cfg.Bindings(), alerts.ZoneTrackerOptions{Now: d.now}); err != nil {
 		return asUsage(err)
 	}
@@ -247,7 +256,7 @@ func (d *Daemon) startJudge() error {
 // access rules, the metrics and the API.
 func (d *Daemon) startIngest() error {
 	ingestMetrics := alerts.NewIngestMetrics(counterIDs(d.cfg))
-	d.ingest = collector.NewIngest(d.reg, storeSink{d.st, ingestMetrics, d.log}, collector.IngestOptions{Retention: d.cfg.RetentionOrDefault(), Now: d.now})
+	d.ingest = collector.NewIngest(d.reg, storeSink{d.st, ingestMetrics, d.log, &d.gate}, collector.IngestOptions{Retention: d.cfg.RetentionOrDefault(), Now: d.now})
 	d.ingest.OnReadings(func(rs []collector.Reading) {
 		obs := make([]alerts.Observation, len(rs))
 		for i := range rs {
@@ -284,6 +293,10 @@ func (d *Daemon) startIngest() error {
 	)
 	d.api = api.New(api.Options{Site: d.cfg, Zones: d.zones, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
 		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now})
+	d.gate.mu.Lock()
+	d.gate.onChange = d.api.SetWriteProblem
+	d.gate.mu.Unlock()
+	d.api.SetWriteProblem(d.gate.problem())
 	return nil
 }
 
@@ -344,7 +357,7 @@ func (d *Daemon) listen() error {
 // routes assembles the API and the pages behind the common middleware.
 func (d *Daemon) routes() http.Handler {
 	r := chi.NewRouter()
-	r.Use(httpx.Recoverer(d.log), httpx.RequestLog(d.log))
+	r.Use(httpx.Recoverer(d.log), httpx.RequestLog(d.log), d.gate.middleware)
 	r.NotFound(func(w http.ResponseWriter, r *http.Request) {
 		httpx.WriteError(w, http.StatusNotFound, "no such endpoint: "+r.URL.Path)
 	})

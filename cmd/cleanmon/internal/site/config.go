@@ -51,6 +51,9 @@ type Config struct {
 	// AllowPlainHTTP permits serving without TLS on an address other than
 	// loopback (a closed instrument network behind its own protection).
 	AllowPlainHTTP bool `yaml:"allow_plain_http"`
+	// Audit and Ingest: the signed record and the ingest bounds (trust.go).
+	Audit  AuditConfig  `yaml:"audit"`
+	Ingest IngestConfig `yaml:"ingest"`
 
 	// source and digest name the file the configuration was read from and
 	// the SHA-256 of its bytes, for the audit trail.
@@ -521,6 +524,7 @@ func (d *nodeDecoder) check(c *Config) {
 	d.checkTokens(c.Access.Tokens)
 	d.checkSections(c)
 	d.checkAcross(c)
+	d.checkTrust(c)
 }
 
 // checkTokens checks the access tokens: names and secrets unique, roles

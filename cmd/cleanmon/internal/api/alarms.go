@@ -3,6 +3,7 @@ package api
 import (
 	"cleanmon/alerts"
 	"cleanmon/cmd/cleanmon/internal/httpx"
+	"cleanmon/collector"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -79,7 +80,9 @@ const maxAckBody = 8 << 10
 // kept beside it as a remark, so "who" cannot be typed in by anyone.
 func (s *Server) ackAlarm(w http.ResponseWriter, r *http.Request) {
 	var req ackRequest
-	if !httpx.DecodeStrict(w, r, maxAckBody, &req, "by, comment") {
+	if !decodeBody(w, r, maxAckBody, &req, func() map[string]string {
+		return map[string]string{"by": req.By, "comment": req.Comment}
+	}) {
 		return
 	}
 	id := chi.URLParam(r, "id")
@@ -88,7 +91,7 @@ func (s *Server) ackAlarm(w http.ResponseWriter, r *http.Request) {
 	}
 	who := identityOf(r, req.By)
 	if strings.TrimSpace(who) == "" {
-		httpx.WriteFieldError(w, "by", "missing: say who acknowledges")
+		fieldAnswer(w, "by", collector.RuleRequired, "missing: say who acknowledges")
 		return
 	}
 	a, err := s.alarms.Ack(r.Context(), id, who, req.Comment)

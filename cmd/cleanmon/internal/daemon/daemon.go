@@ -358,6 +358,9 @@ func (d *Daemon) listen() error {
 func (d *Daemon) routes() http.Handler {
 	r := chi.NewRouter()
 	r.Use(httpx.Recoverer(d.log), httpx.RequestLog(d.log), d.gate.middleware)
+	if d.cfg.TLS.Enabled() {
+		r.Use(httpx.HSTS)
+	}
 	r.NotFound(func(w http.ResponseWriter, r *http.Request) {
 		httpx.WriteError(w, http.StatusNotFound, "no such endpoint: "+r.URL.Path)
 	})

@@ -131,7 +131,7 @@ var goInternals = []string{"Go value", "main.", "api.", "collector.", "unmarshal
 // entry with every committed change, so its head must stay the same.
 func TestHostileRequests(t *testing.T) {
 	priv, _ := auditKeys(t)
-	d := startDaemon(t, "--config", trustSite(t, "  signing_key_file: "+priv+"\n"), "--data", t.TempDir())
+	d := startDaemon(t, "--config", trustSite(t, "  signing_key_file: "+priv+"\n", ""), "--data", t.TempDir())
 	now := time.Now().UTC().Truncate(time.Second)
 	cases := hostileCases(func(d time.Duration) string { return now.Add(d).Format(time.RFC3339) })
 	if len(cases) < 60 {

@@ -17,8 +17,8 @@ import (
 // trustSite is a small site for the tests of the signed record: one ISO 7
 // zone with two pushed counters and a DP sensor to the corridor, the
 // crash tests' admin token, and the audit section given in audit (YAML
-// lines indented by two, or "").
-func trustSite(t *testing.T, audit string) string {
+// lines indented by two, or ""), then extra top-level YAML.
+func trustSite(t *testing.T, audit, extra string) string {
 	t.Helper()
 	var b strings.Builder
 	fmt.Fprintf(&b, "site: \"Veldmark Photonics, building C\"\nretention: \"87600h\"\naccess:\n  rate_limit: {disabled: true}\n  tokens:\n    - {name: crash-admin, sha256: %q, role: admin}\n", tokenHash(crashToken))
@@ -31,6 +31,7 @@ func trustSite(t *testing.T, audit string) string {
 	if audit != "" {
 		b.WriteString("audit:\n" + audit)
 	}
+	b.WriteString(extra)
 	p := filepath.Join(t.TempDir(), "site.yaml")
 	if err := os.WriteFile(p, []byte(b.String()), 0o600); err != nil {
 		t.Fatal(err)

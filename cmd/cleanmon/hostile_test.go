@@ -25,7 +25,9 @@ func hostileCases(at func(time.Duration) string) []hostileCase {
 	}
 	cnt := `"counts":{"0.5":40,"5":1}`
 	good := rd(cnt)
-	dp := func(fields string) string { return `{"sensor":"dp-asm","time":"` + at(-time.Minute) + `",` + fields + `}` }
+	dp := func(fields string) string {
+		return `{"sensor":"dp-asm","time":"` + at(-time.Minute) + `",` + fields + `}`
+	}
 	const R, P, S, A = "/api/v1/readings", "/api/v1/pressure", "/api/v1/zones/assembly/state", "/api/v1/alarms/assembly:nope/ack"
 	big := `[` + strings.Repeat(good+",", 8<<20/len(good)+1) + good + `]`
 	return []hostileCase{

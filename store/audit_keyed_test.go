@@ -206,7 +206,7 @@ func rewriteReading(tx *bolt.Tx, es []AuditEntry) []AuditEntry {
 				if err := b.Put(key, val); err != nil {
 					panic(err)
 				}
-				rewriteRollups(tx, name, uint64(r.key), b)
+				rewriteRollups(tx, name, uint64(r.key))
 			}
 			cov.add(name, key, val)
 		}
@@ -219,10 +219,10 @@ func rewriteReading(tx *bolt.Tx, es []AuditEntry) []AuditEntry {
 // rewriteRollups recomputes the rollups of the buckets a changed reading
 // falls in, as a thorough forger would: the rollups are checked against
 // the readings.
-func rewriteRollups(tx *bolt.Tx, counter string, ns uint64, readings *bolt.Bucket) {
+func rewriteRollups(tx *bolt.Tx, counter string, ns uint64) {
 	for _, st := range rollupSteps {
 		start := int64(ns) - int64(ns)%int64(st.step)
-		acc := rebuildRollup(slog.New(slog.DiscardHandler), readings, counter, start, st.step)
+		acc := rebuildRollup(slog.New(slog.DiscardHandler), tx, counter, start, st.step)
 		rb := tx.Bucket(st.bucket).Bucket([]byte(counter))
 		if rb == nil {
 			continue

@@ -16,16 +16,12 @@ import (
 // store's back (its checksum recomputed) must show, not only one whose
 // sample count is off (rollupCounts).
 func (v *verifier) rollupValues(tx *bolt.Tx, kind []byte, step time.Duration) {
-	readings, rollups := tx.Bucket(bucketReadings), tx.Bucket(kind)
-	if readings == nil || rollups == nil {
+	rollups := tx.Bucket(kind)
+	if tx.Bucket(bucketReadings) == nil || rollups == nil {
 		return
 	}
 	quiet := slog.New(slog.DiscardHandler) // damaged readings are reported by walk
 	_ = rollups.ForEachBucket(func(name []byte) error {
-		rb := readings.Bucket(name)
-		if rb == nil {
-			return nil // reported by rollupCounts
-		}
 		c := rollups.Bucket(name).Cursor()
 		for k, val := c.First(); k != nil; k, val = c.Next() {
 			start, ok := keyNanos(k)
@@ -36,7 +32,7 @@ func (v *verifier) rollupValues(tx *bolt.Tx, kind []byte, step time.Duration) {
 			if err != nil {
 				continue // reported by walk
 			}
-			want := rebuildRollup(quiet, rb, string(name), start, step)
+			want := rebuildRollup(quiet, tx, string(name), start, step)
 			if want.samples != got.samples {
 				continue // reported by rollupCounts
 			}

@@ -157,7 +157,8 @@ func TestTamperThroughVerify(t *testing.T) {
 			rechainFile(t, p, true, func(es []store.AuditEntry) []store.AuditEntry { return es[:cp.Seq-1] })
 		}, passes, passes, found},
 		{"a reading changed, its checksum recomputed", func(p string) {
-			editValue(t, p, "readings", "pc-0")
+			// Compaction moves readings from the head into chunks.
+			editValue(t, p, readingBucket(t, p), "pc-0")
 		}, found, found, found},
 		{"a rollup changed, its checksum recomputed", func(p string) {
 			editValue(t, p, rollupBucket(t, p), "pc-0")
@@ -185,6 +186,25 @@ func TestTamperThroughVerify(t *testing.T) {
 			}
 		})
 	}
+}
+
+// readingBucket is where pc-0's readings are: the head, or chunks once
+// compacted.
+func readingBucket(t *testing.T, path string) string {
+	t.Helper()
+	db, err := bolt.Open(path, 0o600, &bolt.Options{ReadOnly: true, Timeout: time.Second})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	name := "chunks"
+	db.View(func(tx *bolt.Tx) error {
+		if b := tx.Bucket([]byte("readings")); b != nil && b.Bucket([]byte("pc-0")) != nil && b.Bucket([]byte("pc-0")).Stats().KeyN > 1 {
+			name = "readings"
+		}
+		return nil
+	})
+	return name
 }
 
 // rollupBucket is the rollup bucket that holds pc-0's rollups.

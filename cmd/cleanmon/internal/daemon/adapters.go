@@ -192,8 +192,12 @@ func (c auditCollector) Collect(ch chan<- prometheus.Metric) {
 	}
 }
 
-// Active implements api.Alarms: the alarms not cleared.
-func (s *alarmService) Active() []alerts.Alarm { return s.eng.Alarms(false) }
+// Active implements api.Alarms: the alarms not cleared, with an
+// integrity alarm the damaged store could not take (trust.go).
+func (s *alarmService) Active() []alerts.Alarm { return s.withUnjournaled(s.eng.Alarms(false)) }
+
+// Alarms implements alerts.AlarmLister for the alarm metrics, the same way.
+func (s *alarmService) Alarms(all bool) []alerts.Alarm { return s.withUnjournaled(s.eng.Alarms(all)) }
 
 // Ack implements api.Alarms.
 func (s *alarmService) Ack(ctx context.Context, id, by, comment string) (alerts.Alarm, error) {

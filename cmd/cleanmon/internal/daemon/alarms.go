@@ -56,6 +56,10 @@ type alarmService struct {
 
 	mu sync.Mutex
 	dp map[string]alerts.SensorDP // latest DP per sensor, for metrics
+
+	// unjournaled is the integrity alarm when the damaged store could not
+	// record it (trust.go): shown and sent all the same.
+	unjournaled atomic.Pointer[alerts.Alarm]
 }
 
 const alarmQueue = 4096

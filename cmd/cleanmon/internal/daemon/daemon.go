@@ -287,7 +287,7 @@ func (d *Daemon) startIngest() error {
 		d.alarms,
 		alerts.NewZoneCollector(d.zones),
 		alerts.NewPressureCollector(d.alarms),
-		alerts.NewAlarmCollector(d.alarms.eng, zoneIDs(d.cfg)),
+		alerts.NewAlarmCollector(d.alarms, zoneIDs(d.cfg)),
 		ingestMetrics,
 		alerts.NewNotifierCollector(d.alarms.disp),
 	)

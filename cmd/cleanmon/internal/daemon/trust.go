@@ -5,6 +5,7 @@ import (
 	"crypto/ed25519"
 	"errors"
 	"fmt"
+	"log/slog"
 	"net/http"
 	"strings"
 	"sync"
@@ -158,7 +159,10 @@ func (d *Daemon) integrityFault(err error) {
 		what = "the integrity check could not run: " + what
 	}
 	backup := "no backup is on record"
-	if b, ok, berr := d.st.LastBackup(); berr == nil && ok {
+	switch b, ok, berr := d.st.LastBackup(); {
+	case berr != nil:
+		backup = "the record of backups cannot be read from the damaged store: take the newest file `cleanmon backup` wrote and check it with `cleanmon verify --file` first"
+	case ok:
 		backup = fmt.Sprintf("latest backup on record: %s, taken %s", b.Subject, b.Time.UTC().Format(time.RFC3339))
 	}
 	msg := fmt.Sprintf("store integrity fault: %s; stop the daemon and run `%s`, then restore the latest verified backup (%s)", what, cmd, backup)
@@ -183,9 +187,55 @@ func (d *Daemon) raiseIntegrity() {
 	at := d.now()
 	d.alarms.enqueue(d.bg, func(ctx context.Context) {
 		if err := d.alarms.eng.ObserveIntegrity(ctx, true, msg, at); err != nil {
-			d.log.Error("the integrity alarm could not be recorded", "err", err)
+			d.log.Error("the integrity alarm could not be recorded in the damaged store; it is shown and sent without its record", "err", err)
+			d.alarms.raiseUnjournaled(ctx, msg, at, d.log)
 		}
 	})
+}
+
+var _ alerts.AlarmLister = (*alarmService)(nil)
+
+// withUnjournaled adds the integrity alarm the store could not take.
+func (s *alarmService) withUnjournaled(as []alerts.Alarm) []alerts.Alarm {
+	if a := s.unjournaled.Load(); a != nil {
+		return append(as, *a)
+	}
+	return as
+}
+
+// raiseUnjournaled is the integrity alarm of a store too damaged to
+// journal it: it cannot wait in the outbox, so it is shown at once (the
+// alarms route, the metrics) and sent to every notifier directly, each
+// tried a few times. A person must not learn of the damage only from the
+// log.
+func (s *alarmService) raiseUnjournaled(ctx context.Context, msg string, at time.Time, log *slog.Logger) {
+	if s.unjournaled.Load() != nil {
+		return
+	}
+	id := "integrity:unrecorded:" + at.UTC().Format("20060102T150405.000000000Z")
+	a := alerts.Alarm{ID: id, Kind: alerts.KindIntegrity, Level: alerts.LevelAction, State: alerts.StateActive,
+		Since: at, ActiveSince: &at, Latched: true,
+		Message: msg + " (this alarm is not in the store's journal: the store could not take it)"}
+	s.unjournaled.Store(&a)
+	tr := alerts.Transition{Key: id + "/1/active", AlarmID: id, Time: at, To: alerts.StateActive, Alarm: a}
+	for _, n := range s.notifiers {
+		go func() {
+			wait := time.Second
+			for try := 1; try <= 6; try++ {
+				err := n.Notify(ctx, tr)
+				if err == nil {
+					return
+				}
+				log.Warn("integrity alarm not delivered", "notifier", n.Name(), "try", try, "err", err)
+				select {
+				case <-ctx.Done():
+					return
+				case <-time.After(wait):
+				}
+				wait *= 2
+			}
+		}()
+	}
 }
 
 // startChecks raises the alarm of a fault found at start, and runs the

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"fmt"
 	"io"
 	"net/http"
 	"net/http/httptest"
@@ -229,4 +230,47 @@ func rollupBucket(t *testing.T, path string) string {
 		t.Fatal("the store holds no rollups of pc-0 to change")
 	}
 	return name
+}
+
+// TestKeyRotationAudited: a daemon started with a new key records the
+// change, naming both keys; verify needs every public key since the
+// chain began.
+func TestKeyRotationAudited(t *testing.T) {
+	privA, pubA := auditKeys(t)
+	privB, pubB := auditKeys(t)
+	data := t.TempDir()
+	d := startDaemon(t, "--config", trustSite(t, "  signing_key_file: "+privA+"\n", ""), "--data", data)
+	postReadings(t, d.url, 5)
+	d.stop()
+	d = startDaemon(t, "--config", trustSite(t, "  signing_key_file: "+privB+"\n  public_key_files: ["+pubA+"]\n", ""), "--data", data)
+	var changes []map[string]any
+	for _, e := range auditEntries(t, d.url) {
+		if e["action"] == store.AuditKeyChange {
+			changes = append(changes, e)
+		}
+	}
+	d.stop()
+	if len(changes) != 2 {
+		t.Fatalf("%d key-change entries, want 2 (the first key, then the rotation): %v", len(changes), changes)
+	}
+	idA, idB := keyID(t, pubA), keyID(t, pubB)
+	rot := fmt.Sprint(changes[1])
+	if !strings.Contains(rot, idA) || !strings.Contains(rot, idB) {
+		t.Errorf("the rotation entry does not name both keys %s and %s: %s", idA, idB, rot)
+	}
+	if code, out, errs := runCLI(t, "verify", data, "--key", pubA, "--key", pubB); code != exitOK {
+		t.Errorf("verify with both keys: %d %s%s", code, out, errs)
+	}
+	if code, out, _ := runCLI(t, "verify", data, "--key", pubB); code != exitFail {
+		t.Errorf("verify with the new key only: %d, want 1 (entries signed by the old key cannot be checked)\n%s", code, out)
+	}
+}
+
+func keyID(t *testing.T, pub string) string {
+	t.Helper()
+	k, err := store.LoadAuditPublicKey(pub)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return store.KeyID(k)
 }

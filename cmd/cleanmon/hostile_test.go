@@ -83,7 +83,7 @@ func hostileCases(at func(time.Duration) string) []hostileCase {
 		{"body too large", "POST", R, "", big, 413, "", 0},
 		// DP samples.
 		{"unknown sensor", "POST", P, "", `{"sensor":"dp-nope","time":"` + at(-time.Minute) + `","pa":12}`, 400, "sensor", 0},
-		{"no pa", "POST", P, "", dp(`"x":1`), 400, "x", 0},
+		{"an unknown key instead of pa", "POST", P, "", dp(`"x":1`), 400, "x", 0},
 		{"pa missing", "POST", P, "", `{"sensor":"dp-asm","time":"` + at(-time.Minute) + `"}`, 400, "pa", 0},
 		{"pa as a word", "POST", P, "", dp(`"pa":"high"`), 400, "pa", 0},
 		{"pa 1e300", "POST", P, "", dp(`"pa":1e300`), 400, "pa", 0},

@@ -21,12 +21,12 @@ func runVerify(args []string, stdout, stderr io.Writer) int {
 	data := fs.String("data", "", "data directory of the store (the daemon must be stopped)")
 	file := fs.String("file", "", "a store file, such as a backup copy")
 	var keys []ed25519.PublicKey
-	fs.Func("key", "public key file of the audit signatures (`cleanmon keygen`); repeat for every key used since the chain began", func(p string) error {
+	fs.Func("key", "public key `FILE` of the audit signatures (from cleanmon keygen); repeat for every key used since the chain began", func(p string) error {
 		k, err := store.LoadAuditPublicKey(p)
 		keys = append(keys, k)
 		return err
 	})
-	head := fs.String("head", "", "a file of checkpoints the daemon published; the newest must still be in the chain")
+	head := fs.String("head", "", "a `FILE` of checkpoints the daemon published (or log lines holding them); the newest must still be in the chain")
 	pos, err := parseArgs(fs, args)
 	if err != nil {
 		return exitUsage

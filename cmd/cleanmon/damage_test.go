@@ -33,8 +33,9 @@ func zeroPage(t *testing.T, path string, p int64) {
 
 // damagedPage finds a leaf page of a copy of data whose zeroing the
 // store still opens but its start-up check finds: the damage a daemon
-// must not write on. At most 40 candidates are tried.
-func damagedPage(t *testing.T, data string) int64 {
+// must not write on. At most 40 candidates are tried, from the start of
+// the file or, with last, from its end.
+func damagedPage(t *testing.T, data string, last bool) int64 {
 	t.Helper()
 	db, err := bolt.Open(filepath.Join(data, store.FileName), 0o600, &bolt.Options{ReadOnly: true, Timeout: time.Second, PreLoadFreelist: true})
 	if err != nil {
@@ -42,7 +43,7 @@ func damagedPage(t *testing.T, data string) int64 {
 	}
 	var leaves []int64
 	db.View(func(tx *bolt.Tx) error {
-		for id := 2; id < int(tx.Size()/4096) && len(leaves) < 40; id++ {
+		for id := 2; id < int(tx.Size()/4096); id++ {
 			if pi, err := tx.Page(id); err == nil && pi != nil && pi.Type == "leaf" {
 				leaves = append(leaves, int64(id))
 			}
@@ -50,6 +51,14 @@ func damagedPage(t *testing.T, data string) int64 {
 		return nil
 	})
 	db.Close()
+	if last {
+		for i, j := 0, len(leaves)-1; i < j; i, j = i+1, j-1 {
+			leaves[i], leaves[j] = leaves[j], leaves[i]
+		}
+	}
+	if len(leaves) > 40 {
+		leaves = leaves[:40]
+	}
 	for _, p := range leaves {
 		dir := copyDataDir(t, data)
 		zeroPage(t, filepath.Join(dir, store.FileName), p)
@@ -74,6 +83,12 @@ func damagedPage(t *testing.T, data string) int64 {
 // message names the exact `cleanmon verify` command, which then runs and
 // lists the faults, and the latest backup.
 func TestDamagedStoreAtStart(t *testing.T) {
+	for _, last := range []bool{false, true} {
+		t.Run(map[bool]string{false: "first leaf page", true: "last leaf page"}[last], func(t *testing.T) { damagedStart(t, last) })
+	}
+}
+
+func damagedStart(t *testing.T, last bool) {
 	data := t.TempDir()
 	cfg := trustSite(t, "", "")
 	d := startDaemon(t, "--config", cfg, "--data", data)
@@ -82,7 +97,7 @@ func TestDamagedStoreAtStart(t *testing.T) {
 		t.Fatalf("backup: %d %v", code, err)
 	}
 	d.stop()
-	zeroPage(t, filepath.Join(data, store.FileName), damagedPage(t, data))
+	zeroPage(t, filepath.Join(data, store.FileName), damagedPage(t, data, last))
 
 	d = startDaemon(t, "--config", cfg, "--data", data)
 	get := func(path, token string) (int, string) {
@@ -115,6 +130,13 @@ func TestDamagedStoreAtStart(t *testing.T) {
 	}
 	if code, b := get("/api/v1/zones", crashToken); code != 200 || !strings.Contains(b, `"assembly"`) {
 		t.Errorf("reads stopped: %d %s", code, b)
+	}
+	// Reading the damaged part itself answers (an error, or a stream that
+	// says it failed) and the daemon lives on.
+	get("/api/v1/audit", crashToken)
+	get("/api/v1/zones/assembly/readings?location=loc-0&from="+readingTime(0)+"&to="+readingTime(400), crashToken)
+	if code, _ := get("/healthz", ""); code != 200 {
+		t.Errorf("healthz after reading the damaged part: %d", code)
 	}
 	deadline := time.Now().Add(10 * time.Second)
 	for {

@@ -244,7 +244,13 @@ func (d *Daemon) startJudge() error {
 		return asUsage(err)
 	}
 	if d.history, d.states, err = restoreZones(d.st, d.zones, d.cfg, d.now(), d.log); err != nil {
-		return fmt.Errorf("restoring zone state from the store: %w", err)
+		if !d.damaged() {
+			return fmt.Errorf("restoring zone state from the store: %w", err)
+		}
+		// A damaged store still serves what it can: the zones start
+		// without history, so they show unknown until readings come.
+		d.log.Error("zone state not restored from the damaged store: zones start unknown", "err", err)
+		d.history, d.states = nil, nil
 	}
 	if d.alarms, err = newAlarmService(d.cfg, d.st, d.zones, d.now, d.log); err != nil {
 		return asUsage(err)
@@ -312,7 +318,7 @@ func (d *Daemon) startBackground() error {
 		defer d.wg.Done()
 		d.audit.watchClock(bg)
 	}()
-	if err := d.alarms.start(bg, &d.wg, d.history, d.states); err != nil {
+	if err := d.alarms.start(bg, &d.wg, d.history, d.states, d.damaged()); err != nil {
 		return err
 	}
 	stopModbus, err := startModbus(bg, d.reg, d.ingest, d.log, modbusHooks{Metrics: d.metrics, Now: d.now, Events: d.alarms})

@@ -176,6 +176,13 @@ func (d *Daemon) integrityFault(err error) {
 	}
 }
 
+// damaged reports whether an integrity fault was found.
+func (d *Daemon) damaged() bool {
+	d.faultMu.Lock()
+	defer d.faultMu.Unlock()
+	return d.faultMsg != ""
+}
+
 // raiseIntegrity raises the integrity action alarm for the fault found.
 func (d *Daemon) raiseIntegrity() {
 	d.faultMu.Lock()

@@ -52,6 +52,9 @@ type Server struct {
 	// ready is set once the store is open and ingest runs, and cleared
 	// when shutdown begins, so a balancer stops sending work first.
 	ready atomic.Bool
+	// writeProblem is why writes are refused or failing; nil while they
+	// succeed.
+	writeProblem atomic.Pointer[string]
 }
 
 // New returns the API over o.

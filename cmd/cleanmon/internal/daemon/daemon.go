@@ -98,6 +98,11 @@ type Daemon struct {
 
 	// demoPassword is the demo admin's password until Run prints it.
 	demoPassword string
+	// keys, gate and the fault found are the signed record's (trust.go).
+	keys     auditKeys
+	gate     writeGate
+	faultMu  sync.Mutex
+	faultMsg string
 
 	stops   []func() error // run in reverse by Close
 	running bool           // Run was called: Close records a clean stop
@@ -144,7 +149,7 @@ func New(o Options) (d *Daemon, err error) {
 			d = nil
 		}
 	}()
-	steps := []func() error{d.loadConfig, d.openStore, d.startPeople, d.startJudge, d.startIngest, d.startBackground, d.listen}
+	steps := []func() error{d.loadConfig, d.openStore, d.startTrust, d.startPeople, d.startJudge, d.startIngest, d.startBackground, d.startChecks, d.listen}
 	for _, step := range steps {
 		if err := step(); err != nil {
 			return d, err
@@ -250,11 +255,20 @@ func (d *Daemon) startJudge() error {
 	if d.reg, err = collector.NewRegistry(d.cfg.Counters, d.cfg.PressureSensors); err != nil {
 		return asUsage(err)
 	}
+	if d.reg, err = d.reg.WithBounds(d.cfg.Bounds()); err != nil {
+		return asUsage(err)
+	}
 	if d.zones, err = alerts.NewZoneTracker(d.cfg.Zones, d.cfg.Bindings(), alerts.ZoneTrackerOptions{Now: d.now}); err != nil {
 		return asUsage(err)
 	}
 	if d.history, d.states, err = restoreZones(d.st, d.zones, d.cfg, d.now(), d.log); err != nil {
-		return fmt.Errorf("restoring zone state from the store: %w", err)
+		if !d.damaged() {
+			return fmt.Errorf("restoring zone state from the store: %w", err)
+		}
+		// A damaged store still serves what it can: the zones start
+		// without history, so they show unknown until readings come.
+		d.log.Error("zone state not restored from the damaged store: zones start unknown", "err", err)
+		d.history, d.states = nil, nil
 	}
 	if d.alarms, err = newAlarmService(d.cfg, d.st, d.zones, d.now, d.log); err != nil {
 		return asUsage(err)
@@ -266,7 +280,7 @@ func (d *Daemon) startJudge() error {
 // access rules, the metrics and the API.
 func (d *Daemon) startIngest() error {
 	ingestMetrics := alerts.NewIngestMetrics(counterIDs(d.cfg))
-	d.ingest = collector.NewIngest(d.reg, storeSink{d.st, ingestMetrics, d.log}, collector.IngestOptions{Retention: d.cfg.RetentionOrDefault(), Now: d.now})
+	d.ingest = collector.NewIngest(d.reg, storeSink{d.st, ingestMetrics, d.log, &d.gate}, collector.IngestOptions{Retention: d.cfg.RetentionOrDefault(), Now: d.now})
 	d.ingest.OnReadings(func(rs []collector.Reading) {
 		obs := make([]alerts.Observation, len(rs))
 		for i := range rs {
@@ -298,12 +312,16 @@ func (d *Daemon) startIngest() error {
 		d.alarms,
 		alerts.NewZoneCollector(d.zones),
 		alerts.NewPressureCollector(d.alarms),
-		alerts.NewAlarmCollector(d.alarms.eng, zoneIDs(d.cfg)),
+		alerts.NewAlarmCollector(d.alarms, zoneIDs(d.cfg)),
 		ingestMetrics,
 		alerts.NewNotifierCollector(d.alarms.disp),
 	)
 	d.api = api.New(api.Options{Site: d.cfg, Zones: d.zones, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
 		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now, Signatures: d.people})
+	d.gate.mu.Lock()
+	d.gate.onChange = d.api.SetWriteProblem
+	d.gate.mu.Unlock()
+	d.api.SetWriteProblem(d.gate.problem())
 	return nil
 }
 
@@ -319,7 +337,7 @@ func (d *Daemon) startBackground() error {
 		defer d.wg.Done()
 		d.audit.watchClock(bg)
 	}()
-	if err := d.alarms.start(bg, &d.wg, d.history, d.states); err != nil {
+	if err := d.alarms.start(bg, &d.wg, d.history, d.states, d.damaged()); err != nil {
 		return err
 	}
 	stopModbus, err := startModbus(bg, d.reg, d.ingest, d.log, modbusHooks{Metrics: d.metrics, Now: d.now, Events: d.alarms})
@@ -365,7 +383,10 @@ func (d *Daemon) listen() error {
 // routes assembles the API and the pages behind the common middleware.
 func (d *Daemon) routes() http.Handler {
 	r := chi.NewRouter()
-	r.Use(httpx.Recoverer(d.log), httpx.RequestLog(d.log), d.people.web.Middleware)
+	r.Use(httpx.Recoverer(d.log), httpx.RequestLog(d.log), d.gate.middleware, d.people.web.Middleware)
+	if d.cfg.TLS.Enabled() {
+		r.Use(httpx.HSTS)
+	}
 	r.NotFound(func(w http.ResponseWriter, r *http.Request) {
 		httpx.WriteError(w, http.StatusNotFound, "no such endpoint: "+r.URL.Path)
 	})

@@ -51,6 +51,9 @@ type Config struct {
 	// AllowPlainHTTP permits serving without TLS on an address other than
 	// loopback (a closed instrument network behind its own protection).
 	AllowPlainHTTP bool `yaml:"allow_plain_http"`
+	// Audit and Ingest: the signed record and the ingest bounds (trust.go).
+	Audit  AuditConfig  `yaml:"audit"`
+	Ingest IngestConfig `yaml:"ingest"`
 	// TimeZone is the site's IANA time zone (UTC when empty): the pages
 	// show times and cut shifts in it. Shifts are the start times of the
 	// site's shifts ("06:00"), each running until the next.
@@ -545,6 +548,7 @@ func (d *nodeDecoder) check(c *Config) {
 	d.checkPeople(c.Accounts, c.OIDC)
 	d.checkSections(c)
 	d.checkAcross(c)
+	d.checkTrust(c)
 	d.checkInstruments(c)
 }
 

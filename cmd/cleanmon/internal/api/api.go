@@ -18,6 +18,7 @@ import (
 	"cleanmon/cmd/cleanmon/internal/access"
 	"cleanmon/cmd/cleanmon/internal/httpx"
 	"cleanmon/cmd/cleanmon/internal/site"
+	"cleanmon/store"
 )
 
 // Options are the collaborators of the API. None may be nil: a daemon
@@ -32,6 +33,12 @@ type Options struct {
 	Metrics *prometheus.Registry
 	Log     *slog.Logger
 	Now     func() time.Time
+	// MaxRawRange bounds the range of one raw readings request; zero is
+	// store.DefaultMaxRawRange.
+	MaxRawRange time.Duration
+	// HeavyPerToken bounds the range walks one token runs at once; zero
+	// is DefaultHeavyPerToken.
+	HeavyPerToken int
 }
 
 // Server holds the API's collaborators; Register mounts its routes.
@@ -46,6 +53,9 @@ type Server struct {
 	log     *slog.Logger
 	now     func() time.Time
 
+	maxRawRange time.Duration
+	heavy       *heavyGate
+
 	// ready is set once the store is open and ingest runs, and cleared
 	// when shutdown begins, so a balancer stops sending work first.
 	ready atomic.Bool
@@ -53,8 +63,13 @@ type Server struct {
 
 // New returns the API over o.
 func New(o Options) *Server {
-	return &Server{cfg: o.Site, zones: o.Zones, store: o.Store, ingest: o.Ingest, alarms: o.Alarms,
-		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now}
+	s := &Server{cfg: o.Site, zones: o.Zones, store: o.Store, ingest: o.Ingest, alarms: o.Alarms,
+		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now,
+		maxRawRange: o.MaxRawRange, heavy: newHeavyGate(o.HeavyPerToken)}
+	if s.maxRawRange <= 0 {
+		s.maxRawRange = store.DefaultMaxRawRange
+	}
+	return s
 }
 
 // SetReady says whether /readyz answers ready.
@@ -77,17 +92,17 @@ func (s *Server) Register(r chi.Router) {
 
 		r.With(short, read).Get("/zones", s.listZones)
 		r.With(short, read, s.zone).Get("/zones/{zone}", s.getZone)
-		r.With(long, read, s.zone).Get("/zones/{zone}/readings", s.zoneReadings)
-		r.With(long, read, s.zone).Get("/zones/{zone}/classification", s.zoneClassification)
+		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/readings", s.zoneReadings)
+		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/classification", s.zoneClassification)
 		r.With(short, operate, s.zone).Put("/zones/{zone}/state", s.putZoneState)
 
 		r.With(short, read).Get("/alarms", s.listAlarms)
 		r.With(short, operate).Post("/alarms/{id}/ack", s.ackAlarm)
-		r.With(long, read, s.zone).Get("/zones/{zone}/levels", s.zoneLevels)
+		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/levels", s.zoneLevels)
 		r.With(short, read).Get("/sensors", s.listSensors)
 		r.With(long, read).Get("/audit", s.listAudit)
 		r.With(short, read).Get("/audit/head", s.auditHead)
-		r.With(long, read).Get("/sensors/{sensor}/pressure", s.sensorPressure)
+		r.With(long, read, s.heavy.limit).Get("/sensors/{sensor}/pressure", s.sensorPressure)
 
 		r.With(httpx.Timeout(httpx.BackupTimeout), s.auth.Require(access.PermAdmin)).Get("/backup", s.backup)
 	})

@@ -215,8 +215,25 @@ func corruptError(path string, detail error) error {
 // damaged meta or freelist pages into store errors. A panic inside
 // bolt.Open leaves no *DB to close, so the file it opened is captured and
 // closed here: otherwise its lock would outlive the failure.
-func openBolt(path string, o *bolt.Options) (db *bolt.DB, err error) {
-	var file *os.File
+func openBolt(path string, o *bolt.Options) (*bolt.DB, error) {
+	// CompactFile replaces the file while holding its lock: a process that
+	// opened the old file and then waited for the lock would write into a
+	// file no longer in place. It checks, and opens the new one.
+	for try := 0; ; try++ {
+		db, file, err := openBoltOnce(path, o)
+		if err != nil || try == 2 {
+			return db, err
+		}
+		in, ierr := file.Stat()
+		now, nerr := os.Stat(path)
+		if ierr != nil || nerr != nil || os.SameFile(in, now) {
+			return db, nil
+		}
+		_ = db.Close()
+	}
+}
+
+func openBoltOnce(path string, o *bolt.Options) (db *bolt.DB, file *os.File, err error) {
 	o.OpenFile = func(name string, flag int, perm os.FileMode) (*os.File, error) {
 		f, err := os.OpenFile(name, flag, perm)
 		file = f
@@ -234,13 +251,13 @@ func openBolt(path string, o *bolt.Options) (db *bolt.DB, err error) {
 	db, err = bolt.Open(path, 0o600, o)
 	switch {
 	case err == nil:
-		return db, nil
+		return db, file, nil
 	case errors.Is(err, bolt.ErrTimeout):
-		return nil, lockedError(path)
+		return nil, nil, lockedError(path)
 	case errors.Is(err, fs.ErrPermission), errors.Is(err, fs.ErrNotExist):
-		return nil, fmt.Errorf("store: open %s: %w", path, err)
+		return nil, nil, fmt.Errorf("store: open %s: %w", path, err)
 	}
-	return nil, corruptError(path, err)
+	return nil, nil, corruptError(path, err)
 }
 
 // probeFile opens an existing file read-only and checks that it is as

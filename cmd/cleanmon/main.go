@@ -33,6 +33,7 @@ func commands() []command {
 		{"certify", "evaluate planned samples against a class and print the verdict", runCertify},
 		{"backup", "write a consistent copy of a store to a file", runBackup},
 		{"verify", "check a store's consistency and integrity", runVerify},
+		{"compact", "rewrite a stopped store without its free pages", runCompact},
 		{"bench", "measure ingest throughput and latency on loopback", runBench},
 		{"soak", "run ingest and queries together on loopback for a bounded time", runSoak},
 	}

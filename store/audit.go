@@ -21,6 +21,11 @@ const (
 	AuditAlarm      = "alarm-transition" // one RecordAlarms record, acknowledgements included
 	AuditSweep      = "sweep"            // one Sweep transaction: its horizon and what it deleted
 	AuditBackup     = "backup"           // a Backup or BackupFile that completed
+	AuditEnv        = "environment-batch" // one AppendEnvironment call: its stored samples' digest
+	// AuditEnvStart is written once, on the first start of a file whose
+	// chain began before environment samples were covered: the newest key
+	// and count of each environment sensor then, as the chain start does.
+	AuditEnvStart = "environment-cover-start"
 )
 
 // Actions the daemon is expected to record through AppendAudit; any
@@ -39,6 +44,7 @@ const AuditActorSystem = "cleanmon"
 var storeActions = map[string]bool{
 	AuditChainStart: true, AuditReadings: true, AuditPressure: true, AuditOpState: true,
 	AuditAlarm: true, AuditSweep: true, AuditBackup: true, AuditKeyChange: true, AuditUncleanStop: true,
+	AuditEnv: true, AuditEnvStart: true,
 }
 
 // AuditEntry is one entry of the audit trail. Each entry is chained to the

@@ -15,6 +15,7 @@ const (
 	coverPressure = 'p' // pressure/<sensor>/<time>
 	coverOpState  = 'o' // opstate/<zone>/<sequence>
 	coverJournal  = 'j' // alarm_journal/<sequence>, name ""
+	coverEnv      = 'e' // environment/<sensor>/<time>
 )
 
 func coverBucket(kind byte) []byte {
@@ -27,6 +28,8 @@ func coverBucket(kind byte) []byte {
 		return bucketOpState
 	case coverJournal:
 		return bucketJournal
+	case coverEnv:
+		return bucketEnvironment
 	}
 	return nil
 }
@@ -312,8 +315,14 @@ type baseline struct {
 }
 
 func chainStartDetail(tx *bolt.Tx) ([]byte, error) {
+	return baselineDetail(tx, []byte{coverReadings, coverPressure, coverOpState, coverEnv}, true)
+}
+
+// baselineDetail is chainStart's form for the series of kinds (and the
+// alarm journal when journal is set).
+func baselineDetail(tx *bolt.Tx, kinds []byte, journal bool) ([]byte, error) {
 	var out []baseline
-	for _, kind := range []byte{coverReadings, coverPressure, coverOpState} {
+	for _, kind := range kinds {
 		root := tx.Bucket(coverBucket(kind))
 		if root == nil {
 			continue
@@ -330,7 +339,7 @@ func chainStartDetail(tx *bolt.Tx) ([]byte, error) {
 			return nil, err
 		}
 	}
-	if j := tx.Bucket(bucketJournal); j != nil {
+	if j := tx.Bucket(bucketJournal); j != nil && journal {
 		if k, _ := j.Cursor().Last(); k != nil {
 			if n, ok := keyNanos(k); ok {
 				out = append(out, baseline{coverJournal, "", n, uint64(j.Stats().KeyN)})

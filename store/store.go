@@ -143,6 +143,9 @@ func Open(dir string, opt Options) (*Store, error) {
 		_ = db.Close()
 		return nil, err
 	}
+	if err := s.coverEnvironmentOnce(); err != nil { // envcover.go
+		log.Warn("store: could not start the audit cover of environment samples; verify will name the older ones as not covered", "path", path, "err", err)
+	}
 	if _, err := s.markRunning(); err != nil { // unclean.go; reads stay served on a full disk
 		log.Warn("store: could not mark the store open; an unclean stop of this run will not be recorded", "path", path, "err", err)
 	}
@@ -355,6 +358,9 @@ func (s *Store) initSchema() error {
 		}
 		if !startChain {
 			return nil
+		}
+		if err := meta.Put(metaEnvCovered, []byte{1}); err != nil { // the chain start covers them
+			return err
 		}
 		detail, err := chainStartDetail(tx)
 		if err != nil {

@@ -14,13 +14,13 @@ import (
 // transaction of the change they record. AppendAudit refuses them, so
 // that only the store can write what Verify checks against the data.
 const (
-	AuditChainStart = "chain-start"      // entry #1: the chain begins (with what the file held before it)
-	AuditReadings   = "readings-batch"   // one AppendReadings call: its stored readings' digest
-	AuditPressure   = "pressure-batch"   // one AppendPressure call: its stored samples' digest
-	AuditOpState    = "operating-state"  // one SetOperatingState change
-	AuditAlarm      = "alarm-transition" // one RecordAlarms record, acknowledgements included
-	AuditSweep      = "sweep"            // one Sweep transaction: its horizon and what it deleted
-	AuditBackup     = "backup"           // a Backup or BackupFile that completed
+	AuditChainStart = "chain-start"       // entry #1: the chain begins (with what the file held before it)
+	AuditReadings   = "readings-batch"    // one AppendReadings call: its stored readings' digest
+	AuditPressure   = "pressure-batch"    // one AppendPressure call: its stored samples' digest
+	AuditOpState    = "operating-state"   // one SetOperatingState change
+	AuditAlarm      = "alarm-transition"  // one RecordAlarms record, acknowledgements included
+	AuditSweep      = "sweep"             // one Sweep transaction: its horizon and what it deleted
+	AuditBackup     = "backup"            // a Backup or BackupFile that completed
 	AuditEnv        = "environment-batch" // one AppendEnvironment call: its stored samples' digest
 	// AuditEnvStart is written once, on the first start of a file whose
 	// chain began before environment samples were covered: the newest key

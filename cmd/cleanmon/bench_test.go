@@ -56,7 +56,7 @@ func TestSoakCommandRuns(t *testing.T) {
 		t.Fatalf("soak: %v\n%s", err, out)
 	}
 	s := string(out)
-	if !strings.Contains(s, " 0 ingest errors, 0 query errors") || !strings.Contains(s, "store verified: 0 faults") {
+	if !strings.Contains(s, " 0 ingest errors, 0 query errors") || !strings.Contains(s, "store verified: 0 faults") || !strings.Contains(s, "store B/r") || !strings.Contains(s, "bytes/reading on disk") {
 		t.Errorf("soak report:\n%s", s)
 	}
 }

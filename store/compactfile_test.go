@@ -87,3 +87,32 @@ func TestCompactFileRefuses(t *testing.T) {
 		t.Error("a refused CompactFile changed the file")
 	}
 }
+
+// A clean stop rewrites a file that is mostly free pages (the head's
+// high-water mark after a burst, compacted into chunks at the stop); the
+// store opens and verifies as before, and KeepFreePages leaves it be.
+func TestCloseShrinks(t *testing.T) {
+	for _, keep := range []bool{false, true} {
+		t.Run(fmt.Sprintf("keep=%v", keep), func(t *testing.T) {
+			dir := t.TempDir()
+			s := openTest(t, dir, Options{NoSync: true, CompactEvery: -1, KeepFreePages: keep})
+			for c := range 70 {
+				appendOK(t, s, series(fmt.Sprintf("pc-fill-%d", c), t0, 2500))
+			}
+			if err := s.Close(); err != nil {
+				t.Fatal(err)
+			}
+			info, err := os.Stat(filepath.Join(dir, FileName))
+			if err != nil {
+				t.Fatal(err)
+			}
+			shrunk := info.Size() < shrinkMinBytes
+			if shrunk == keep {
+				t.Errorf("file %d bytes after the stop (KeepFreePages %v)", info.Size(), keep)
+			}
+			if problems, err := Verify(dir); err != nil || len(problems) != 0 {
+				t.Fatalf("Verify: %q %v", problems, err)
+			}
+		})
+	}
+}

@@ -61,6 +61,9 @@ type Options struct {
 	// Logger receives the rare events the caller cannot see in a return
 	// value (a damaged rollup rebuilt, a recovered panic). Nil: discarded.
 	Logger *slog.Logger `yaml:"-"`
+	// KeepFreePages turns off the rewrite of a small file that is at
+	// least half free pages at a clean stop (see Close).
+	KeepFreePages bool `yaml:"keep_free_pages"`
 
 	commit   commitMode // how writes share transactions (tests, benchmarks)
 	keepHead bool       // tests: Close leaves the head as it is
@@ -188,8 +191,42 @@ func (s *Store) Close() error {
 			s.log.Error("store: compaction at close failed; readings stay in the head", "error", err.Error())
 		}
 	}
+	shrink := s.worthShrinking()
 	s.closeAudit() // unclean.go
-	return s.db.Close()
+	if err := s.db.Close(); err != nil {
+		return err
+	}
+	if shrink { // compactfile.go; the store is closed and whole whatever this does
+		res, err := CompactFile(filepath.Dir(s.path), 0)
+		if err != nil {
+			s.log.Warn("store: could not rewrite the file without its free pages at the stop; `cleanmon compact` can", "error", err.Error())
+		} else {
+			s.log.Info("store: file rewritten without its free pages at the stop", "before_bytes", res.Before, "after_bytes", res.After, "took", res.Took.String())
+		}
+	}
+	return nil
+}
+
+// Shrinking at a clean stop (Close): a file at least half free pages (the head's
+// high-water mark, chunks rewritten as they grew) is rewritten without
+// them when it is small enough that the copy takes seconds; a larger one
+// is left for `cleanmon compact`, run when the site chooses.
+const (
+	shrinkMinBytes = 8 << 20
+	shrinkMaxBytes = 512 << 20
+)
+
+func (s *Store) worthShrinking() bool {
+	if s.opt.KeepFreePages {
+		return false
+	}
+	info, err := os.Stat(s.path)
+	if err != nil || info.Size() < shrinkMinBytes || info.Size() > shrinkMaxBytes {
+		return false
+	}
+	st := s.db.Stats()
+	pages := info.Size() / int64(s.db.Info().PageSize)
+	return int64(st.FreePageN+st.PendingPageN)*2 >= pages
 }
 
 // enter registers a call in flight; every exported method that touches

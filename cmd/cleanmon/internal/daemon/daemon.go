@@ -283,7 +283,8 @@ func (d *Daemon) startIngest() error {
 		alerts.NewNotifierCollector(d.alarms.disp),
 	)
 	d.api = api.New(api.Options{Site: d.cfg, Zones: d.zones, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
-		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now})
+		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now,
+		MaxRawRange: time.Duration(d.cfg.Queries.MaxRawRange), HeavyPerToken: d.cfg.Queries.HeavyPerToken})
 	return nil
 }
 

@@ -41,7 +41,8 @@ func coverBucket(kind byte) []byte {
 // series' records in the order written:
 //
 //	kind byte (upper case) | uvarint unit | varint base | uvarint names |
-//	  (str name | uvarint count | uvarint (first − base)/unit |
+//	  (uvarint shared, str rest: the name, front-coded against the one
+//	   before | uvarint count | uvarint (first − base)/unit |
 //	   when count > 1: uvarint steady,
 //	     steady 1: varint step/unit (every step equal),
 //	     steady 0: (varint delta of delta/unit) × (count − 1))… | digest[32]
@@ -152,9 +153,11 @@ func (c *coverage) detail() []byte {
 	b = binary.AppendUvarint(b, uint64(len(c.names)))
 	h := sha256.New()
 	var scratch []byte
+	prev := ""
 	for i, name := range c.names {
 		ser := c.series[i]
-		b = appendBytes(b, []byte(name))
+		b = appendFrontCoded(b, prev, name)
+		prev = name
 		b = binary.AppendUvarint(b, uint64(len(ser)))
 		b = binary.AppendUvarint(b, uint64(ser[0].key-base)/unit)
 		if len(ser) > 1 {
@@ -187,6 +190,34 @@ func appendSteps(b []byte, ser []coveredVal, unit int64) []byte {
 		b = binary.AppendVarint(b, ks.next((r.key-first)/unit))
 	}
 	return b
+}
+
+// appendFrontCoded writes name as the length of the prefix it shares with
+// prev and the rest: counters named pc-101, pc-102, … cost two bytes each.
+func appendFrontCoded(b []byte, prev, name string) []byte {
+	n := 0
+	for n < len(prev) && n < len(name) && prev[n] == name[n] {
+		n++
+	}
+	b = binary.AppendUvarint(b, uint64(n))
+	return appendBytes(b, []byte(name[n:]))
+}
+
+// frontCoded reads what appendFrontCoded wrote after prev.
+func (d *decoder) frontCoded(what, prev string, max int) string {
+	n := d.uvarint(what + " shared prefix")
+	if d.err == nil && n > uint64(len(prev)) {
+		d.fail("%s: shares %d bytes with a name of %d", what, n, len(prev))
+	}
+	rest := d.str(what, max)
+	if d.err != nil {
+		return ""
+	}
+	if int(n)+len(rest) > max {
+		d.fail("%s: %d bytes, more than %d", what, int(n)+len(rest), max)
+		return ""
+	}
+	return prev[:n] + rest
 }
 
 func upperKind(kind byte) byte { return kind - 'a' + 'A' }
@@ -240,8 +271,10 @@ func (c *covered) decodeGrouped(d *decoder) {
 	if d.err == nil && nn > uint64(len(d.b)) {
 		d.fail("names: %d, more than the detail holds", nn)
 	}
+	prev := ""
 	for i := uint64(0); i < nn && d.err == nil; i++ {
-		c.names = append(c.names, d.str("name", maxNameLen))
+		prev = d.frontCoded("name", prev, maxNameLen)
+		c.names = append(c.names, prev)
 		count := d.uvarint("count")
 		if d.err == nil && (count == 0 || len(c.recs)+int(min(count, maxCovered)) > maxCovered) {
 			d.fail("series %d: %d records", i, count)

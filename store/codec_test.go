@@ -103,8 +103,9 @@ func TestCoverageEncoding(t *testing.T) {
 		// the first key and one step, whatever the count, plus the digest.
 		{"steady period", steady, 64},
 		// The live shape: 200 counters, five readings each, interleaved in
-		// time order; about 16 bytes per counter, under 4 a reading.
-		{"200 counters interleaved", live, 4 * 1000},
+		// time order: names front-coded (pc-c-001, pc-c-002: two bytes
+		// each), then count, first key and one step: about 1.6 bytes a reading.
+		{"200 counters interleaved", live, 1600},
 		{"jittered period", jittered, 0},
 		{"interleaved counters, irregular", []rec{
 			{"pc-asm-2", t0.Add(time.Second).UnixNano()}, {"pc-asm-1", t0.UnixNano()},

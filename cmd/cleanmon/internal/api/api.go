@@ -94,6 +94,7 @@ func (s *Server) Register(r chi.Router) {
 		r.With(short, read, s.zone).Get("/zones/{zone}", s.getZone)
 		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/readings", s.zoneReadings)
 		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/classification", s.zoneClassification)
+		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/recovery", s.zoneRecovery)
 		r.With(short, operate, s.zone).Put("/zones/{zone}/state", s.putZoneState)
 
 		r.With(short, read).Get("/alarms", s.listAlarms)
@@ -103,6 +104,8 @@ func (s *Server) Register(r chi.Router) {
 		r.With(long, read).Get("/audit", s.listAudit)
 		r.With(short, read).Get("/audit/head", s.auditHead)
 		r.With(long, read, s.heavy.limit).Get("/sensors/{sensor}/pressure", s.sensorPressure)
+
+		s.registerRecords(r, read, short, long)
 
 		r.With(httpx.Timeout(httpx.BackupTimeout), s.auth.Require(access.PermAdmin)).Get("/backup", s.backup)
 	})

@@ -182,11 +182,11 @@ func mountTestServer(s *Server) http.Handler {
 // newTestServer is the Server newTestAPI mounts.
 func newTestServer(t *testing.T, o Options) *Server {
 	t.Helper()
-	return newTestServerOn(t, testSite, o)
+	return newTestServerSite(t, testSite, o)
 }
 
-// newTestServerOn is newTestServer on another site configuration.
-func newTestServerOn(t *testing.T, siteYAML string, o Options) *Server {
+// newTestServerSite is newTestServer over another site configuration.
+func newTestServerSite(t *testing.T, siteYAML string, o Options) *Server {
 	t.Helper()
 	cfg, err := site.Load("site.yaml", []byte(siteYAML))
 	if err != nil {

@@ -75,7 +75,7 @@ func get(t *testing.T, h http.Handler, path string) *httptest.ResponseRecorder {
 func TestRawStreamMergesCounters(t *testing.T) {
 	n := 2*rawBatch + 17
 	rs, t0 := twoCounterReadings(n)
-	h := mountTestServer(newTestServerOn(t, twoCounterSite, Options{Store: fakeStore{scanReadings: rs.scan}}))
+	h := mountTestServer(newTestServerSite(t, twoCounterSite, Options{Store: fakeStore{scanReadings: rs.scan}}))
 	to := t0.Add(time.Duration(n) * 90 * time.Second)
 	rec := get(t, h, "/api/v1/zones/hood/readings?from="+t0.Format(time.RFC3339)+"&to="+to.Format(time.RFC3339))
 	if rec.Code != http.StatusOK {
@@ -118,7 +118,7 @@ func TestRawStreamMergesCounters(t *testing.T) {
 // of time; 0001…9999 is refused naming the parameter.
 func TestRawRangeBoundedAndSeeks(t *testing.T) {
 	rs, t0 := twoCounterReadings(3)
-	h := mountTestServer(newTestServerOn(t, twoCounterSite, Options{Store: fakeStore{scanReadings: rs.scan}}))
+	h := mountTestServer(newTestServerSite(t, twoCounterSite, Options{Store: fakeStore{scanReadings: rs.scan}}))
 	from := t0.Add(-300 * 24 * time.Hour)
 	rec := get(t, h, "/api/v1/zones/hood/readings?from="+from.Format(time.RFC3339)+"&to="+t0.Add(time.Hour).Format(time.RFC3339))
 	if rec.Code != http.StatusOK || strings.Count(rec.Body.String(), `"time"`) != 6 {
@@ -132,7 +132,7 @@ func TestRawRangeBoundedAndSeeks(t *testing.T) {
 		t.Errorf("0001…9999: %d %v", status, body)
 	}
 	// The bound is the site's to set.
-	h = mountTestServer(newTestServerOn(t, twoCounterSite, Options{Store: fakeStore{scanReadings: rs.scan}, MaxRawRange: 24 * time.Hour}))
+	h = mountTestServer(newTestServerSite(t, twoCounterSite, Options{Store: fakeStore{scanReadings: rs.scan}, MaxRawRange: 24 * time.Hour}))
 	status, body = call(t, h, "GET", "/api/v1/zones/hood/readings?from=2026-03-01T00:00:00Z&to=2026-03-03T00:00:00Z", "", "")
 	if status != http.StatusBadRequest || body["field"] != "to" || !strings.Contains(body["error"].(string), "24h") {
 		t.Errorf("two days over a 24 h bound: %d %v", status, body)
@@ -156,7 +156,7 @@ func TestRollupWalkSeeks(t *testing.T) {
 		}
 		return nil
 	}}
-	h := mountTestServer(newTestServerOn(t, twoCounterSite, Options{Store: st}))
+	h := mountTestServer(newTestServerSite(t, twoCounterSite, Options{Store: st}))
 	rec := get(t, h, "/api/v1/zones/hood/readings?step=1h&from="+far.Format(time.RFC3339)+"&to="+t0.Add(time.Hour).Format(time.RFC3339))
 	if rec.Code != http.StatusOK || strings.Count(rec.Body.String(), `"time"`) != 2 {
 		t.Fatalf("%d %s", rec.Code, rec.Body.String())
@@ -171,7 +171,7 @@ func TestRollupWalkSeeks(t *testing.T) {
 // counter does not have.
 func TestReadingsCSV(t *testing.T) {
 	rs, t0 := twoCounterReadings(3)
-	h := mountTestServer(newTestServerOn(t, twoCounterSite, Options{Store: fakeStore{scanReadings: rs.scan}}))
+	h := mountTestServer(newTestServerSite(t, twoCounterSite, Options{Store: fakeStore{scanReadings: rs.scan}}))
 	rec := get(t, h, "/api/v1/zones/hood/readings?format=csv&from="+t0.Format(time.RFC3339)+"&to="+t0.Add(time.Hour).Format(time.RFC3339))
 	if rec.Code != http.StatusOK || !strings.HasPrefix(rec.Header().Get("Content-Type"), "text/csv") {
 		t.Fatalf("%d %q %s", rec.Code, rec.Header().Get("Content-Type"), rec.Body.String())
@@ -221,7 +221,7 @@ func TestHeavyQueriesPerToken(t *testing.T) {
 		}
 		return nil
 	}}
-	h := mountTestServer(newTestServerOn(t, twoCounterSite, Options{Store: st, HeavyPerToken: 2}))
+	h := mountTestServer(newTestServerSite(t, twoCounterSite, Options{Store: st, HeavyPerToken: 2}))
 	as := func(token string) *httptest.ResponseRecorder {
 		req := httptest.NewRequest("GET", "/api/v1/zones/hood/readings", nil)
 		req = httpx.WithIdentity(req, &httpx.Identity{Token: token})

@@ -57,10 +57,20 @@ type Config struct {
 	// site's shifts ("06:00"), each running until the next.
 	TimeZone string   `yaml:"time_zone"`
 	Shifts   []string `yaml:"shifts"`
+	// Reports are the files the daemon writes by itself.
+	Reports Reports `yaml:"reports"`
 
 	// source and digest name the file the configuration was read from and
 	// the SHA-256 of its bytes, for the audit trail.
 	source, digest string
+}
+
+// Reports configures the reports the daemon writes by itself.
+type Reports struct {
+	// TrendDir, when set, receives each zone's month on one page (HTML and
+	// PDF) on the first day of the next month, and at start for the last
+	// month when its files are missing.
+	TrendDir string `yaml:"trend_dir"`
 }
 
 // Source is the file the configuration was read from.
@@ -529,6 +539,7 @@ func (d *nodeDecoder) check(c *Config) {
 	d.checkTokens(c.Access.Tokens)
 	d.checkSections(c)
 	d.checkAcross(c)
+	d.checkInstruments(c)
 }
 
 // checkTokens checks the access tokens: names and secrets unique, roles

@@ -85,7 +85,7 @@ function render() {
       td("Acknowledged", "acked", a.acknowledged_by ? [a.acknowledged_by, a.acknowledged_at ? [" ", timeEl(a.acknowledged_at, true)] : "", a.comment ? [el("br"), "“" + a.comment + "”"] : ""] : "—"),
       td("", "act", a.state === "active"
         ? el("button", { type: "button", class: "ack-btn", onclick: () => openAck(a) }, "Acknowledge")
-        : ""),
+        : "", " ", el("a", { class: "investigate", href: "/alarms/" + pathSegment(a.id) + "/investigation" }, "Investigate")),
     )))));
 }
 

@@ -8,6 +8,7 @@ import {
   init, get, request, poll, banner, explain, el, attentionBadge, clearContradicted, stateBadge, dpBadge, dpStatus, levelBadge, alarmStateBadge, num, pct, pa,
   targetText, OP_STATES, sizeKeys, timeEl, timeText, ago, siteInfo,
 } from "./common.js";
+import { startRuns } from "./zone-runs.js";
 import { timeChart } from "./chart.js";
 
 const HOUR = 3600e3;
@@ -154,7 +155,7 @@ function renderAlarms(z) {
   }
   const td = (label, cls, ...c) => el("td", { class: cls, dataset: { label } }, ...c);
   box.replaceChildren(el("table", { class: "alarm-table" },
-    el("thead", {}, el("tr", {}, ["State", "Level", "Kind", "Where", "Since", "Peak", "Message", "Acknowledged"].map((h) => el("th", {}, h)))),
+    el("thead", {}, el("tr", {}, ["State", "Level", "Kind", "Where", "Since", "Peak", "Message", "Acknowledged", ""].map((h) => el("th", {}, h)))),
     el("tbody", {}, mine.map((a) => el("tr", { dataset: { alarmId: a.id, state: a.state } },
       td("State", "", alarmStateBadge(a.state)),
       td("Level", "", levelBadge(a.level)),
@@ -164,6 +165,7 @@ function renderAlarms(z) {
       td("Peak", "", typeof a.peak === "number" && a.peak_time ? [num(a.peak) + (a.unit ? " " + a.unit : ""), " at ", timeEl(a.peak_time, true)] : "—"),
       td("Message", "wide", a.message),
       td("Acknowledged", "", a.acknowledged_by ? a.acknowledged_by + (a.comment ? ": " + a.comment : "") : "—"),
+      td("", "", el("a", { class: "investigate", href: "/alarms/" + encodeURIComponent(a.id).replace(/%3A/gi, ":") + "/investigation" }, "Investigate")),
     )))));
 }
 
@@ -364,6 +366,7 @@ function wireControls() {
 
 init().then(() => {
   wireControls();
+  startRuns();
   poll(refreshHead, 5000);
   setInterval(() => {
     if (range === "shift") drawCharts();

@@ -317,7 +317,8 @@ func (d *Daemon) startIngest() error {
 		alerts.NewNotifierCollector(d.alarms.disp),
 	)
 	d.api = api.New(api.Options{Site: d.cfg, Zones: d.zones, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
-		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now, Signatures: d.people})
+		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now, Signatures: d.people,
+		MaxRawRange: time.Duration(d.cfg.Queries.MaxRawRange), HeavyPerToken: d.cfg.Queries.HeavyPerToken})
 	d.gate.mu.Lock()
 	d.gate.onChange = d.api.SetWriteProblem
 	d.gate.mu.Unlock()

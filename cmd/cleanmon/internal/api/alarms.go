@@ -4,6 +4,7 @@ import (
 	"cleanmon/alerts"
 	"cleanmon/cmd/cleanmon/internal/httpx"
 	"cleanmon/cmd/cleanmon/internal/people"
+	"cleanmon/collector"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -83,7 +84,9 @@ const maxAckBody = 8 << 10
 // remark, so "who" cannot be typed in by anyone.
 func (s *Server) ackAlarm(w http.ResponseWriter, r *http.Request) {
 	var req ackRequest
-	if !httpx.DecodeStrict(w, r, maxAckBody, &req, "by, comment, signature") {
+	if !decodeBody(w, r, maxAckBody, &req, func() map[string]string {
+		return map[string]string{"by": req.By, "comment": req.Comment}
+	}) {
 		return
 	}
 	id := chi.URLParam(r, "id")
@@ -102,7 +105,7 @@ func (s *Server) ackAlarm(w http.ResponseWriter, r *http.Request) {
 	}
 	who := act.who
 	if strings.TrimSpace(who) == "" {
-		httpx.WriteFieldError(w, "by", "missing: say who acknowledges")
+		fieldAnswer(w, "by", collector.RuleRequired, "missing: say who acknowledges")
 		return
 	}
 	a, err := s.alarms.Ack(r.Context(), id, who, req.Comment)

@@ -18,6 +18,7 @@ import (
 	"cleanmon/cmd/cleanmon/internal/access"
 	"cleanmon/cmd/cleanmon/internal/httpx"
 	"cleanmon/cmd/cleanmon/internal/site"
+	"cleanmon/store"
 )
 
 // Options are the collaborators of the API. None may be nil: a daemon
@@ -34,6 +35,12 @@ type Options struct {
 	Now     func() time.Time
 	// Signatures signs acknowledgements and state changes of people.
 	Signatures Signatures
+	// MaxRawRange bounds the range of one raw readings request; zero is
+	// store.DefaultMaxRawRange.
+	MaxRawRange time.Duration
+	// HeavyPerToken bounds the range walks one token runs at once; zero
+	// is DefaultHeavyPerToken.
+	HeavyPerToken int
 }
 
 // Server holds the API's collaborators; Register mounts its routes.
@@ -49,15 +56,26 @@ type Server struct {
 	now     func() time.Time
 	sigs    Signatures
 
+	maxRawRange time.Duration
+	heavy       *heavyGate
+
 	// ready is set once the store is open and ingest runs, and cleared
 	// when shutdown begins, so a balancer stops sending work first.
 	ready atomic.Bool
+	// writeProblem is why writes are refused or failing; nil while they
+	// succeed.
+	writeProblem atomic.Pointer[string]
 }
 
 // New returns the API over o.
 func New(o Options) *Server {
-	return &Server{cfg: o.Site, zones: o.Zones, store: o.Store, ingest: o.Ingest, alarms: o.Alarms,
-		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now, sigs: o.Signatures}
+	s := &Server{cfg: o.Site, zones: o.Zones, store: o.Store, ingest: o.Ingest, alarms: o.Alarms,
+		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now, sigs: o.Signatures,
+		maxRawRange: o.MaxRawRange, heavy: newHeavyGate(o.HeavyPerToken)}
+	if s.maxRawRange <= 0 {
+		s.maxRawRange = store.DefaultMaxRawRange
+	}
+	return s
 }
 
 // SetReady says whether /readyz answers ready.
@@ -80,18 +98,18 @@ func (s *Server) Register(r chi.Router) {
 
 		r.With(short, read).Get("/zones", s.listZones)
 		r.With(short, read, s.zone).Get("/zones/{zone}", s.getZone)
-		r.With(long, read, s.zone).Get("/zones/{zone}/readings", s.zoneReadings)
-		r.With(long, read, s.zone).Get("/zones/{zone}/classification", s.zoneClassification)
-		r.With(long, read, s.zone).Get("/zones/{zone}/recovery", s.zoneRecovery)
+		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/readings", s.zoneReadings)
+		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/classification", s.zoneClassification)
+		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/recovery", s.zoneRecovery)
 		r.With(short, operate, s.zone).Put("/zones/{zone}/state", s.putZoneState)
 
 		r.With(short, read).Get("/alarms", s.listAlarms)
 		r.With(short, operate).Post("/alarms/{id}/ack", s.ackAlarm)
-		r.With(long, read, s.zone).Get("/zones/{zone}/levels", s.zoneLevels)
+		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/levels", s.zoneLevels)
 		r.With(short, read).Get("/sensors", s.listSensors)
 		r.With(long, read).Get("/audit", s.listAudit)
 		r.With(short, read).Get("/audit/head", s.auditHead)
-		r.With(long, read).Get("/sensors/{sensor}/pressure", s.sensorPressure)
+		r.With(long, read, s.heavy.limit).Get("/sensors/{sensor}/pressure", s.sensorPressure)
 
 		s.registerRecords(r, read, short, long)
 

@@ -13,6 +13,7 @@ import (
 	"cleanmon/classify"
 	"cleanmon/cmd/cleanmon/internal/httpx"
 	"cleanmon/cmd/cleanmon/internal/people"
+	"cleanmon/collector"
 	"cleanmon/store"
 )
 
@@ -202,11 +203,13 @@ const maxStateBody = 64 << 10
 func (s *Server) putZoneState(w http.ResponseWriter, r *http.Request) {
 	id := zoneOf(r).ID
 	var req stateRequest
-	if !httpx.DecodeStrict(w, r, maxStateBody, &req, "state, by, reason, signature") {
+	if !decodeBody(w, r, maxStateBody, &req, func() map[string]string {
+		return map[string]string{"state": req.State, "by": req.By, "reason": req.Reason}
+	}) {
 		return
 	}
 	if _, err := alerts.ParseOperatingState(req.State); err != nil {
-		httpx.WriteFieldError(w, "state", fmt.Sprintf("%q: want at-rest, in-operation or maintenance", req.State))
+		fieldAnswer(w, "state", collector.RuleEnum, "%q: want at-rest, in-operation or maintenance", req.State)
 		return
 	}
 	now := s.now().UTC()
@@ -218,7 +221,7 @@ func (s *Server) putZoneState(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	if strings.TrimSpace(act.who) == "" {
-		httpx.WriteFieldError(w, "by", "missing: say who makes the change (it is kept for the audit trail)")
+		fieldAnswer(w, "by", collector.RuleRequired, "missing: say who makes the change (it is kept for the audit trail)")
 		return
 	}
 	ch := alerts.OperatingChange{Zone: id, State: req.State, By: act.who, Reason: req.Reason, Time: now}
@@ -229,7 +232,7 @@ func (s *Server) putZoneState(w http.ResponseWriter, r *http.Request) {
 		var re *store.RecordError
 		switch {
 		case errors.As(err, &re):
-			httpx.WriteFieldError(w, strings.ToLower(re.Field), re.Reason)
+			fieldAnswer(w, strings.ToLower(re.Field), collector.RuleType, "%s", re.Reason)
 		case errors.Is(err, alerts.ErrOperatingState):
 			httpx.WriteError(w, http.StatusBadRequest, err.Error())
 		default:

@@ -22,6 +22,9 @@ type storeSink struct {
 	st  *store.Store
 	m   *alerts.IngestMetrics // nil: no metrics
 	log *slog.Logger          // nil: conflicts are not logged
+	// gate refuses writes after an integrity fault and learns of a full
+	// disk (trust.go); nil: always open.
+	gate *writeGate
 }
 
 // CommitReadings implements collector.Sink.
@@ -54,7 +57,11 @@ func (s storeSink) CommitReadingsMarked(ctx context.Context, rs []collector.Read
 			Sizes: r.Sizes, Counts: r.Counts,
 		}
 	}
+	if err := s.gate.check(); err != nil {
+		return nil, err
+	}
 	outcomes, err := s.st.AppendReadingsMarked(ctx, out)
+	s.gate.committed(err)
 	if err != nil {
 		return nil, err
 	}
@@ -87,7 +94,12 @@ func (s storeSink) CommitPressure(ctx context.Context, ps []collector.Pressure) 
 	for i, p := range ps {
 		out[i] = store.Pressure{Sensor: p.Sensor, Time: p.Time, Pa: p.Pa}
 	}
-	return s.st.AppendPressure(ctx, out)
+	if err := s.gate.check(); err != nil {
+		return 0, 0, err
+	}
+	acc, dup, err := s.st.AppendPressure(ctx, out)
+	s.gate.committed(err)
+	return acc, dup, err
 }
 
 // observation turns a committed reading into what the zone state takes.
@@ -183,8 +195,12 @@ func (c auditCollector) Collect(ch chan<- prometheus.Metric) {
 	}
 }
 
-// Active implements api.Alarms: the alarms not cleared.
-func (s *alarmService) Active() []alerts.Alarm { return s.judge.Alarms(false) }
+// Active implements api.Alarms: the alarms not cleared, with an
+// integrity alarm the damaged store could not take (trust.go).
+func (s *alarmService) Active() []alerts.Alarm { return s.withUnjournaled(s.judge.Alarms(false)) }
+
+// Alarms implements alerts.AlarmLister for the alarm metrics, the same way.
+func (s *alarmService) Alarms(all bool) []alerts.Alarm { return s.withUnjournaled(s.judge.Alarms(all)) }
 
 // Ack implements api.Alarms.
 func (s *alarmService) Ack(ctx context.Context, id, by, comment string) (alerts.Alarm, error) {

@@ -56,6 +56,10 @@ type alarmService struct {
 	work      chan func(context.Context)
 
 	busy atomic.Int32 // a queued task is running
+
+	// unjournaled is the integrity alarm when the damaged store could not
+	// record it (trust.go): shown and sent all the same.
+	unjournaled atomic.Pointer[alerts.Alarm]
 }
 
 const alarmQueue = 4096
@@ -79,10 +83,15 @@ func newAlarmService(cfg *site.Config, reg *collector.Registry, st *store.Store,
 
 // restore brings the judge back after a start: the operating-state
 // history and the open alarms first, then the stored readings of each
-// window, which raise nothing.
-func (s *alarmService) restore(ctx context.Context, changes []alerts.OperatingChange, history []alerts.Observation) error {
+// window, which raise nothing. On a store found damaged a failed restore
+// of the alarms is logged and the judge runs all the same: the integrity
+// alarm must get out.
+func (s *alarmService) restore(ctx context.Context, changes []alerts.OperatingChange, history []alerts.Observation, damaged bool) error {
 	if err := s.judge.Restore(ctx, changes); err != nil {
-		return fmt.Errorf("restoring the judge: %w", err)
+		if !damaged {
+			return fmt.Errorf("restoring the judge: %w", err)
+		}
+		s.log.Error("open alarms not restored from the damaged store: the alarms shown may be incomplete", "err", err)
 	}
 	if err := s.judge.Prime(history); err != nil {
 		return fmt.Errorf("judge history: %w", err)

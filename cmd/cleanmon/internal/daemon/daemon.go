@@ -94,6 +94,11 @@ type Daemon struct {
 
 	// demoPassword is the demo admin's password until Run prints it.
 	demoPassword string
+	// keys, gate and the fault found are the signed record's (trust.go).
+	keys     auditKeys
+	gate     writeGate
+	faultMu  sync.Mutex
+	faultMsg string
 
 	stops   []func() error // run in reverse by Close
 	running bool           // Run was called: Close records a clean stop
@@ -140,7 +145,7 @@ func New(o Options) (d *Daemon, err error) {
 			d = nil
 		}
 	}()
-	steps := []func() error{d.loadConfig, d.openStore, d.startPeople, d.startJudge, d.startIngest, d.startBackground, d.listen}
+	steps := []func() error{d.loadConfig, d.openStore, d.startTrust, d.startPeople, d.startJudge, d.startIngest, d.startBackground, d.startChecks, d.listen}
 	for _, step := range steps {
 		if err := step(); err != nil {
 			return d, err
@@ -246,21 +251,30 @@ func (d *Daemon) startJudge() error {
 	if d.reg, err = collector.NewRegistry(d.cfg.Counters, d.cfg.PressureSensors); err != nil {
 		return asUsage(err)
 	}
+	if d.reg, err = d.reg.WithBounds(d.cfg.Bounds()); err != nil {
+		return asUsage(err)
+	}
 	if d.alarms, err = newAlarmService(d.cfg, d.reg, d.st, d.now, d.log); err != nil {
 		return asUsage(err)
 	}
 	changes, history, err := storedHistory(d.st, d.cfg, d.now(), d.log)
 	if err != nil {
-		return fmt.Errorf("reading the judge's history from the store: %w", err)
+		if !d.damaged() {
+			return fmt.Errorf("reading the judge's history from the store: %w", err)
+		}
+		// A damaged store still serves what it can: the zones start
+		// without history, so they show unknown until readings come.
+		d.log.Error("zone state not restored from the damaged store: zones start unknown", "err", err)
+		changes, history = nil, nil
 	}
-	return d.alarms.restore(context.Background(), changes, history)
+	return d.alarms.restore(context.Background(), changes, history, d.damaged())
 }
 
 // startIngest builds the ingest path (store first, then the judge), the
 // access rules, the metrics and the API.
 func (d *Daemon) startIngest() error {
 	ingestMetrics := alerts.NewIngestMetrics(counterIDs(d.cfg))
-	d.ingest = collector.NewIngest(d.reg, storeSink{d.st, ingestMetrics, d.log}, collector.IngestOptions{Retention: d.cfg.RetentionOrDefault(), Now: d.now})
+	d.ingest = collector.NewIngest(d.reg, storeSink{d.st, ingestMetrics, d.log, &d.gate}, collector.IngestOptions{Retention: d.cfg.RetentionOrDefault(), Now: d.now})
 	d.ingest.OnReadings(d.alarms.observeReadings)
 	d.ingest.OnPressure(d.alarms.observePressure)
 	d.ingest.OnRejected(func(rj collector.Rejection) {
@@ -286,12 +300,17 @@ func (d *Daemon) startIngest() error {
 		alerts.NewZoneCollector(d.alarms.judge.Tracker()),
 		alerts.NewJudgeCollector(d.alarms.judge),
 		alerts.NewPressureCollector(alerts.SensorDPFunc(d.alarms.judge.LatestDP)),
-		alerts.NewAlarmCollector(d.alarms.judge, zoneIDs(d.cfg)),
+		alerts.NewAlarmCollector(d.alarms, zoneIDs(d.cfg)),
 		ingestMetrics,
 		alerts.NewNotifierCollector(d.alarms.disp),
 	)
 	d.api = api.New(api.Options{Site: d.cfg, Zones: d.alarms.judge, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
-		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now, Signatures: d.people})
+		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now, Signatures: d.people,
+		MaxRawRange: time.Duration(d.cfg.Queries.MaxRawRange), HeavyPerToken: d.cfg.Queries.HeavyPerToken})
+	d.gate.mu.Lock()
+	d.gate.onChange = d.api.SetWriteProblem
+	d.gate.mu.Unlock()
+	d.api.SetWriteProblem(d.gate.problem())
 	return nil
 }
 
@@ -351,7 +370,10 @@ func (d *Daemon) listen() error {
 // routes assembles the API and the pages behind the common middleware.
 func (d *Daemon) routes() http.Handler {
 	r := chi.NewRouter()
-	r.Use(httpx.Recoverer(d.log), httpx.RequestLog(d.log), d.people.web.Middleware)
+	r.Use(httpx.Recoverer(d.log), httpx.RequestLog(d.log), d.gate.middleware, d.people.web.Middleware)
+	if d.cfg.TLS.Enabled() {
+		r.Use(httpx.HSTS)
+	}
 	r.NotFound(func(w http.ResponseWriter, r *http.Request) {
 		httpx.WriteError(w, http.StatusNotFound, "no such endpoint: "+r.URL.Path)
 	})

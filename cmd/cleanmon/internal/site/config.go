@@ -48,9 +48,13 @@ type Config struct {
 	Alarms          alerts.AlarmsConfig `yaml:"alarms"`
 	Notifications   alerts.NotifyConfig `yaml:"notifications"`
 	TLS             access.TLSConfig    `yaml:"tls"`
+	Queries         QueriesConfig       `yaml:"queries"`
 	// AllowPlainHTTP permits serving without TLS on an address other than
 	// loopback (a closed instrument network behind its own protection).
 	AllowPlainHTTP bool `yaml:"allow_plain_http"`
+	// Audit and Ingest: the signed record and the ingest bounds (trust.go).
+	Audit  AuditConfig  `yaml:"audit"`
+	Ingest IngestConfig `yaml:"ingest"`
 	// TimeZone is the site's IANA time zone (UTC when empty): the pages
 	// show times and cut shifts in it. Shifts are the start times of the
 	// site's shifts ("06:00"), each running until the next.
@@ -540,11 +544,13 @@ func (d *nodeDecoder) check(c *Config) {
 		d.add("retention", "%s: must be positive", time.Duration(c.Retention))
 	}
 
+	d.checkQueries(c.Queries)
 	d.checkClock(c)
 	d.checkTokens(c.Access.Tokens)
 	d.checkPeople(c.Accounts, c.OIDC)
 	d.checkSections(c)
 	d.checkAcross(c)
+	d.checkTrust(c)
 	d.checkInstruments(c)
 }
 

@@ -45,7 +45,9 @@ func (s *Server) uiAccounts(w http.ResponseWriter, r *http.Request) {
 // the signed-in admin's name (or the admin token's).
 func (s *Server) uiAccountChange(w http.ResponseWriter, r *http.Request) {
 	var op AccountOp
-	if !httpx.DecodeStrict(w, r, 8<<10, &op, "op, name, full_name, role, reason") {
+	if !decodeBody(w, r, 8<<10, &op, func() map[string]string {
+		return map[string]string{"op": op.Op, "name": op.Name, "full_name": op.FullName, "role": op.Role, "reason": op.Reason}
+	}) {
 		return
 	}
 	id := httpx.IdentityOf(r)
@@ -150,7 +152,9 @@ type signReportRequest struct {
 // an approval by the person who signed it as performed is refused.
 func (s *Server) signReport(w http.ResponseWriter, r *http.Request) {
 	var req signReportRequest
-	if !httpx.DecodeStrict(w, r, 8<<10, &req, "zone, from, to, meaning, password") {
+	if !decodeBody(w, r, 8<<10, &req, func() map[string]string {
+		return map[string]string{"zone": req.Zone, "from": req.From, "to": req.To, "meaning": req.Meaning}
+	}) {
 		return
 	}
 	sess, ok := people.FromContext(r.Context())

@@ -4,7 +4,6 @@ import (
 	"fmt"
 	"maps"
 	"math"
-	"net"
 	"slices"
 	"sort"
 	"strconv"
@@ -35,7 +34,13 @@ import (
 //	  volume: {addr: 11, bits: 32, scale: 0.001}  # L
 //
 // A sensor maps pa (and optionally status) instead:
-// pa: {addr: 0, signed: true, scale: 0.1}.
+// pa: {addr: 0, signed: true, scale: 0.1}; an environment sensor maps
+// the channels of its kind: temperature_c: {addr: 0, signed: true,
+// scale: 0.01}, humidity_pct: {addr: 1, scale: 0.01}, velocity_m_s:
+// {addr: 2, scale: 0.001}.
+//
+// Address is host:port for Modbus TCP, or a serial device as an rtu://
+// URL (see [ParseModbusAddress]): rtu:///dev/ttyUSB0?baud=19200&parity=E&stop=1.
 //
 // Addresses are those on the wire, counted from 0 (a manual's register
 // 30001 or 40001 is addr 0). Registers of one type that follow each other
@@ -84,6 +89,14 @@ type ModbusSource struct {
 	// Pa (sensors, required) is the differential pressure in Pa after
 	// scale.
 	Pa *ModbusRegister `yaml:"pa"`
+
+	// TemperatureC, HumidityPct and VelocityMS (environment sensors) are
+	// the temperature in °C, the relative humidity in % and the airflow
+	// velocity in m/s after scale: each required when the sensor's kind
+	// reports it, refused otherwise.
+	TemperatureC *ModbusRegister `yaml:"temperature_c"`
+	HumidityPct  *ModbusRegister `yaml:"humidity_pct"`
+	VelocityMS   *ModbusRegister `yaml:"velocity_m_s"`
 }
 
 // ModbusRegister is one value in a device's registers.
@@ -170,6 +183,7 @@ type devicePlan struct {
 	status   *regField
 	statuses map[uint64]string
 	pa       *regField // sensors
+	env      map[string]*regField // environment sensors, by channel
 }
 
 // raw returns the field's unsigned value from the blocks read.
@@ -223,25 +237,26 @@ func validateModbusSensor(p string, s *Sensor, add func(string, string, ...any))
 	planModbus(p, s.Modbus, "sensor", nil, interval, add)
 }
 
+// validateModbusEnvironment checks the modbus section of environment
+// sensor e at path p.
+func validateModbusEnvironment(p string, e *EnvironmentSensorConfig, add func(string, string, ...any)) {
+	checkModbusAddress(p, e.Modbus.Address, add)
+	interval := e.Interval.D()
+	if interval == 0 {
+		interval = DefaultEnvironmentInterval
+	}
+	planModbus(p, e.Modbus, "environment", e.Channels(), interval, add)
+}
+
 func checkModbusAddress(p, addr string, add func(string, string, ...any)) {
-	if addr == "" {
-		add(p+".address", "missing: give host:port of the device, e.g. \"10.0.4.21:502\"")
-		return
-	}
-	host, port, err := net.SplitHostPort(addr)
-	if err != nil {
-		add(p+".address", "%q is not host:port: %v", addr, err)
-		return
-	}
-	if n, err := strconv.Atoi(port); err != nil || n < 1 || n > 65535 {
-		add(p+".address", "%q: the port must be a number 1–65535 (Modbus TCP usually listens on 502)", addr)
-	} else if host == "" {
-		add(p+".address", "%q: the host is missing", addr)
+	if _, err := ParseModbusAddress(addr); err != nil {
+		add(p+".address", "%s", err.Error())
 	}
 }
 
-// planModbus checks a register map for a counter (sizes its channels) or
-// a sensor and turns it into a plan. Problems go to add, with paths under
+// planModbus checks a register map for a counter (sizes its channels), a
+// DP sensor, or an environment sensor (sizes then lists the channels of
+// its kind) and turns it into a plan. Problems go to add, with paths under
 // p; the plan is nil when there were any.
 func planModbus(p string, src *ModbusSource, kind string, sizes []string, interval time.Duration, add func(string, string, ...any)) *devicePlan {
 	bad := false
@@ -358,7 +373,7 @@ func planModbus(p string, src *ModbusSource, kind string, sizes []string, interv
 	whole := opts{}
 	none := func(name string, present bool) {
 		if present {
-			addf(p+"."+name, "a %s has no %s register", kind, name)
+			addf(p+"."+name, "a %s has no %s register", kindNoun(kind), name)
 		}
 	}
 
@@ -411,11 +426,22 @@ func planModbus(p string, src *ModbusSource, kind string, sizes []string, interv
 		planChannels(p, src, sizes, plan, func(key string, r *ModbusRegister) *regField {
 			return reg("channels."+key, r, whole)
 		}, addf)
+		noEnv(none, src)
 	} else {
-		if src.Pa == nil {
+		if kind == "environment" {
+			planEnvironment(p, src, sizes, plan, func(name string, r *ModbusRegister, signed bool) *regField {
+				if signed {
+					return reg(name, r, num)
+				}
+				return reg(name, r, unsigned)
+			}, addf)
+			none("pa", src.Pa != nil)
+		} else if src.Pa == nil {
 			addf(p+".pa", "missing: give the register of the differential pressure")
+			noEnv(none, src)
 		} else {
 			plan.pa = reg("pa", src.Pa, num)
+			noEnv(none, src)
 		}
 		none("sample", src.Sample != nil)
 		none("time", src.Time != nil)
@@ -430,6 +456,41 @@ func planModbus(p string, src *ModbusSource, kind string, sizes []string, interv
 		return nil
 	}
 	return plan
+}
+
+// noEnv refuses environment registers on a counter or DP sensor.
+func noEnv(none func(string, bool), src *ModbusSource) {
+	none(ChanTemperature, src.TemperatureC != nil)
+	none(ChanHumidity, src.HumidityPct != nil)
+	none(ChanVelocity, src.VelocityMS != nil)
+}
+
+// planEnvironment resolves the registers of an environment sensor: one
+// for each channel of its kind, none for the others. Temperature may be
+// negative; humidity and velocity may not.
+func planEnvironment(p string, src *ModbusSource, chans []string, plan *devicePlan, reg func(string, *ModbusRegister, bool) *regField, addf func(string, string, ...any)) {
+	plan.env = make(map[string]*regField, len(chans))
+	for _, ch := range []string{ChanTemperature, ChanHumidity, ChanVelocity} {
+		var r *ModbusRegister
+		switch ch {
+		case ChanTemperature:
+			r = src.TemperatureC
+		case ChanHumidity:
+			r = src.HumidityPct
+		default:
+			r = src.VelocityMS
+		}
+		switch has := contains(chans, ch); {
+		case has && r == nil:
+			addf(p+"."+ch, "missing: give the register of %s", channelWords[ch])
+		case !has && r != nil:
+			addf(p+"."+ch, "the sensor's kind has no %s channel (it reports %s)", ch, strings.Join(chans, ", "))
+		case has:
+			if f := reg(ch, r, ch == ChanTemperature); f != nil {
+				plan.env[ch] = f
+			}
+		}
+	}
 }
 
 // planChannels resolves the channel registers against the counter's
@@ -555,4 +616,15 @@ func (f *regField) put(regs map[uint16]uint16, raw uint64) {
 		hi, lo = lo, hi
 	}
 	regs[f.addr], regs[f.addr+1] = hi, lo
+}
+
+// kindNoun names a device kind of planModbus for messages.
+func kindNoun(kind string) string {
+	switch kind {
+	case "sensor":
+		return "differential-pressure sensor"
+	case "environment":
+		return "environment sensor"
+	}
+	return kind
 }

@@ -48,6 +48,9 @@ type Registry struct {
 	sensors    map[string]*SensorInfo
 	counterIDs []string // sorted
 	sensorIDs  []string // sorted
+	env        map[string]*EnvironmentSensorInfo // set by WithEnvironment
+	envIDs     []string                          // sorted
+	envBounds  EnvironmentBounds                 // zero: the defaults
 }
 
 // NewRegistry validates the counters and sensors (without checking zone

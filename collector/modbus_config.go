@@ -182,7 +182,7 @@ type devicePlan struct {
 	secs     *regField
 	status   *regField
 	statuses map[uint64]string
-	pa       *regField // sensors
+	pa       *regField            // sensors
 	env      map[string]*regField // environment sensors, by channel
 }
 

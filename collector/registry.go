@@ -46,8 +46,8 @@ type SensorInfo struct {
 type Registry struct {
 	counters   map[string]*CounterInfo
 	sensors    map[string]*SensorInfo
-	counterIDs []string // sorted
-	sensorIDs  []string // sorted
+	counterIDs []string                          // sorted
+	sensorIDs  []string                          // sorted
 	env        map[string]*EnvironmentSensorInfo // set by WithEnvironment
 	envIDs     []string                          // sorted
 	envBounds  EnvironmentBounds                 // zero: the defaults

@@ -67,7 +67,7 @@ type SimOptions struct {
 // Batch is the simulated data of the half-open time window [From, To),
 // each slice ordered by time (ties by instrument id).
 type Batch struct {
-	From, To time.Time
+	From, To    time.Time
 	Readings    []RawReading
 	Pressure    []RawPressure
 	Environment []RawEnvironment

@@ -18,65 +18,111 @@ import (
 	"github.com/prometheus/client_golang/prometheus/testutil"
 )
 
-// startMosquitto runs a real broker (Debian mosquitto) on a free loopback
-// port with a throw-away configuration and returns its tcp:// URL; it is
-// killed at the end of the test. It skips when the binary is missing
-// unless CLEANMON_REQUIRE_TOOLS is set.
-func startMosquitto(t *testing.T) string {
+// mosquittoBin returns the mosquitto binary, or skips the test when it is
+// missing unless CLEANMON_REQUIRE_TOOLS is set.
+func mosquittoBin(t *testing.T) string {
 	t.Helper()
-	bin, err := exec.LookPath("mosquitto")
-	if err != nil {
-		for _, p := range []string{"/usr/sbin/mosquitto", "/usr/local/sbin/mosquitto"} {
-			if _, serr := os.Stat(p); serr == nil {
-				bin, err = p, nil
-				break
-			}
+	if bin, err := exec.LookPath("mosquitto"); err == nil {
+		return bin
+	}
+	for _, p := range []string{"/usr/sbin/mosquitto", "/usr/local/sbin/mosquitto"} {
+		if _, err := os.Stat(p); err == nil {
+			return p
 		}
 	}
-	if err != nil {
-		if os.Getenv("CLEANMON_REQUIRE_TOOLS") != "" {
-			t.Fatal("mosquitto not found (Debian: mosquitto) and CLEANMON_REQUIRE_TOOLS is set")
-		}
-		t.Skip("mosquitto not found (apt-get install mosquitto)")
+	if os.Getenv("CLEANMON_REQUIRE_TOOLS") != "" {
+		t.Fatal("mosquitto not found (Debian: mosquitto) and CLEANMON_REQUIRE_TOOLS is set")
 	}
+	t.Skip("mosquitto not found (apt-get install mosquitto)")
+	return ""
+}
+
+// broker is a real mosquitto on a loopback port, with a throw-away
+// configuration; it can be killed and started again on the same port.
+type broker struct {
+	t    *testing.T
+	bin  string
+	conf string
+	addr string // 127.0.0.1:port
+	cmd  *exec.Cmd
+	out  *strings.Builder
+}
+
+// newBroker writes the configuration (a listener on a free port, plus
+// extra lines) and starts the broker; it is killed at the end of the test.
+func newBroker(t *testing.T, extra string) *broker {
+	t.Helper()
+	b := &broker{t: t, bin: mosquittoBin(t)}
 	l, err := net.Listen("tcp", "127.0.0.1:0")
 	if err != nil {
 		t.Fatal(err)
 	}
-	port := l.Addr().(*net.TCPAddr).Port
+	b.addr = l.Addr().String()
 	l.Close()
-	dir := t.TempDir()
-	conf := filepath.Join(dir, "mosquitto.conf")
-	body := fmt.Sprintf("listener %d 127.0.0.1\nallow_anonymous true\npersistence false\n", port)
-	if err := os.WriteFile(conf, []byte(body), 0o600); err != nil {
+	b.conf = filepath.Join(t.TempDir(), "mosquitto.conf")
+	body := fmt.Sprintf("listener %d 127.0.0.1\npersistence false\n%s", l.Addr().(*net.TCPAddr).Port, extra)
+	if !strings.Contains(extra, "allow_anonymous") {
+		body += "allow_anonymous true\n"
+	}
+	if os.Geteuid() == 0 {
+		// Started as root, mosquitto would switch to its own user, which
+		// cannot read the test's private temporary directory.
+		body += "user root\n"
+	}
+	if err := os.WriteFile(b.conf, []byte(body), 0o600); err != nil {
 		t.Fatal(err)
 	}
-	cmd := exec.Command(bin, "-c", conf)
-	var out strings.Builder
-	cmd.Stdout, cmd.Stderr = &out, &out
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
+	b.start()
+	t.Cleanup(b.kill)
+	return b
+}
+
+func (b *broker) start() {
+	b.t.Helper()
+	b.out = &strings.Builder{}
+	b.cmd = exec.Command(b.bin, "-c", b.conf)
+	b.cmd.Stdout, b.cmd.Stderr = b.out, b.out
+	if err := b.cmd.Start(); err != nil {
+		b.t.Fatal(err)
 	}
-	t.Cleanup(func() { cmd.Process.Kill(); cmd.Wait() })
-	addr := fmt.Sprintf("127.0.0.1:%d", port)
 	deadline := time.Now().Add(10 * time.Second)
 	for {
-		c, err := net.DialTimeout("tcp", addr, 200*time.Millisecond)
+		c, err := net.DialTimeout("tcp", b.addr, 200*time.Millisecond)
 		if err == nil {
 			c.Close()
-			return "tcp://" + addr
+			return
 		}
 		if time.Now().After(deadline) {
-			t.Fatalf("mosquitto did not listen on %s within 10 s: %s", addr, out.String())
+			b.t.Fatalf("mosquitto did not listen on %s within 10 s: %s", b.addr, b.out.String())
 		}
 		time.Sleep(50 * time.Millisecond)
 	}
 }
 
+// kill stops the broker at once, as a crash would.
+func (b *broker) kill() {
+	if b.cmd != nil {
+		b.cmd.Process.Kill()
+		b.cmd.Wait()
+		b.cmd = nil
+	}
+}
+
+// startMosquitto runs a plain broker and returns its tcp:// URL.
+func startMosquitto(t *testing.T) string {
+	t.Helper()
+	return "tcp://" + newBroker(t, "").addr
+}
+
 // publisher connects a plain client that publishes at QoS 1.
 func publisher(t *testing.T, broker string) func(topic, payload string) {
 	t.Helper()
-	c := mqtt.NewClient(mqtt.NewClientOptions().AddBroker(broker).SetClientID("test-publisher").SetCleanSession(true))
+	return publisherWith(t, mqtt.NewClientOptions().AddBroker(broker))
+}
+
+func publisherWith(t *testing.T, o *mqtt.ClientOptions) func(topic, payload string) {
+	t.Helper()
+	c := mqtt.NewClient(o.SetClientID("test-publisher").SetCleanSession(true))
 	if tok := c.Connect(); !tok.WaitTimeout(10*time.Second) || tok.Error() != nil {
 		t.Fatalf("publisher: %v", tok.Error())
 	}

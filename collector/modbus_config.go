@@ -13,9 +13,9 @@ import (
 	"cleanmon/classify"
 )
 
-// ModbusSource says where and how the poller reads one counter or DP
-// sensor over Modbus TCP: the yaml key "modbus" of a counter or sensor
-// whose source is modbus. The register map is the project's own schema:
+// ModbusSource says where and how the poller reads one counter, DP or
+// environment sensor over Modbus TCP or RTU: the yaml key "modbus" of an
+// instrument whose source is modbus. The register map is the project's own schema:
 //
 //	modbus:
 //	  address: "10.0.4.21:502"    # host:port of the instrument or gateway
@@ -47,7 +47,10 @@ import (
 // without a gap are read in one request, so a sample's channels are read
 // together; keep a counter's registers contiguous for that.
 type ModbusSource struct {
-	// Address is host:port of the instrument or of its gateway.
+	// Address is host:port of the instrument or of its gateway (Modbus
+	// TCP), or its serial line as rtu:///dev/ttyUSB0?baud=19200&parity=even&stop=1
+	// (Modbus RTU; see [ParseModbusAddress]). Units on one line share it
+	// in turn and must agree on its settings.
 	Address string `yaml:"address"`
 	// Unit is the unit identifier (0–255) the device answers to; default 1.
 	Unit *int `yaml:"unit"`

@@ -151,9 +151,12 @@ func ValidateMQTT(c *MQTTConfig, reg *Registry) []FieldError {
 	if c.QoS != nil && *c.QoS != 1 {
 		add(p+".qos", "%d: only QoS 1 is accepted (0 may lose messages; duplicates are dropped, so 2 adds nothing)", *c.QoS)
 	}
-	for name, d := range map[string]Duration{"keep_alive": c.KeepAlive, "connect_timeout": c.ConnectTimeout, "max_backoff": c.MaxBackoff} {
-		if d < 0 {
-			add(p+"."+name, "must not be negative")
+	for _, d := range []struct {
+		name string
+		d    Duration
+	}{{"keep_alive", c.KeepAlive}, {"connect_timeout", c.ConnectTimeout}, {"max_backoff", c.MaxBackoff}} {
+		if d.d < 0 {
+			add(p+"."+d.name, "must not be negative")
 		}
 	}
 	if len(c.Topics) == 0 {

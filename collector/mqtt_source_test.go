@@ -4,11 +4,13 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"log/slog"
 	"net"
 	"os"
 	"os/exec"
 	"path/filepath"
 	"strings"
+	"sync"
 	"sync/atomic"
 	"testing"
 	"time"
@@ -183,6 +185,24 @@ func (r *mqttRig) SubmitEnvironment(ctx context.Context, raws []RawEnvironment) 
 	return r.env.SubmitEnvironment(ctx, raws)
 }
 
+// syncBuffer is a log sink the source's goroutines may write to.
+type syncBuffer struct {
+	mu sync.Mutex
+	b  strings.Builder
+}
+
+func (s *syncBuffer) Write(p []byte) (int, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.Write(p)
+}
+
+func (s *syncBuffer) String() string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.String()
+}
+
 func demoMQTT(broker, client string) MQTTConfig {
 	return MQTTConfig{
 		Broker: broker, ClientID: client,
@@ -219,7 +239,9 @@ func reading(counter string, minute int) string {
 func TestMQTTSourcePublishStoredOnce(t *testing.T) {
 	broker := startMosquitto(t)
 	rig, prom := newMQTTRig(t), prometheus.NewRegistry()
-	src, err := NewMQTTSource(demoMQTT(broker, "cleanmon-test-1"), demoEnvRegistry(t), rig, MQTTOptions{Metrics: prom, MinBackoff: 50 * time.Millisecond})
+	logs := &syncBuffer{}
+	src, err := NewMQTTSource(demoMQTT(broker, "cleanmon-test-1"), demoEnvRegistry(t), rig, MQTTOptions{Metrics: prom, MinBackoff: 50 * time.Millisecond,
+		Logger: slog.New(slog.NewTextHandler(logs, nil))})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -231,6 +253,7 @@ func TestMQTTSourcePublishStoredOnce(t *testing.T) {
 	pub("building-c/readings/pc-hood", `{"counter":"pc-hood","time":"2026-03-02T09:01:00Z","volume_l":28.3,"counts":{"0.3":1200,"0.5":310,"5":2},"colour":"red"}`)
 	pub("building-c/hood/velocity", `{"v":0.44,"ts":1772442000,"rssi":-61}`) // 2026-03-02T09:00:00Z
 	pub("building-c/asm/th", `{"time":"2026-03-02T09:00:00Z","temperature_c":21.1,"humidity_pct":44}`)
+	pub("building-c/dp", `[{"sensor":"dp-hood-asm","time":"2026-03-02T09:00:00Z","pa":11.8},{"sensor":"dp-asm-gown","time":"2026-03-02T09:00:00Z","pa":14.1}]`)
 	pub("building-c/readings/pc-hood", reading("pc-hood", 2))
 	pub("building-c/readings/pc-hood", reading("pc-hood", 2)) // the sender's retry
 	waitFor(t, 10*time.Second, "3 messages stored", func() bool {
@@ -248,6 +271,12 @@ func TestMQTTSourcePublishStoredOnce(t *testing.T) {
 	rig.esink.mu.Unlock()
 	if !ok || !e.HasVelocity || e.VelocityMS != 0.44 || e.Zone != "coating-hood" {
 		t.Errorf("flat av-hood sample %+v (found %v), want 0.44 m/s at 09:00", e, ok)
+	}
+	if _, np := rig.sink.stored(); np != 2 {
+		t.Errorf("%d DP samples stored, want 2", np)
+	}
+	if l := logs.String(); !strings.Contains(l, "topic=building-c/readings/pc-hood") || !strings.Contains(l, "field=colour") {
+		t.Errorf("the rejected payload is not logged with its topic and field:\n%s", l)
 	}
 	for res, want := range map[string]float64{MQTTStored: 2, MQTTRejected: 1, MQTTDuplicate: 1, MQTTCommitFail: 0} {
 		if got := testutil.ToFloat64(src.metrics.messages.WithLabelValues("building-c/readings/+", res)); got != want {

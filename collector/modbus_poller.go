@@ -124,10 +124,11 @@ const DefaultMaxConns = 32
 // ErrModbus wraps failures of the Modbus poller's set-up.
 var ErrModbus = errors.New("collector: modbus")
 
-// Poller reads every counter and DP sensor of a registry whose source is
-// modbus and submits what it reads through the same [Submitter] (an
-// [*Ingest]) as pushed readings, so the same validation, store and alarm
-// path applies.
+// Poller reads every counter, DP and environment sensor of a registry
+// whose source is modbus, over Modbus TCP or RTU, and submits what it
+// reads through the same [Submitter] (an [*Ingest]) and
+// [EnvironmentSubmitter] as pushed data, so the same validation, store and
+// alarm path applies.
 //
 // Each device has its own goroutine, so a slow or dead device delays no
 // other; a semaphore bounds the open connections. A counter is read only
@@ -167,9 +168,10 @@ type device struct {
 }
 
 // NewPoller prepares polling of every counter and sensor in reg whose
-// source is modbus; submit receives the readings. It fails, wrapping
-// ErrModbus, when a register map does not compile or the metrics cannot be
-// registered.
+// source is modbus; submit receives the readings and DP samples,
+// opt.Environment the environment samples. It fails, wrapping ErrModbus,
+// when a register map or address does not compile, devices on one serial
+// line disagree on its settings, or the metrics cannot be registered.
 func NewPoller(reg *Registry, submit Submitter, opt PollerOptions) (*Poller, error) {
 	if opt.Now == nil {
 		opt.Now = time.Now

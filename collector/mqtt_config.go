@@ -48,7 +48,9 @@ const (
 //
 // Messages are taken at QoS 1 in a persistent session, and acknowledged
 // to the broker only once stored: a daemon that dies before the commit
-// gets the message again.
+// gets the message again. Publishers must publish at QoS 1 too: a broker
+// delivers at the lower of the publisher's and the subscriber's level, and
+// a QoS 0 message is gone once sent.
 type MQTTConfig struct {
 	// Broker is the broker's URL: tcp://host:1883, or ssl://host:8883
 	// (also tls://, mqtts://) for TLS; ws:// and wss:// work too.

@@ -257,3 +257,22 @@ func TestDecodeEnvironment(t *testing.T) {
 		t.Fatalf("error %v, want element 1, temperature_c", err)
 	}
 }
+
+// A band open on one side judges that side only.
+func TestEnvironmentJudgeOneSided(t *testing.T) {
+	e := EnvironmentSensorConfig{ID: "th-x", Zone: "assembly", Kind: EnvHumidity,
+		HumidityPct: &EnvironmentLimits{Alert: &EnvironmentBand{High: f64(55)}, Action: &EnvironmentBand{High: f64(60)}}}
+	if errs := ValidateEnvironmentSensors([]EnvironmentSensorConfig{e}, nil, nil, EnvironmentBounds{}); len(errs) > 0 {
+		t.Fatalf("refused: %v", errs)
+	}
+	for v, want := range map[float64]string{0: "", 55: "", 56: "alert", 60: "alert", 61: "action"} {
+		if got := e.Judge(ChanHumidity, v); got != want {
+			t.Errorf("%g %%: %q, want %q", v, got, want)
+		}
+	}
+	// An action band with a low side needs the alert band to have one too.
+	e.HumidityPct.Action.Low = f64(30)
+	if errs := ValidateEnvironmentSensors([]EnvironmentSensorConfig{e}, nil, nil, EnvironmentBounds{}); len(errs) != 1 || errs[0].Path != "environment[0].humidity_pct.alert.low" {
+		t.Errorf("got %v", errs)
+	}
+}

@@ -435,3 +435,18 @@ func TestDecodeFlatPayload(t *testing.T) {
 		}
 	}
 }
+
+// Our own JSON on a topic that names its instrument: an element without
+// an id is the topic's, one naming another instrument is refused.
+func TestDecodeOwnJSONOnInstrumentTopic(t *testing.T) {
+	reg := demoEnvRegistry(t)
+	top := resolveTopic("t", MQTTTopic{Topic: "x", Counter: "pc-hood"}, reg, func(string, string, ...any) {})
+	b, ie := decodePayload(&top, []byte(`[{"time":"2026-03-02T09:00:00Z","volume_l":28.3,"counts":{"0.3":5,"0.5":2,"5":0}},{"counter":"pc-hood","time":"2026-03-02T09:01:00Z","volume_l":28.3,"counts":{"0.3":7,"0.5":3,"5":1}}]`), reg)
+	if ie != nil || len(b.readings) != 2 || b.readings[0].Counter != "pc-hood" || b.readings[0].Counts["0.3"].N != 5 || b.readings[1].Counts["0.3"].N != 7 {
+		t.Fatalf("%+v %v", b.readings, ie)
+	}
+	_, ie = decodePayload(&top, []byte(`[{"time":"t"},{"counter":"pc-met","time":"t"}]`), reg)
+	if ie == nil || ie.Index != 1 || ie.Field != "counter" {
+		t.Fatalf("%v, want element 1, counter", ie)
+	}
+}

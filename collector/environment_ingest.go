@@ -197,3 +197,16 @@ func (in *EnvironmentIngest) rejected(id string, err error) {
 		f(Rejection{Kind: "environment", ID: id, Err: err})
 	}
 }
+
+// Ingests joins the ingest of readings and DP samples with the ingest of
+// environment samples, so that one value takes all three kinds: what the
+// MQTT source and the Modbus poller are handed.
+type Ingests struct {
+	*Ingest
+	Environment *EnvironmentIngest
+}
+
+// SubmitEnvironment passes raws to the environment ingest.
+func (i Ingests) SubmitEnvironment(ctx context.Context, raws []RawEnvironment) (Result, error) {
+	return i.Environment.SubmitEnvironment(ctx, raws)
+}

@@ -276,3 +276,15 @@ func TestEnvironmentJudgeOneSided(t *testing.T) {
 		t.Errorf("got %v", errs)
 	}
 }
+
+// Ingests takes all three kinds, each to its own ingest.
+func TestIngestsJoinsTheKinds(t *testing.T) {
+	var sink MQTTSink = Ingests{Ingest: newTestIngest(t, newMemSink(), IngestOptions{}), Environment: NewEnvironmentIngest(demoEnvRegistry(t), newMemEnvSink(), IngestOptions{Now: func() time.Time { return testNow }})}
+	res, err := sink.SubmitEnvironment(context.Background(), []RawEnvironment{{Sensor: "av-hood", Time: "2026-03-02T10:00:00Z", VelocityMS: f64(0.5)}})
+	if err != nil || res.Accepted != 1 {
+		t.Fatalf("%+v %v", res, err)
+	}
+	if _, err := sink.SubmitPressure(context.Background(), []RawPressure{{Sensor: "dp-asm-gown", Time: "2026-03-02T10:00:00Z", Pa: f64(12)}}); err != nil {
+		t.Fatal(err)
+	}
+}

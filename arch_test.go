@@ -11,11 +11,12 @@ import (
 	"testing"
 )
 
-// The dependency direction of DESIGN.md §2: cmd → {collector, store,
-// alerts} → classify. classify imports no project package; the three
-// middle packages import none of each other (they meet through small
-// interfaces that their consumers define, wired in cmd); nothing imports
-// cmd. gonum is an outside reference for tests only.
+// The dependency direction of the project (DEVELOPERS.md, "Layout"):
+// cmd → {collector, store, alerts} → classify. classify imports no project
+// package; the three middle packages import none of each other (they meet
+// through small interfaces that their consumers define, wired in the
+// daemon); nothing outside cmd imports cmd. gonum is an outside reference
+// for tests only.
 var allowed = map[string][]string{
 	"classify":  {},
 	"collector": {"cleanmon/classify"},
@@ -23,7 +24,7 @@ var allowed = map[string][]string{
 	"alerts":    {"cleanmon/classify"},
 }
 
-// Top-level entries the layout allows (DESIGN.md §2: add files, not
+// Top-level entries the layout allows (add packages below them, not
 // top-level folders).
 var topLevel = map[string]bool{
 	"cmd": true, "classify": true, "collector": true, "store": true, "alerts": true,
@@ -49,10 +50,10 @@ func TestDependencyDirection(t *testing.T) {
 		if err != nil {
 			return err
 		}
-		top := strings.SplitN(filepath.ToSlash(path), "/", 2)[0]
+		dir := filepath.ToSlash(filepath.Dir(path))
 		for _, im := range f.Imports {
 			p, _ := strconv.Unquote(im.Path.Value)
-			if msg := violation(top, strings.HasSuffix(path, "_test.go"), p); msg != "" {
+			if msg := violation(dir, strings.HasSuffix(path, "_test.go"), p); msg != "" {
 				t.Errorf("%s imports %s: %s", path, p, msg)
 			}
 		}
@@ -63,11 +64,29 @@ func TestDependencyDirection(t *testing.T) {
 	}
 }
 
-// violation says why a file under the top-level folder top may not import
-// p, or "" when it may.
-func violation(top string, isTest bool, p string) string {
-	if strings.HasPrefix(p, "cleanmon/cmd") {
-		return "nothing may import the binary"
+// The daemon's own packages, below cmd/cleanmon/internal: api and web are
+// mounted by the daemon (and the serve command) only, and never reach
+// into each other; report and httpx are leaves that know no project
+// package but classify.
+const internal = "cmd/cleanmon/internal/"
+
+var (
+	onlyImportedBy = map[string][]string{
+		internal + "api": {"cmd/cleanmon", internal + "daemon"},
+		internal + "web": {"cmd/cleanmon", internal + "daemon"},
+	}
+	leaves = map[string]bool{internal + "report": true, internal + "httpx": true}
+)
+
+// violation says why a file in the directory dir may not import p, or ""
+// when it may.
+func violation(dir string, isTest bool, p string) string {
+	top := strings.SplitN(dir, "/", 2)[0]
+	if strings.HasPrefix(p, "cleanmon/cmd") && top != "cmd" {
+		return "nothing outside cmd may import the binary's packages"
+	}
+	if msg := internalViolation(dir, p); msg != "" {
+		return msg
 	}
 	if strings.HasPrefix(p, "gonum.org/") && !isTest {
 		return "gonum is a test-only reference"
@@ -84,6 +103,26 @@ func violation(top string, isTest bool, p string) string {
 	return top + " may import only " + strings.Join(rules, ", ") + " of the project"
 }
 
+// internalViolation applies the rules of the daemon's own packages.
+func internalViolation(dir, p string) string {
+	pkg, ok := strings.CutPrefix(p, "cleanmon/")
+	if !ok || pkg == dir {
+		return ""
+	}
+	if leaves[dir] && pkg != "classify" {
+		return dir + " may import no project package but classify"
+	}
+	if users, ok := onlyImportedBy[pkg]; ok {
+		for _, u := range users {
+			if dir == u {
+				return ""
+			}
+		}
+		return pkg + " is mounted only by " + strings.Join(users, " and ")
+	}
+	return ""
+}
+
 func TestTopLevelLayout(t *testing.T) {
 	entries, err := os.ReadDir(".")
 	if err != nil {
@@ -91,7 +130,7 @@ func TestTopLevelLayout(t *testing.T) {
 	}
 	for _, e := range entries {
 		if e.IsDir() && !topLevel[e.Name()] {
-			t.Errorf("top-level folder %s is not in the layout of DESIGN.md §2", e.Name())
+			t.Errorf("top-level folder %s is not in the layout", e.Name())
 		}
 	}
 }
@@ -108,10 +147,20 @@ func TestDependencyRuleBites(t *testing.T) {
 		{"store", "cleanmon/alerts", false, true},
 		{"alerts", "cleanmon/store", false, true},
 		{"collector", "cleanmon/cmd/cleanmon", false, true},
+		{"store", "cleanmon/cmd/cleanmon/internal/httpx", false, true},
+		{"cmd/cleanmon", "cleanmon/cmd/cleanmon/internal/api", false, false},
+		{"cmd/cleanmon/internal/daemon", "cleanmon/cmd/cleanmon/internal/web", false, false},
+		{"cmd/cleanmon/internal/web", "cleanmon/cmd/cleanmon/internal/api", false, true},
+		{"cmd/cleanmon/internal/api", "cleanmon/cmd/cleanmon/internal/web", false, true},
+		{"cmd/cleanmon/internal/site", "cleanmon/cmd/cleanmon/internal/api", true, true},
+		{"cmd/cleanmon/internal/report", "cleanmon/store", false, true},
+		{"cmd/cleanmon/internal/report", "cleanmon/classify", false, false},
+		{"cmd/cleanmon/internal/httpx", "cleanmon/cmd/cleanmon/internal/access", false, true},
+		{"cmd/cleanmon/internal/api", "cleanmon/cmd/cleanmon/internal/httpx", false, false},
 		{"classify", "gonum.org/v1/gonum/stat", false, true},
 		{"classify", "gonum.org/v1/gonum/stat", true, false},
 		{"store", "cleanmon/classify", false, false},
-		{"cmd", "cleanmon/store", false, false},
+		{"cmd/cleanmon", "cleanmon/store", false, false},
 		{"alerts", "go.etcd.io/bbolt", false, false},
 	} {
 		if got := violation(tc.top, tc.test, tc.imp) != ""; got != tc.bad {

@@ -24,11 +24,13 @@ const (
 	LevelAction = "action"
 )
 
-// Alarm states. An alarm moves pending (its delay running) → active →
+// Alarm states. An alarm moves delayed (its delay running) → active →
 // acknowledged → cleared; a latched alarm whose condition has gone stays
-// active (or acknowledged) until someone acknowledges it.
+// active until someone acknowledges it. A delayed alarm lives in memory
+// only: a condition that goes before its delay ends (a door opened and
+// shut) leaves no record, and is counted instead.
 const (
-	StatePending      = "pending"
+	StateDelayed      = "delayed"
 	StateActive       = "active"
 	StateAcknowledged = "acknowledged"
 	StateCleared      = "cleared"
@@ -47,7 +49,7 @@ type Alarm struct {
 	Counter  string   `json:"counter,omitempty"`
 	Sensor   string   `json:"sensor,omitempty"`
 	SizeUM   *float64 `json:"size_um,omitempty"`
-	// Since is when the condition was first seen (the start of pending).
+	// Since is when the condition was first seen (the start of the delay).
 	Since       time.Time  `json:"since"`
 	ActiveSince *time.Time `json:"active_since,omitempty"`
 	// ConditionGone is set when the condition has cleared but the alarm is
@@ -64,7 +66,12 @@ type Alarm struct {
 	Value     float64 `json:"value"`
 	Threshold float64 `json:"threshold"`
 	Unit      string  `json:"unit"`
-	Message   string  `json:"message"`
+	// Peak is the worst value seen during the episode (the highest
+	// concentration, the lowest DP, the longest silence) and PeakTime when
+	// it was seen.
+	Peak     float64   `json:"peak"`
+	PeakTime time.Time `json:"peak_time"`
+	Message  string    `json:"message"`
 	// Updated is the time of the last transition.
 	Updated time.Time `json:"updated"`
 }
@@ -117,4 +124,19 @@ type Outbox interface {
 	Done(ctx context.Context, id uint64) error
 	// Retry records a failed attempt and when to try again.
 	Retry(ctx context.Context, id uint64, attempts int, next time.Time, lastErr string) error
+}
+
+// ValueText is the alarm's value as a person reads it, with its unit and
+// what it was compared with: "-3.5 Pa (threshold 8 Pa)", "420000
+// particles/m³ (threshold 250000 particles/m³)". Empty when the alarm has
+// no measured value.
+func (a Alarm) ValueText() string {
+	if a.Unit == "" {
+		return ""
+	}
+	v := num(a.Value) + " " + a.Unit + " (threshold " + num(a.Threshold) + " " + a.Unit + ")"
+	if !a.PeakTime.IsZero() && a.Peak != a.Value {
+		v += "; peak " + num(a.Peak) + " " + a.Unit + " at " + a.PeakTime.UTC().Format(time.RFC3339)
+	}
+	return v
 }

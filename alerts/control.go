@@ -9,13 +9,14 @@ import "math"
 // variance equals its mean, so the 3-sigma upper control limit is
 // c̄ + 3√c̄. Real counts are often more scattered than Poisson (bursts from
 // people and machines), so a single sample above the UCL is frequent and is
-// not alarmed by itself: the engine's trend rule is the run rule, TrendRun
-// samples in a row above the centre line, which a steady background rarely
-// makes (for a symmetric spread about (1/2)^8 ≈ 0.4 % per sample for a run of
-// 8) and a slow drift soon does. The baseline of each sample is the
-// TrendBaseline samples before the current run, so the run itself does not
-// lift its own centre line; a lasting shift is taken into the baseline
-// after about TrendBaseline samples and the trend alarm then clears.
+// not alarmed by itself. Nor is a run on one side of the centre line: a
+// cleanroom's background wanders slowly (each minute's count is strongly
+// correlated with the last), so such runs come every hour or so. The
+// engine's trend rule is a steady rise, TrendRun samples each higher than
+// the one before, ending above the centre line plus twice the baseline's
+// spread and at least halfway to the lowest level. The baseline of each
+// sample is the TrendBaseline samples before the current rise, so the rise
+// itself does not lift its own centre line.
 type ControlLimits struct {
 	// Samples is how many counts the limits rest on, Skipped how many
 	// values were no counts (negative, NaN or infinite). With no samples

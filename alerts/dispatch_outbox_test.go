@@ -168,7 +168,7 @@ func ntAlarm(id, state string) Alarm {
 		Since: ntT0, Value: 120000, Threshold: 100000, Unit: "particles/m³",
 		Message: "0.5 µm at pc-asm-1 above the alert level", Updated: ntT0,
 	}
-	if state != StatePending {
+	if state != StateDelayed {
 		a.ActiveSince = &active
 	}
 	return a
@@ -181,7 +181,7 @@ func ntTransitions(n int) []Transition {
 		id := fmt.Sprintf("alm-%d", i+1)
 		out[i] = Transition{
 			Key: fmt.Sprintf("%s/1/%s", id, StateActive), AlarmID: id,
-			Time: ntT0.Add(time.Duration(i) * time.Second), From: StatePending, To: StateActive,
+			Time: ntT0.Add(time.Duration(i) * time.Second), From: StateDelayed, To: StateActive,
 			Alarm: ntAlarm(id, StateActive),
 		}
 	}

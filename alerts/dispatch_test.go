@@ -13,6 +13,8 @@ import (
 	"sync/atomic"
 	"testing"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 func TestBackoffGrowsAndCaps(t *testing.T) {
@@ -107,7 +109,7 @@ func TestDispatcherLostAnswerIsDeduplicated(t *testing.T) {
 	rcv.stallFirstAccept = true
 	srv := httptest.NewServer(rcv)
 	defer srv.Close()
-	hook, err := NewWebhook(WebhookConfig{Name: "facilities", URL: srv.URL, Secret: "k", Timeout: Duration(100 * time.Millisecond)}, nil)
+	hook, err := NewWebhook(WebhookConfig{Name: "facilities", URL: srv.URL, Secret: "k", Timeout: model.Duration(100 * time.Millisecond)}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -249,7 +251,7 @@ func TestDeadReceiverDelaysNoOther(t *testing.T) {
 	live := httptest.NewServer(rcv)
 	defer live.Close()
 
-	deadHook, _ := NewWebhook(WebhookConfig{Name: "pager", URL: dead.URL, Secret: "k1", Timeout: Duration(time.Hour)}, nil)
+	deadHook, _ := NewWebhook(WebhookConfig{Name: "pager", URL: dead.URL, Secret: "k1", Timeout: model.Duration(time.Hour)}, nil)
 	liveHook, _ := NewWebhook(WebhookConfig{Name: "facilities", URL: live.URL, Secret: "k2"}, nil)
 	ob := newNtOutbox()
 	ts := ntTransitions(3)
@@ -261,6 +263,11 @@ func TestDeadReceiverDelaysNoOther(t *testing.T) {
 	ntWaitFor(t, 10*time.Second, "the live receiver to get all three", func() bool {
 		_, _, _, order, _ := rcv.snapshot()
 		return len(order) == 3
+	})
+	// The receiver records a delivery before it answers: the dispatcher
+	// counts it once the answer is in.
+	ntWaitFor(t, 10*time.Second, "the live notifier to count all three", func() bool {
+		return d.Health()["facilities"].Delivered == 3
 	})
 	if n := hung.Load(); n != 1 {
 		t.Errorf("dead receiver saw %d requests, want the one still hanging", n)

@@ -11,6 +11,8 @@ import (
 	"sync"
 	"testing"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // memJournal is an in-memory Journal: it keeps every transition with the
@@ -130,7 +132,7 @@ func ptrf(v float64) *float64 { return &v }
 func engineZones() []ZoneConfig {
 	return []ZoneConfig{
 		{ID: "assembly", Name: "Assembly hall", Class: ptrf(7), OperatingState: InOperation, AreaM2: 60,
-			Sizes: []string{"0.5", "5"}, Window: Duration(10 * time.Minute), StaleAfter: Duration(3 * time.Minute),
+			Sizes: []string{"0.5", "5"}, Window: model.Duration(10 * time.Minute), StaleAfter: model.Duration(3 * time.Minute),
 			Levels: map[string]Levels{
 				"0.5": {Alert: ptrf(100000), Action: ptrf(250000)},
 				"5":   {Alert: ptrf(1000), Action: ptrf(2000)},
@@ -355,11 +357,11 @@ func TestJournalFailureLeavesEngineAsBefore(t *testing.T) {
 	t.Run("announced part fails after the quiet part", func(t *testing.T) {
 		h := newHarness(t, nil)
 		h.pressure("dp-asm", 12)
-		// -2 Pa makes a pending pressure-low (quiet) and a reversal
-		// (announced) in one call; fail the second journal call.
+		// -2 Pa makes a delayed pressure-low (memory only) and a reversal
+		// (announced) in one call; fail the journal call.
 		calls := h.j.calls
 		h.j.failCall = func(call int, ts []Transition) error {
-			if call == calls+2 {
+			if call == calls+1 {
 				return errDisk
 			}
 			return nil
@@ -376,7 +378,7 @@ func TestJournalFailureLeavesEngineAsBefore(t *testing.T) {
 		if err := h.e.ObservePressure(context.Background(), []PressureObservation{{Sensor: "dp-asm", Time: h.clk.Now(), Pa: -2}}); err != nil {
 			t.Fatal(err)
 		}
-		if h.one(KindPressureReversal).State != StateActive || h.one(KindPressureLow).State != StatePending {
+		if h.one(KindPressureReversal).State != StateActive || h.one(KindPressureLow).State != StateDelayed {
 			t.Fatalf("after retry: %+v", h.e.Alarms(false))
 		}
 	})
@@ -462,7 +464,7 @@ func TestConcurrentUse(t *testing.T) {
 		defer wg.Done()
 		for range 200 {
 			for _, a := range h.e.Alarms(false) {
-				_, err := h.e.Ack(ctx, a.ID, "night shift", "")
+				_, err := h.e.Ack(ctx, a.ID, "night shift", "seen")
 				if err != nil && !errors.Is(err, ErrAlreadyAcked) && !errors.Is(err, ErrAlarmPending) && !errors.Is(err, ErrAlarmCleared) && !errors.Is(err, ErrNoAlarm) {
 					errs <- err
 					return

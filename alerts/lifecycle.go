@@ -3,6 +3,7 @@ package alerts
 import (
 	"context"
 	"fmt"
+	"math"
 	"strconv"
 	"strings"
 	"time"
@@ -12,20 +13,26 @@ import (
 // The alarm lifecycle.
 //
 // One condition (a kind on one subject: a location and size, a counter, a
-// sensor) has at most one open alarm. Its ID is the condition key and the
-// time the episode began, e.g.
+// sensor) has at most one open alarm whose condition is present. Its ID is
+// the condition key and the time the episode began, e.g.
 // "assembly:asm-1:0.5:excursion:20260302T100000Z" or
 // "assembly:dp-asm:pressure-low:20260302T101500Z"; ':' separates the parts
-// so that an ID is a single segment of an API path. When the condition comes
-// back after the alarm cleared, a new episode gets a new ID.
+// so that an ID is a single segment of an API path. Each return of the
+// condition after it went is a new episode with a new ID, also while the
+// alarm of the earlier episode waits for its acknowledgement.
 //
-//	""      → pending       condition seen, its delay running (quiet)
-//	""      → active        condition seen, no delay
-//	pending → active        the delay ran out with the condition still there
-//	pending → cleared       the condition went before the delay ran out (quiet)
+//	""      → delayed       condition seen, its delay running: in memory
+//	                        only, never journaled
+//	""      → active        condition seen, no delay, or a delayed one whose
+//	                        delay ran out with the condition still there
+//	delayed → (nothing)     the condition went before the delay ran out: no
+//	                        record; a pressure-low dip is counted as a door
+//	                        opening of its sensor
 //	active  → active        escalated from alert to action; or, latched, the
-//	                        condition went or came back (quiet)
-//	active  → acknowledged  someone acknowledged it
+//	                        condition went (quiet): the alarm leaves its
+//	                        condition and waits for its acknowledgement
+//	active  → acknowledged  someone acknowledged it (an action alarm with a
+//	                        comment)
 //	acknowledged → active   escalated after the acknowledgement: the new
 //	                        urgency needs its own acknowledgement
 //	active, acknowledged → cleared
@@ -35,7 +42,8 @@ import (
 //
 // A level never falls within an episode: an alarm that reached action stays
 // action until it clears, and it clears only when the observation is back
-// at or below the lowest level of its rule. Quiet transitions are journaled
+// at or below the lowest level of its rule. Every alarm keeps the worst
+// value of its episode (Peak, PeakTime). Quiet transitions are journaled
 // with no notifier.
 
 // txn gathers the changes of one engine call. The engine is changed in
@@ -143,7 +151,9 @@ func (t *txn) record(a Alarm, from, by, comment string, loud bool) Alarm {
 		}
 	} else {
 		setUndo(t, e.alarms, a.ID, a)
-		setUndo(t, e.conds, key, a.ID)
+		if !a.ConditionGone {
+			setUndo(t, e.conds, key, a.ID)
+		}
 	}
 	t.ts = append(t.ts, tr)
 	t.loud = append(t.loud, loud)
@@ -193,7 +203,7 @@ type condition struct {
 	// since is when the condition began, at the time of the observation
 	// judged.
 	since, at time.Time
-	// delay, when positive, keeps a new alarm pending until the condition
+	// delay, when positive, keeps a new alarm delayed until the condition
 	// has lasted that long.
 	delay time.Duration
 	// msg, when set, writes tmpl.Message. It runs only when the condition
@@ -253,60 +263,15 @@ func (t *txn) judge(c condition) {
 		if e.suppressed[c.key] {
 			delUndo(t, e.suppressed, c.key)
 		}
-		if !open {
-			return
-		}
-		switch {
-		case a.State == StatePending:
-			from := a.State
-			a.State = StateCleared
-			at := t.now
-			a.ClearedAt = &at
-			measure(&a, c)
-			t.record(a, from, "", "condition gone before its delay ran out", false)
-		case a.Latched && a.State == StateActive:
-			if !a.ConditionGone {
-				a.ConditionGone = true
-				measure(&a, c)
-				t.record(a, a.State, "", "condition gone; latched until acknowledged", false)
-			}
-		default:
-			measure(&a, c)
-			t.clear(a, "condition gone")
+		if open {
+			t.conditionGone(a, c)
 		}
 		return
 	}
 	z := e.zones[c.tmpl.Zone]
-	suppressed := z != nil && z.op == Maintenance && suppressible(c.tmpl.Kind)
+	suppressed := z != nil && suppressible(c.tmpl.Kind) && e.maintenanceAt(z.id, c.at)
 	if !open {
-		n := c.tmpl
-		n.Level, n.Since = c.level, c.since
-		n.Latched = e.latches(n.Kind, n.Level)
-		if suppressed && e.suppressed[c.key] {
-			return
-		}
-		n.ID = t.newID(c.key, c.since)
-		switch {
-		case suppressed:
-			setUndo(t, e.suppressed, c.key, true)
-			n.State = StateCleared
-			at := t.now
-			n.ClearedAt = &at
-			note := fmt.Sprintf("suppressed: zone %s in maintenance", n.Zone)
-			n.Message = note + ": " + n.Message
-			t.record(n, "", "", note, false)
-		case c.delay > 0 && t.elapsed(c) < c.delay:
-			n.State = StatePending
-			t.record(n, "", "", fmt.Sprintf("waiting %s before raising", c.delay), false)
-		default:
-			n.State = StateActive
-			act := c.since
-			if c.delay > 0 {
-				act = c.since.Add(c.delay)
-			}
-			n.ActiveSince = &act
-			t.record(n, "", "", "", true)
-		}
+		t.open(c, suppressed)
 		return
 	}
 	if suppressed {
@@ -314,46 +279,128 @@ func (t *txn) judge(c condition) {
 		// acknowledgement; its rule is suspended meanwhile.
 		return
 	}
+	t.peak(&a, c)
 	switch a.State {
-	case StatePending:
+	case StateDelayed:
 		c.since = a.Since
-		if t.elapsed(c) >= c.delay {
-			from := a.State
-			a.State = StateActive
-			act := a.Since.Add(c.delay)
-			a.ActiveSince = &act
-			if levelRank(c.level) > levelRank(a.Level) {
-				a.Level = c.level
-			}
-			a.Latched = a.Latched || e.latches(a.Kind, a.Level)
-			measure(&a, c)
-			t.record(a, from, "", fmt.Sprintf("condition lasted longer than %s", c.delay), true)
+		if t.elapsed(c) < c.delay {
+			t.hold(a)
+			return
 		}
-	case StateActive, StateAcknowledged:
-		switch {
-		case levelRank(c.level) > levelRank(a.Level):
-			from := a.State
+		a.State = StateActive
+		act := a.Since.Add(c.delay)
+		a.ActiveSince = &act
+		if levelRank(c.level) > levelRank(a.Level) {
 			a.Level = c.level
-			a.Latched = a.Latched || e.latches(a.Kind, a.Level)
-			a.ConditionGone = false
-			measure(&a, c)
-			comment := "escalated to " + c.level
-			if a.State == StateAcknowledged {
-				a.State = StateActive
-				a.AcknowledgedBy, a.AcknowledgedAt, a.Comment = "", nil, ""
-				comment += ": the new level needs its own acknowledgement"
-			}
-			t.record(a, from, "", comment, true)
-		case a.ConditionGone:
-			a.ConditionGone = false
-			measure(&a, c)
-			t.record(a, a.State, "", "condition back", false)
 		}
+		a.Latched = a.Latched || e.latches(a.Kind, a.Level)
+		measure(&a, c)
+		t.record(a, "", "", fmt.Sprintf("condition lasted longer than %s", c.delay), true)
+	case StateActive, StateAcknowledged:
+		if levelRank(c.level) <= levelRank(a.Level) {
+			t.hold(a)
+			return
+		}
+		from := a.State
+		a.Level = c.level
+		a.Latched = a.Latched || e.latches(a.Kind, a.Level)
+		measure(&a, c)
+		comment := "escalated to " + c.level
+		if a.State == StateAcknowledged {
+			a.State = StateActive
+			a.AcknowledgedBy, a.AcknowledgedAt, a.Comment = "", nil, ""
+			comment += ": the new level needs its own acknowledgement"
+		}
+		t.record(a, from, "", comment, true)
 	}
 }
 
-// elapsed is how long a condition has lasted, by the later of the clock
-// and the observation.
+// conditionGone ends the episode of an open alarm whose condition went.
+func (t *txn) conditionGone(a Alarm, c condition) {
+	e := t.e
+	switch {
+	case a.State == StateDelayed:
+		// Gone before its delay ran out: no record. A DP dip shorter
+		// than its delay is a door opened and shut.
+		delUndo(t, e.alarms, a.ID)
+		delUndo(t, e.conds, c.key)
+		if a.Kind == KindPressureLow && a.Sensor != "" {
+			setUndo(t, e.doors, a.Sensor, e.doors[a.Sensor]+1)
+		}
+	case a.Latched && a.State == StateActive:
+		// The alarm waits for its acknowledgement, detached from its
+		// condition: the next excursion is an alarm of its own.
+		a.ConditionGone = true
+		measure(&a, c)
+		t.record(a, a.State, "", "condition gone; latched until acknowledged", false)
+		delUndo(t, e.conds, c.key)
+	default:
+		measure(&a, c)
+		t.clear(a, "condition gone")
+	}
+}
+
+// open starts a new episode of a condition.
+func (t *txn) open(c condition, suppressed bool) {
+	e := t.e
+	n := c.tmpl
+	n.Level, n.Since = c.level, c.since
+	n.Latched = e.latches(n.Kind, n.Level)
+	n.Peak, n.PeakTime = n.Value, c.at
+	if suppressed && e.suppressed[c.key] {
+		return
+	}
+	n.ID = t.newID(c.key, c.since)
+	switch {
+	case suppressed:
+		setUndo(t, e.suppressed, c.key, true)
+		n.State = StateCleared
+		at := t.now
+		n.ClearedAt = &at
+		note := fmt.Sprintf("suppressed: zone %s in maintenance", n.Zone)
+		n.Message = note + ": " + n.Message
+		t.record(n, "", "", note, false)
+	case c.delay > 0 && t.elapsed(c) < c.delay:
+		n.State = StateDelayed
+		t.hold(n)
+	default:
+		n.State = StateActive
+		act := c.since
+		if c.delay > 0 {
+			act = c.since.Add(c.delay)
+		}
+		n.ActiveSince = &act
+		t.record(n, "", "", "", true)
+	}
+}
+
+// hold keeps an alarm's new form in memory without a transition: a
+// delayed alarm, or the peak of an open one.
+func (t *txn) hold(a Alarm) {
+	key, _ := conditionKey(a.ID)
+	setUndo(t, t.e.alarms, a.ID, a)
+	setUndo(t, t.e.conds, key, a.ID)
+}
+
+// peak keeps the worst value of the episode.
+func (t *txn) peak(a *Alarm, c condition) {
+	if a.PeakTime.IsZero() || worse(a.Kind, a.Unit, c.tmpl.Value, a.Peak, a.Threshold) {
+		a.Peak, a.PeakTime = c.tmpl.Value, c.at
+	}
+}
+
+// worse says whether v is a worse value than peak for an alarm of the
+// kind: a lower DP, a flow farther from its nominal, else a higher value.
+func worse(kind, unit string, v, peak, threshold float64) bool {
+	switch {
+	case kind == KindPressureLow || kind == KindPressureReversal:
+		return v < peak
+	case unit == "L/min":
+		return math.Abs(v-threshold) > math.Abs(peak-threshold)
+	}
+	return v > peak
+}
+
 // elapsed is how long the condition has lasted by the instrument's own
 // clock: from its first observation to the newest one. The wall clock is
 // not used: readings that arrive late (a gateway replaying its buffer
@@ -398,13 +445,16 @@ func (e *Engine) Ack(ctx context.Context, id, by, comment string) (Alarm, error)
 		}
 		return Alarm{}, fmt.Errorf("%w: %s", ErrNoAlarm, id)
 	}
-	switch a.State {
-	case StatePending:
+	switch {
+	case a.State == StateDelayed:
 		e.mu.Unlock()
 		return cloneAlarm(a), fmt.Errorf("%w: %s", ErrAlarmPending, id)
-	case StateAcknowledged:
+	case a.State == StateAcknowledged:
 		e.mu.Unlock()
 		return cloneAlarm(a), fmt.Errorf("%w: %s by %s", ErrAlreadyAcked, id, a.AcknowledgedBy)
+	case a.Level == LevelAction && strings.TrimSpace(comment) == "":
+		e.mu.Unlock()
+		return cloneAlarm(a), fmt.Errorf("%w: %w: say what was found or done (%s)", ErrAck, ErrCommentRequired, id)
 	}
 	e.touched = true
 	t := e.begin()

@@ -21,10 +21,11 @@ func TestAck(t *testing.T) {
 		{name: "unknown alarm", prepare: func(*harness) string { return "assembly:asm-1:0.5:excursion:19990101T000000Z" }, by: "a", want: ErrNoAlarm},
 		{name: "nobody", prepare: activeAction, by: "  ", want: ErrAck},
 		{name: "comment too long", prepare: activeAction, by: "a", comment: strings.Repeat("x", maxAckComment+1), want: ErrAck},
-		{name: "pending", prepare: func(h *harness) string { h.pressure("dp-asm", 2); return h.one(KindPressureLow).ID }, by: "a", want: ErrAlarmPending},
+		{name: "action without a comment", prepare: activeAction, by: "a", comment: "  ", want: ErrCommentRequired},
+		{name: "delayed", prepare: func(h *harness) string { h.pressure("dp-asm", 2); return h.one(KindPressureLow).ID }, by: "a", want: ErrAlarmPending},
 		{name: "twice", prepare: func(h *harness) string {
 			id := activeAction(h)
-			if _, err := h.e.Ack(ctx, id, "first", ""); err != nil {
+			if _, err := h.e.Ack(ctx, id, "first", "seen"); err != nil {
 				h.t.Fatal(err)
 			}
 			return id
@@ -92,7 +93,7 @@ func activeAction(h *harness) string {
 func TestAcknowledgedThenConditionGoesClears(t *testing.T) {
 	h := newHarness(t, nil)
 	id := activeAction(h)
-	if _, err := h.e.Ack(context.Background(), id, "r.okafor", ""); err != nil {
+	if _, err := h.e.Ack(context.Background(), id, "r.okafor", "door seal checked"); err != nil {
 		t.Fatal(err)
 	}
 	h.feed(reading("pc-asm-1", h.clk.Now(), 1000, 0))
@@ -158,10 +159,15 @@ func TestRestoreAfterRestart(t *testing.T) {
 	h.feed(reading("pc-asm-1", h.clk.Now(), 300000, 0))                                            // excursion action, latched
 	h.feed(reading("pc-asm-1", h.clk.Now(), 150000, 0), reading("pc-asm-2", h.clk.Now(), 1000, 0)) // run of 2 above alert
 	h.feed(reading("pc-asm-1", h.clk.Now(), 150000, 0))                                            // consecutive raised
-	h.pressure("dp-asm", 2)                                                                        // pending pressure-low
-	before := h.e.Alarms(false)
-	if len(before) != 3 {
-		t.Fatalf("before the restart: %+v", before)
+	h.pressure("dp-asm", 2)                                                                        // delayed pressure-low: memory only
+	if len(h.e.Alarms(false)) != 3 {
+		t.Fatalf("before the restart: %+v", h.e.Alarms(false))
+	}
+	var before []Alarm
+	for _, a := range h.e.Alarms(false) {
+		if a.State != StateDelayed {
+			before = append(before, a)
+		}
 	}
 
 	// A new engine on the same journal, as after a restart.
@@ -194,15 +200,23 @@ func TestRestoreAfterRestart(t *testing.T) {
 			t.Errorf("restored consecutive alarm lost its run: %+v", a)
 		}
 	}
-	// The pending pressure-low keeps its start: its delay (30 s) runs out
-	// 30 s after the first low reading, not 30 s after the restart.
-	clk.Advance(25 * time.Second)
-	if err := e2.ObservePressure(ctx, []PressureObservation{{Sensor: "dp-asm", Time: clk.Now(), Pa: 2}}); err != nil {
-		t.Fatal(err)
-	}
+	// The delayed pressure-low was never journaled: its delay (30 s)
+	// starts again with the first low reading after the restart.
 	for _, a := range e2.Alarms(false) {
-		if a.Kind == KindPressureLow && a.State != StateActive {
-			t.Errorf("pressure-low after restart and 30 s below minimum: %+v", a)
+		if a.Kind == KindPressureLow {
+			t.Errorf("a delayed alarm came back from the journal: %+v", a)
+		}
+	}
+	for i, d := range []time.Duration{0, 31 * time.Second} {
+		clk.Advance(d)
+		if err := e2.ObservePressure(ctx, []PressureObservation{{Sensor: "dp-asm", Time: clk.Now(), Pa: 2}}); err != nil {
+			t.Fatal(err)
+		}
+		want := []string{StateDelayed, StateActive}[i]
+		for _, a := range e2.Alarms(false) {
+			if a.Kind == KindPressureLow && a.State != want {
+				t.Errorf("pressure-low %s after the restart: %+v, want %s", d, a, want)
+			}
 		}
 	}
 	// Acknowledging a restored alarm works and is journaled.

@@ -15,7 +15,7 @@ type AlarmLister interface{ Alarms(all bool) []Alarm }
 var alarmKinds = []string{KindExcursion, KindConsecutive, KindOutOfClass, KindPressureLow, KindPressureReversal, KindStale, KindInstrument, KindTrend}
 
 var descAlarmActive = prometheus.NewDesc("cleanmon_alarm_active",
-	"Number of alarms firing (active or acknowledged, not yet cleared) per zone, kind and level; pending alarms, whose delay still runs, are not counted.",
+	"Number of alarms firing (active or acknowledged, not yet cleared) per zone, kind and level; delayed alarms, whose delay still runs, are not counted.",
 	[]string{"zone", "kind", "level"}, nil)
 
 // AlarmCollector counts the firing alarms.

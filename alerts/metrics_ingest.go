@@ -24,16 +24,18 @@ const (
 // counter id nobody configured), so a sender cannot grow the series.
 const UnknownLabel = "unknown"
 
-var ingestResults = []string{IngestAccepted, IngestDuplicate, IngestRejected}
+// IngestResults are every result of cleanmon_readings_total; each
+// configured counter starts with a zero series of each.
+var IngestResults = []string{IngestAccepted, IngestDuplicate, IngestRejected, IngestConflict}
 
 var (
 	descReadings = prometheus.NewDesc("cleanmon_readings_total",
-		"Particle-counter readings received, by counter and result (accepted, duplicate, rejected).",
+		"Particle-counter readings received, by counter and result: accepted (stored), duplicate (already stored, same values), conflict (a stored reading's time with other values: not stored), rejected (bad input: nothing stored). Counters outside the configuration count under counter=\"unknown\".",
 		[]string{"counter", "result"}, nil)
-	descCounterTime = prometheus.NewDesc("cleanmon_counter_last_reading_timestamp_seconds",
-		"Unix time of the newest accepted reading of a counter.",
+	descCounterTime = prometheus.NewDesc("cleanmon_instrument_last_reading_timestamp_seconds",
+		"Unix time of the newest accepted reading of a particle counter.",
 		[]string{"counter"}, nil)
-	descCounterFlow = prometheus.NewDesc("cleanmon_counter_flow_liters_per_minute",
+	descCounterFlow = prometheus.NewDesc("cleanmon_instrument_flow_liters_per_minute",
 		"Sample flow (L/min) a counter reported with its newest reading that gave one.",
 		[]string{"counter"}, nil)
 )
@@ -59,7 +61,7 @@ func NewIngestMetrics(counters []string) *IngestMetrics {
 	}
 	for _, c := range counters {
 		m.known[c] = true
-		for _, r := range ingestResults {
+		for _, r := range IngestResults {
 			m.counts[[2]string{c, r}] = 0
 		}
 	}
@@ -73,9 +75,8 @@ func (m *IngestMetrics) label(counter string) string {
 	return UnknownLabel
 }
 
-// Count adds n readings of counter with result (IngestAccepted,
-// IngestDuplicate or IngestRejected; anything else counts as
-// UnknownLabel). n ≤ 0 changes nothing.
+// Count adds n readings of counter with result (one of IngestResults;
+// anything else counts as UnknownLabel). n ≤ 0 changes nothing.
 func (m *IngestMetrics) Count(counter, result string, n int) {
 	if n <= 0 {
 		return

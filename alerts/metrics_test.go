@@ -284,7 +284,7 @@ func TestAlarmCollector(t *testing.T) {
 	src := ntAlarmList{
 		alarm("assembly", KindExcursion, LevelAlert, StateActive),
 		alarm("assembly", KindExcursion, LevelAlert, StateAcknowledged),
-		alarm("assembly", KindExcursion, LevelAction, StatePending), // delay running: not counted
+		alarm("assembly", KindExcursion, LevelAction, StateDelayed), // delay running: not counted
 		alarm("assembly", KindStale, LevelAction, StateCleared),
 		alarm("assembly", KindPressureReversal, LevelAction, StateActive),
 		alarm("metrology", KindInstrument, LevelAlert, StateActive), // not in the zone list
@@ -315,7 +315,7 @@ func TestAlarmCollector(t *testing.T) {
 
 	// The exposition itself, for one small case.
 	one := NewAlarmCollector(ntAlarmList{alarm("assembly", KindStale, LevelAlert, StateActive)}, nil)
-	exp := `# HELP cleanmon_alarm_active Number of alarms firing (active or acknowledged, not yet cleared) per zone, kind and level; pending alarms, whose delay still runs, are not counted.
+	exp := `# HELP cleanmon_alarm_active Number of alarms firing (active or acknowledged, not yet cleared) per zone, kind and level; delayed alarms, whose delay still runs, are not counted.
 # TYPE cleanmon_alarm_active gauge
 cleanmon_alarm_active{kind="stale",level="alert",zone="assembly"} 1
 `
@@ -341,17 +341,19 @@ func TestIngestMetrics(t *testing.T) {
 
 	got := ntGather(t, m)
 	want := map[string]float64{
-		`cleanmon_readings_total{counter="pc-asm-1",result="accepted"}`:       3,
-		`cleanmon_readings_total{counter="pc-asm-1",result="duplicate"}`:      1,
-		`cleanmon_readings_total{counter="pc-asm-1",result="rejected"}`:       0,
-		`cleanmon_readings_total{counter="pc-hood",result="accepted"}`:        0,
-		`cleanmon_readings_total{counter="pc-hood",result="duplicate"}`:       0,
-		`cleanmon_readings_total{counter="pc-hood",result="rejected"}`:        0,
-		`cleanmon_readings_total{counter="pc-hood",result="unknown"}`:         1,
-		`cleanmon_readings_total{counter="unknown",result="rejected"}`:        3,
-		`cleanmon_counter_last_reading_timestamp_seconds{counter="pc-asm-1"}`: float64(ntT0.Unix()),
-		`cleanmon_counter_last_reading_timestamp_seconds{counter="pc-hood"}`:  float64(ntT0.Unix() + 120),
-		`cleanmon_counter_flow_liters_per_minute{counter="pc-asm-1"}`:         28.3,
+		`cleanmon_readings_total{counter="pc-asm-1",result="accepted"}`:          3,
+		`cleanmon_readings_total{counter="pc-asm-1",result="duplicate"}`:         1,
+		`cleanmon_readings_total{counter="pc-asm-1",result="rejected"}`:          0,
+		`cleanmon_readings_total{counter="pc-asm-1",result="conflict"}`:          0,
+		`cleanmon_readings_total{counter="pc-hood",result="conflict"}`:           0,
+		`cleanmon_readings_total{counter="pc-hood",result="accepted"}`:           0,
+		`cleanmon_readings_total{counter="pc-hood",result="duplicate"}`:          0,
+		`cleanmon_readings_total{counter="pc-hood",result="rejected"}`:           0,
+		`cleanmon_readings_total{counter="pc-hood",result="unknown"}`:            1,
+		`cleanmon_readings_total{counter="unknown",result="rejected"}`:           3,
+		`cleanmon_instrument_last_reading_timestamp_seconds{counter="pc-asm-1"}`: float64(ntT0.Unix()),
+		`cleanmon_instrument_last_reading_timestamp_seconds{counter="pc-hood"}`:  float64(ntT0.Unix() + 120),
+		`cleanmon_instrument_flow_liters_per_minute{counter="pc-asm-1"}`:         28.3,
 	}
 	if !maps.Equal(got, want) {
 		t.Errorf("got %v\nwant %v", got, want)
@@ -427,7 +429,7 @@ func TestExpositionPassesPromtool(t *testing.T) {
 	for _, name := range []string{
 		"cleanmon_particle_concentration_per_cubic_meter", "cleanmon_class_limit_per_cubic_meter", "cleanmon_zone_in_class",
 		"cleanmon_zone_state", "cleanmon_differential_pressure_pascals", "cleanmon_alarm_active", "cleanmon_readings_total",
-		"cleanmon_counter_last_reading_timestamp_seconds", "cleanmon_counter_flow_liters_per_minute",
+		"cleanmon_instrument_last_reading_timestamp_seconds", "cleanmon_instrument_flow_liters_per_minute",
 		"cleanmon_notifications_total", "cleanmon_notification_queue", "cleanmon_notifier_up",
 	} {
 		if !bytes.Contains(body, []byte("\n# HELP "+name+" ")) && !bytes.HasPrefix(body, []byte("# HELP "+name+" ")) {
@@ -452,14 +454,7 @@ func TestExpositionPassesPromtool(t *testing.T) {
 	cmd := exec.Command(promtool, "check", "metrics")
 	cmd.Stdin = bytes.NewReader(body)
 	out, err := cmd.CombinedOutput()
-	// Older promtool releases (Debian 12 ships 2.42) flag any type word
-	// in a name; "counter" in these two DESIGN.md §4 names is the particle
-	// counter, and the metrics are gauges, which newer linters (the
-	// client_golang one above) accept. Every other finding fails.
-	tolerated := map[string]bool{
-		"cleanmon_counter_flow_liters_per_minute metric name should not include type 'counter'":         true,
-		"cleanmon_counter_last_reading_timestamp_seconds metric name should not include type 'counter'": true,
-	}
+	tolerated := map[string]bool{}
 	var findings []string
 	for _, line := range strings.Split(strings.TrimSpace(string(out)), "\n") {
 		if line = strings.TrimSpace(line); line != "" && !tolerated[line] {
@@ -469,7 +464,7 @@ func TestExpositionPassesPromtool(t *testing.T) {
 	if len(findings) > 0 {
 		t.Errorf("promtool check metrics: %v\n%s", err, strings.Join(findings, "\n"))
 	}
-	if err != nil && len(findings) == 0 && !strings.Contains(string(out), "should not include type 'counter'") {
+	if err != nil && len(findings) == 0 {
 		t.Errorf("promtool check metrics failed without a finding: %v", err)
 	}
 	// promtool does find problems: a counter without _total fails.
@@ -483,15 +478,15 @@ func TestExpositionPassesPromtool(t *testing.T) {
 func TestMetricNamesAreTheDesignOnes(t *testing.T) {
 	// DESIGN.md §4 MUST names, with their label sets.
 	want := map[string][]string{
-		"cleanmon_particle_concentration_per_cubic_meter": {"zone", "location", "size_um"},
-		"cleanmon_class_limit_per_cubic_meter":            {"zone", "size_um"},
-		"cleanmon_zone_in_class":                          {"zone"},
-		"cleanmon_zone_state":                             {"zone", "state"},
-		"cleanmon_differential_pressure_pascals":          {"sensor", "high", "low"},
-		"cleanmon_alarm_active":                           {"zone", "kind", "level"},
-		"cleanmon_readings_total":                         {"counter", "result"},
-		"cleanmon_counter_last_reading_timestamp_seconds": {"counter"},
-		"cleanmon_counter_flow_liters_per_minute":         {"counter"},
+		"cleanmon_particle_concentration_per_cubic_meter":    {"zone", "location", "size_um"},
+		"cleanmon_class_limit_per_cubic_meter":               {"zone", "size_um"},
+		"cleanmon_zone_in_class":                             {"zone"},
+		"cleanmon_zone_state":                                {"zone", "state"},
+		"cleanmon_differential_pressure_pascals":             {"sensor", "high", "low"},
+		"cleanmon_alarm_active":                              {"zone", "kind", "level"},
+		"cleanmon_readings_total":                            {"counter", "result"},
+		"cleanmon_instrument_last_reading_timestamp_seconds": {"counter"},
+		"cleanmon_instrument_flow_liters_per_minute":         {"counter"},
 	}
 	descs := []*prometheus.Desc{descConcentration, descClassLimit, descInClass, descZoneState, descDP, descAlarmActive, descReadings, descCounterTime, descCounterFlow}
 	for _, d := range descs {

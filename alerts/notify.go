@@ -5,11 +5,14 @@ import (
 	"errors"
 	"fmt"
 	"log/slog"
+	"maps"
 	"net/http"
 	"net/url"
 	"strconv"
 	"strings"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // Notifier delivers one transition to one receiver. An error means "try
@@ -55,13 +58,56 @@ type NotifyConfig struct {
 	Webhooks      []WebhookConfig      `yaml:"webhooks"`
 	Alertmanagers []AlertmanagerConfig `yaml:"alertmanagers"`
 	Retry         RetryConfig          `yaml:"retry"`
+	// Labels go with every alert, message and heartbeat of every notifier
+	// (site: veldmark-c, suite: building-c), so receivers can route by
+	// site; a notifier's own labels of the same name win.
+	Labels map[string]string `yaml:"labels"`
+	// Heartbeat is the period of the heartbeat sent to every webhook and
+	// Alertmanager (default DefaultHeartbeat): its absence is how a
+	// receiver's dead-man's switch learns that monitoring is lost.
+	Heartbeat model.Duration `yaml:"heartbeat"`
+}
+
+// HeartbeatEvery is the configured heartbeat period, or its default.
+func (c NotifyConfig) HeartbeatEvery() time.Duration {
+	if c.Heartbeat > 0 {
+		return time.Duration(c.Heartbeat)
+	}
+	return DefaultHeartbeat
+}
+
+// checkLabels checks label names and values for every receiver.
+func checkLabels(p string, labels map[string]string) []FieldError {
+	var errs []FieldError
+	for _, k := range sortedKeys(labels) {
+		lp := p + "." + k
+		switch {
+		case !validLabelName(k):
+			errs = append(errs, FieldError{lp, fmt.Sprintf("%q is not a label name (letters, digits and '_', not starting with a digit or \"__\")", k)})
+		case amOwnLabels[k]:
+			errs = append(errs, FieldError{lp, "set by the notifier from the alarm; choose another name"})
+		case labels[k] == "":
+			errs = append(errs, FieldError{lp, "an empty label value is the same as no label"})
+		}
+	}
+	return errs
+}
+
+// withLabels is own over site: the notifier's labels win.
+func withLabels(site, own map[string]string) map[string]string {
+	if len(site) == 0 {
+		return own
+	}
+	out := maps.Clone(site)
+	maps.Copy(out, own)
+	return out
 }
 
 // RetryConfig shapes the retry of failed deliveries: the wait doubles
 // from Base after each failure up to Max. Deliveries are never dropped.
 type RetryConfig struct {
-	Base Duration `yaml:"base"`
-	Max  Duration `yaml:"max"`
+	Base model.Duration `yaml:"base"`
+	Max  model.Duration `yaml:"max"`
 }
 
 // notifyConfigPath is where NotifyConfig sits in the site configuration;
@@ -99,6 +145,15 @@ func ValidateNotify(c NotifyConfig) []FieldError {
 		name(ap+".name", a.withDefaults().Name)
 		errs = append(errs, a.validate(ap)...)
 	}
+	errs = append(errs, checkLabels(p+".labels", c.Labels)...)
+	for i, w := range c.Webhooks {
+		errs = append(errs, checkLabels(fmt.Sprintf("%s.webhooks[%d].labels", p, i), w.Labels)...)
+	}
+	if c.Heartbeat < 0 {
+		errs = append(errs, FieldError{p + ".heartbeat", fmt.Sprintf("%s: must be positive", time.Duration(c.Heartbeat))})
+	} else if c.Heartbeat > 0 && time.Duration(c.Heartbeat) < time.Second {
+		errs = append(errs, FieldError{p + ".heartbeat", fmt.Sprintf("%s: at least 1s", time.Duration(c.Heartbeat))})
+	}
 	if c.Retry.Base < 0 {
 		errs = append(errs, FieldError{p + ".retry.base", fmt.Sprintf("%s: must be positive", time.Duration(c.Retry.Base))})
 	}
@@ -127,6 +182,7 @@ func BuildNotifiers(c NotifyConfig, client *http.Client, l *slog.Logger) ([]Noti
 		ns = append(ns, NewLogNotifier(l))
 	}
 	for _, w := range c.Webhooks {
+		w.Labels = withLabels(c.Labels, w.Labels)
 		n, err := NewWebhook(w, client)
 		if err != nil {
 			return nil, err
@@ -134,6 +190,7 @@ func BuildNotifiers(c NotifyConfig, client *http.Client, l *slog.Logger) ([]Noti
 		ns = append(ns, n)
 	}
 	for _, a := range c.Alertmanagers {
+		a.Labels = withLabels(c.Labels, a.Labels)
 		n, err := NewAlertmanager(a, client)
 		if err != nil {
 			return nil, err

@@ -16,6 +16,8 @@ import (
 	"time"
 
 	"cleanmon/classify"
+
+	"github.com/prometheus/common/model"
 )
 
 // Defaults of an Alertmanager notifier.
@@ -25,11 +27,13 @@ const (
 	DefaultResend = time.Minute
 )
 
-// alertmanagerValidity is how many resend periods a posted firing alert
-// stays valid without being resent: Alertmanager resolves it after that,
-// so a daemon that dies does not leave alerts firing forever, while a
-// missed resend or two changes nothing.
-const alertmanagerValidity = 4
+// AlertmanagerHold is how far ahead a firing alert's end is posted, and
+// posted again at every resend. Alertmanager resolves an alert at its end
+// time; a daemon that stops or dies must never make an open alarm look
+// resolved, so the end lies far beyond any outage: only an explicit clear
+// resolves an alarm. The daemon's silence is told by its heartbeat
+// instead (see Heartbeater).
+const AlertmanagerHold = 365 * 24 * time.Hour
 
 // AlertmanagerConfig is one Alertmanager, or one cluster of peers: every
 // alert goes to every peer, as the peers do not share alerts among
@@ -41,9 +45,9 @@ type AlertmanagerConfig struct {
 	// posts to <URL>/api/v2/alerts.
 	URLs []string `yaml:"urls"`
 	// Timeout bounds one post to one peer (default DefaultNotifyTimeout).
-	Timeout Duration `yaml:"timeout"`
+	Timeout model.Duration `yaml:"timeout"`
 	// Resend is how often firing alarms are posted again (default 1m).
-	Resend Duration `yaml:"resend"`
+	Resend model.Duration `yaml:"resend"`
 	// ExternalURL is where users reach this daemon; alerts link back to
 	// the zone from there.
 	ExternalURL string `yaml:"external_url"`
@@ -53,7 +57,7 @@ type AlertmanagerConfig struct {
 
 // amOwnLabels are set by the notifier from the alarm.
 var amOwnLabels = map[string]bool{
-	"alertname": true, "zone": true, "kind": true, "level": true,
+	"alertname": true, "zone": true, "kind": true, "level": true, "severity": true,
 	"location": true, "counter": true, "sensor": true, "size_um": true,
 }
 
@@ -141,11 +145,14 @@ type amAlert struct {
 
 // Alertmanager posts alarms to Alertmanager's v2 API. An alarm fires from
 // the moment it is active until it is cleared: acknowledging it does not
-// resolve it (silences are Alertmanager's own business). A pending alarm
+// resolve it (silences are Alertmanager's own business). A delayed alarm
 // is not posted; one cleared before it fired is not posted either.
 //
-// Alertmanager resolves a firing alert that is not posted again before its
-// end time, so the daemon must also call Run with the open alarms.
+// A firing alert is posted with its end AlertmanagerHold ahead, and
+// refreshed by Run with the open alarms; nothing is posted when the daemon
+// stops. Every alert carries the labels severity (the alarm's level) and
+// the configured site labels, and the annotation value_text, its value
+// with its unit.
 type Alertmanager struct {
 	cfg     AlertmanagerConfig
 	client  *http.Client
@@ -223,12 +230,12 @@ func (a *Alertmanager) Notify(ctx context.Context, t Transition) error {
 			return nil // never fired, nothing to resolve
 		}
 	default:
-		return nil // pending: its delay is still running
+		return nil // delayed: its delay is still running
 	}
 	a.mu.Lock()
 	defer a.mu.Unlock()
 	now := a.now()
-	end := now.Add(alertmanagerValidity * a.resend)
+	end := now.Add(AlertmanagerHold)
 	if !firing {
 		end = t.Time
 		if al.ClearedAt != nil {
@@ -274,7 +281,7 @@ func (a *Alertmanager) resendNow(ctx context.Context, active func() []Alarm) err
 	defer a.mu.Unlock()
 	open := active()
 	now := a.now()
-	end := now.Add(alertmanagerValidity * a.resend)
+	end := now.Add(AlertmanagerHold)
 	var batch []amAlert
 	sets := map[string]map[string]string{}
 	for _, al := range open {
@@ -319,6 +326,7 @@ func (a *Alertmanager) alerts(al Alarm, end, now time.Time) ([]amAlert, map[stri
 	labels := map[string]string{}
 	maps.Copy(labels, a.cfg.Labels)
 	labels["alertname"] = "cleanmon_" + al.Kind
+	labels["severity"] = al.Level
 	for k, v := range map[string]string{"zone": al.Zone, "kind": al.Kind, "level": al.Level, "location": al.Location, "counter": al.Counter, "sensor": al.Sensor} {
 		if v != "" {
 			labels[k] = v
@@ -339,6 +347,7 @@ func (a *Alertmanager) alerts(al Alarm, end, now time.Time) ([]amAlert, map[stri
 		ann["value"] = strconv.FormatFloat(al.Value, 'g', -1, 64)
 		ann["threshold"] = strconv.FormatFloat(al.Threshold, 'g', -1, 64)
 		ann["unit"] = al.Unit
+		ann["value_text"] = al.ValueText()
 	}
 	if al.AcknowledgedBy != "" {
 		ann["acknowledged_by"] = al.AcknowledgedBy

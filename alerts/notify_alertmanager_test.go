@@ -19,6 +19,8 @@ import (
 	"sync"
 	"testing"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // postableAlertFields are the properties of postableAlert in the
@@ -142,7 +144,7 @@ func TestAlertmanagerPostsV2Alerts(t *testing.T) {
 	cleared := ntT0.Add(10 * time.Minute)
 	excursion := map[string]string{
 		"alertname": "cleanmon_excursion", "zone": "assembly", "kind": "excursion", "level": "alert",
-		"location": "pc-asm-1", "counter": "pc-asm-1", "size_um": "0.5", "site": "veldmark-c",
+		"location": "pc-asm-1", "counter": "pc-asm-1", "size_um": "0.5", "site": "veldmark-c", "severity": "alert",
 	}
 
 	ack := ntAlarm("alm-1", StateAcknowledged)
@@ -162,17 +164,18 @@ func TestAlertmanagerPostsV2Alerts(t *testing.T) {
 		endsAt   time.Time
 		annotate map[string]string
 	}{
-		{"active fires", ntAlarm("alm-1", StateActive), true, excursion, now.Add(4 * time.Minute),
-			map[string]string{"alarm_id": "alm-1", "state": "active", "value": "120000", "threshold": "100000", "unit": "particles/m³"}},
-		{"acknowledged still fires", ack, true, excursion, now.Add(4 * time.Minute),
+		{"active fires", ntAlarm("alm-1", StateActive), true, excursion, now.Add(AlertmanagerHold),
+			map[string]string{"alarm_id": "alm-1", "state": "active", "value": "120000", "threshold": "100000", "unit": "particles/m³",
+				"value_text": "120000 particles/m³ (threshold 100000 particles/m³)"}},
+		{"acknowledged still fires", ack, true, excursion, now.Add(AlertmanagerHold),
 			map[string]string{"acknowledged_by": "j.ortega", "comment": "door left open, closed"}},
 		{"cleared resolves at the clear time", clr, true, excursion, cleared, map[string]string{"state": "cleared"}},
-		{"pending is not posted", ntAlarm("alm-2", StatePending), false, nil, time.Time{}, nil},
+		{"pending is not posted", ntAlarm("alm-2", StateDelayed), false, nil, time.Time{}, nil},
 		{"cleared before firing is not posted", neverFired, false, nil, time.Time{}, nil},
 		{"pressure reversal", rev, true, map[string]string{
 			"alertname": "cleanmon_pressure-reversal", "zone": "assembly", "kind": "pressure-reversal", "level": "action",
-			"sensor": "dp-asm-gown", "site": "veldmark-c",
-		}, now.Add(4 * time.Minute), map[string]string{"value": "-1.5", "unit": "Pa", "summary": "pressure-reversal action in zone assembly"}},
+			"sensor": "dp-asm-gown", "site": "veldmark-c", "severity": "action",
+		}, now.Add(AlertmanagerHold), map[string]string{"value": "-1.5", "unit": "Pa", "value_text": "-1.5 Pa (threshold 0 Pa)", "summary": "pressure-reversal action in zone assembly"}},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
@@ -317,8 +320,8 @@ func TestAlertmanagerConfigErrors(t *testing.T) {
 		{"no urls", func(c *AlertmanagerConfig) { c.URLs = nil }, "alertmanagers[0].urls", "missing"},
 		{"bad url", func(c *AlertmanagerConfig) { c.URLs = []string{"127.0.0.1:9093"} }, "alertmanagers[0].urls[0]", "http"},
 		{"peer twice", func(c *AlertmanagerConfig) { c.URLs = append(c.URLs, c.URLs[0]) }, "alertmanagers[0].urls[1]", "urls[0]"},
-		{"resend too short", func(c *AlertmanagerConfig) { c.Resend = Duration(time.Millisecond) }, "alertmanagers[0].resend", "at least 1s"},
-		{"negative timeout", func(c *AlertmanagerConfig) { c.Timeout = Duration(-time.Second) }, "alertmanagers[0].timeout", "positive"},
+		{"resend too short", func(c *AlertmanagerConfig) { c.Resend = model.Duration(time.Millisecond) }, "alertmanagers[0].resend", "at least 1s"},
+		{"negative timeout", func(c *AlertmanagerConfig) { c.Timeout = model.Duration(-time.Second) }, "alertmanagers[0].timeout", "positive"},
 		{"external url", func(c *AlertmanagerConfig) { c.ExternalURL = "cleanmon.local" }, "alertmanagers[0].external_url", "http"},
 		{"label clash", func(c *AlertmanagerConfig) { c.Labels = map[string]string{"zone": "x"} }, "alertmanagers[0].labels.zone", "set by the notifier"},
 		{"label name", func(c *AlertmanagerConfig) { c.Labels = map[string]string{"1site": "x"} }, "alertmanagers[0].labels.1site", "not a label name"},
@@ -352,7 +355,7 @@ func TestAlertmanagerResendLoop(t *testing.T) {
 		t.Fatal(err)
 	}
 	a.resend = 10 * time.Millisecond // below what a configuration may ask, to keep the test short
-	open := []Alarm{ntAlarm("alm-1", StateActive), ntAlarm("alm-2", StatePending), ntAlarm("alm-3", StateAcknowledged), ntAlarm("alm-4", StateCleared)}
+	open := []Alarm{ntAlarm("alm-1", StateActive), ntAlarm("alm-2", StateDelayed), ntAlarm("alm-3", StateAcknowledged), ntAlarm("alm-4", StateCleared)}
 	var mu sync.Mutex
 	calls := 0
 	ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
@@ -400,7 +403,7 @@ func TestAlertmanagerResendLoop(t *testing.T) {
 		t.Errorf("Run without a source: %v", err)
 	}
 	// Nothing firing: nothing posted.
-	if err := a.resendNow(context.Background(), func() []Alarm { return []Alarm{ntAlarm("alm-2", StatePending)} }); err != nil {
+	if err := a.resendNow(context.Background(), func() []Alarm { return []Alarm{ntAlarm("alm-2", StateDelayed)} }); err != nil {
 		t.Fatal(err)
 	}
 	if posts, _ := rcv.take(); len(posts) != 0 {

@@ -44,7 +44,7 @@ func ExampleWebhook() {
 	}
 	since := time.Date(2026, 3, 2, 10, 0, 0, 0, time.UTC)
 	t := Transition{
-		Key: "alm-7/1/active", AlarmID: "alm-7", Time: since, From: StatePending, To: StateActive,
+		Key: "alm-7/1/active", AlarmID: "alm-7", Time: since, From: StateDelayed, To: StateActive,
 		Alarm: Alarm{ID: "alm-7", Zone: "metrology", Kind: KindExcursion, Level: LevelAction, State: StateActive, Since: since},
 	}
 	for range 2 { // the second is a retry after a lost answer

@@ -17,6 +17,8 @@ import (
 	"sort"
 	"strings"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // Headers of a webhook delivery.
@@ -33,9 +35,15 @@ const (
 const WebhookMessageVersion = 1
 
 // WebhookMessage is the JSON body of a webhook delivery: the transition,
-// with the alarm as it is after it, and a version for the receiver.
+// with the alarm as it is after it, and a version for the receiver. An
+// alarm is resolved for the receiver only by a transition to cleared:
+// nothing is sent when the daemon stops. Severity is the alarm's level,
+// Labels the configured site labels, ValueText the value with its unit.
 type WebhookMessage struct {
-	Version int `json:"version"`
+	Version   int               `json:"version"`
+	Severity  string            `json:"severity"`
+	Labels    map[string]string `json:"labels,omitempty"`
+	ValueText string            `json:"value_text,omitempty"`
 	Transition
 }
 
@@ -46,9 +54,12 @@ type WebhookConfig struct {
 	// Secret is the HMAC-SHA256 key the receiver verifies the body with.
 	Secret string `yaml:"secret"`
 	// Timeout bounds one attempt (default DefaultNotifyTimeout).
-	Timeout Duration `yaml:"timeout"`
+	Timeout model.Duration `yaml:"timeout"`
 	// Headers are sent with every delivery (an Authorization header, say).
 	Headers map[string]string `yaml:"headers"`
+	// Labels go with every message (site: veldmark-c, say), beside the
+	// notifications section's own labels.
+	Labels map[string]string `yaml:"labels"`
 }
 
 // reservedWebhookHeaders are set by the notifier and may not be replaced.
@@ -139,16 +150,22 @@ func (w *Webhook) Name() string { return w.cfg.Name }
 func (w *Webhook) Notify(ctx context.Context, t Transition) error {
 	// JSON has no NaN or infinity; such a value would make the delivery
 	// fail for ever, so it goes as 0 beside the unchanged message.
-	for _, v := range []*float64{&t.Alarm.Value, &t.Alarm.Threshold} {
+	for _, v := range []*float64{&t.Alarm.Value, &t.Alarm.Threshold, &t.Alarm.Peak} {
 		if math.IsNaN(*v) || math.IsInf(*v, 0) {
 			*v = 0
 		}
 	}
-	body, err := json.Marshal(WebhookMessage{Version: WebhookMessageVersion, Transition: t})
+	body, err := json.Marshal(WebhookMessage{Version: WebhookMessageVersion, Severity: t.Alarm.Level,
+		Labels: w.cfg.Labels, ValueText: t.Alarm.ValueText(), Transition: t})
 	if err != nil {
 		// Not worth repeating, but never dropped: the dispatcher keeps it.
 		return fmt.Errorf("%w: encoding transition %s: %v", ErrRejected, t.Key, err)
 	}
+	return w.post(ctx, t.Key, body)
+}
+
+// post sends one signed body under a delivery key.
+func (w *Webhook) post(ctx context.Context, key string, body []byte) error {
 	ctx, cancel := context.WithTimeout(ctx, w.timeout)
 	defer cancel()
 	req, err := http.NewRequestWithContext(ctx, http.MethodPost, w.cfg.URL, bytes.NewReader(body))
@@ -160,7 +177,7 @@ func (w *Webhook) Notify(ctx context.Context, t Transition) error {
 	if req.Header.Get("User-Agent") == "" {
 		req.Header.Set("User-Agent", "cleanmon")
 	}
-	req.Header.Set(DeliveryHeader, t.Key)
+	req.Header.Set(DeliveryHeader, key)
 	req.Header.Set(SignatureHeader, "sha256="+webhookSignature([]byte(w.cfg.Secret), body))
 	resp, err := w.client.Do(req)
 	if err != nil {

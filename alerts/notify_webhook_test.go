@@ -17,6 +17,8 @@ import (
 	"sync"
 	"testing"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // hookReceiver is a webhook receiver as a site would write one: it checks
@@ -271,7 +273,7 @@ func TestWebhookTimeout(t *testing.T) {
 	}))
 	defer srv.Close()
 	defer close(release)
-	w, err := NewWebhook(WebhookConfig{Name: "slow", URL: srv.URL, Secret: "k", Timeout: Duration(50 * time.Millisecond)}, nil)
+	w, err := NewWebhook(WebhookConfig{Name: "slow", URL: srv.URL, Secret: "k", Timeout: model.Duration(50 * time.Millisecond)}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -299,7 +301,7 @@ func TestWebhookConfigErrors(t *testing.T) {
 		{"ftp url", func(c *WebhookConfig) { c.URL = "ftp://x/y" }, "webhooks[0].url", "http"},
 		{"no host", func(c *WebhookConfig) { c.URL = "http:///path" }, "webhooks[0].url", "no host"},
 		{"no secret", func(c *WebhookConfig) { c.Secret = "" }, "webhooks[0].secret", "HMAC"},
-		{"negative timeout", func(c *WebhookConfig) { c.Timeout = Duration(-time.Second) }, "webhooks[0].timeout", "positive"},
+		{"negative timeout", func(c *WebhookConfig) { c.Timeout = model.Duration(-time.Second) }, "webhooks[0].timeout", "positive"},
 		{"bad header name", func(c *WebhookConfig) { c.Headers = map[string]string{"X Site": "a"} }, "webhooks[0].headers.X Site", "header name"},
 		{"reserved header", func(c *WebhookConfig) { c.Headers = map[string]string{"x-cleanmon-signature": "a"} }, "webhooks[0].headers.x-cleanmon-signature", "may not be replaced"},
 		{"header line break", func(c *WebhookConfig) { c.Headers = map[string]string{"X-Site": "a\r\nX-Evil: 1"} }, "webhooks[0].headers.X-Site", "line breaks"},
@@ -342,8 +344,8 @@ func TestNotifyConfigSection(t *testing.T) {
 		{"name twice", NotifyConfig{Webhooks: []WebhookConfig{hook, hook}}, []string{"notifications.webhooks[1].name"}},
 		{"webhook named log", NotifyConfig{Log: true, Webhooks: []WebhookConfig{{Name: "log", URL: hook.URL, Secret: "k"}}}, []string{"notifications.webhooks[0].name"}},
 		{"two default alertmanagers", NotifyConfig{Alertmanagers: []AlertmanagerConfig{am, am}}, []string{"notifications.alertmanagers[1].name"}},
-		{"retry max below base", NotifyConfig{Retry: RetryConfig{Base: Duration(time.Minute), Max: Duration(time.Second)}}, []string{"notifications.retry.max"}},
-		{"negative retry", NotifyConfig{Retry: RetryConfig{Base: Duration(-1)}}, []string{"notifications.retry.base"}},
+		{"retry max below base", NotifyConfig{Retry: RetryConfig{Base: model.Duration(time.Minute), Max: model.Duration(time.Second)}}, []string{"notifications.retry.max"}},
+		{"negative retry", NotifyConfig{Retry: RetryConfig{Base: model.Duration(-1)}}, []string{"notifications.retry.base"}},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {

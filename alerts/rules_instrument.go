@@ -23,9 +23,9 @@ import (
 //     the sensor's MaxPa. Each cause is its own condition.
 //   - pressure-reversal: a DP below 0 across a sensor that must be
 //     positive: action at once.
-//   - pressure-low: a DP below MinPa, pending for Delay, then action. A
-//     shorter dip (a door opened and shut) leaves a pending alarm that is
-//     cleared and announced to nobody.
+//   - pressure-low: a DP below MinPa, delayed for Delay, then action. A
+//     shorter dip (a door opened and shut) leaves no alarm record: it is
+//     counted as a door opening of its sensor.
 //
 // Stale and instrument alarms are alerts, but actions in a grade A or B
 // zone, which EU GMP Annex 1 asks to be monitored continuously (from
@@ -130,6 +130,7 @@ func (e *Engine) judgeInstrument(t *txn, c *counterSpec, r *CounterReading) {
 func (e *Engine) judgePressure(t *txn, s *sensorSpec, p PressureObservation) {
 	st := e.sensorSt[s.ID]
 	if !p.Time.After(st.last) {
+		e.judgeLateReversal(t, s, p)
 		return
 	}
 	st = instrState{last: p.Time, live: true, pa: p.Pa}
@@ -176,4 +177,22 @@ func (e *Engine) judgePressureLow(t *txn, s *sensorSpec, at time.Time, pa float6
 	}
 	t.judge(condition{key: s.High + ":" + s.ID + ":" + KindPressureLow, present: low, level: LevelAction,
 		tmpl: a, since: at, at: at, delay: s.delay})
+}
+
+// judgeLateReversal judges a DP reading older than its sensor's newest: a
+// reversal it shows is raised as an episode of its own (ended at once, as a
+// newer reading came: the action latches until acknowledged), unless one
+// is open.
+func (e *Engine) judgeLateReversal(t *txn, s *sensorSpec, p PressureObservation) {
+	key := s.High + ":" + s.ID + ":" + KindPressureReversal
+	if !s.positive || p.Pa >= 0 {
+		return
+	}
+	_, wasOpen := e.conds[key]
+	a := Alarm{Zone: s.High, Sensor: s.ID, Kind: KindPressureReversal, Value: p.Pa, Unit: "Pa"}
+	a.Message = fmt.Sprintf("DP %s → %s (%s): %s Pa at %s (arrived late): air flowed from %s into %s", s.High, s.Low, s.ID, num(p.Pa), p.Time.UTC().Format(time.RFC3339), s.Low, s.High)
+	t.judge(condition{key: key, present: true, level: LevelAction, tmpl: a, since: p.Time, at: p.Time})
+	if !wasOpen {
+		t.judge(condition{key: key, present: false, tmpl: a, since: p.Time, at: p.Time})
+	}
 }

@@ -28,7 +28,7 @@ func TestExcursion(t *testing.T) {
 		{name: "alert escalates to action in place", values: []float64{150000, 300000}, open: 1, level: LevelAction, announced: 2, episodes: 1},
 		{name: "action then alert stays action", values: []float64{300000, 150000}, open: 1, level: LevelAction, announced: 1, episodes: 1},
 		{name: "action latches after the condition goes", values: []float64{300000, 50000}, open: 1, level: LevelAction, gone: true, announced: 1, episodes: 1},
-		{name: "condition back on a latched alarm", values: []float64{300000, 50000, 260000}, open: 1, level: LevelAction, announced: 1, episodes: 1},
+		{name: "an excursion after a return to normal is a new alarm while the first waits for its acknowledgement", values: []float64{300000, 50000, 260000}, open: 2, announced: 2, episodes: 2},
 		{name: "latching switched off for the kind", values: []float64{300000, 50000}, latch: map[string]bool{KindExcursion: false}, open: 0, announced: 2, episodes: 1},
 		{name: "latching switched on for alerts", values: []float64{150000, 50000}, latch: map[string]bool{KindExcursion: true}, open: 1, level: LevelAlert, gone: true, announced: 1, episodes: 1},
 		{name: "a new episode is a new alarm", values: []float64{150000, 50000, 150000}, open: 1, level: LevelAlert, announced: 3, episodes: 2},
@@ -201,7 +201,10 @@ func outOfClassAgrees(t *testing.T, shared bool) {
 }
 
 func TestOutOfClassClearsWhenTheWindowMovesOn(t *testing.T) {
-	h := newHarness(t, func(cfg *EngineConfig) { cfg.Latch = map[string]bool{KindOutOfClass: false} })
+	h := newHarness(t, func(cfg *EngineConfig) {
+		cfg.Latch = map[string]bool{KindOutOfClass: false}
+		cfg.Counters[0].MaxPerM3 = 0 // no stated maximum: the high reading is trusted
+	})
 	// One reading of 4 000 000 and one of 10 000: mean 2 005 000 > 352 000.
 	h.feed(reading("pc-asm-1", h.clk.Now(), 4_000_000, 0))
 	h.feed(reading("pc-asm-1", h.clk.Now(), 10000, 0))
@@ -219,33 +222,36 @@ func TestOutOfClassClearsWhenTheWindowMovesOn(t *testing.T) {
 
 func TestTrend(t *testing.T) {
 	// Counts in 28.3 L: the 5 µm channel alternates 8 and 12 (c̄ = 10 per
-	// sample, UCL = 10 + 3√10 ≈ 19.5, by hand); then a drift to 11 per
-	// sample, about 389 /m³, well below the alert level of 1 000 /m³. The
-	// 0.5 µm channel stays below its centre line.
+	// sample, spread 2, UCL = 10 + 3√10 ≈ 19.5, by hand). The line a rise
+	// must cross is the larger of 10 + 2·2 = 14 and halfway to the alert
+	// level of 1 000 /m³ (28.3 counts): 10 + (28.3 − 10)/2 = 19.15 counts.
+	// Then a steady rise 13, 16, … 28 counts (989 /m³, still below the
+	// alert level). The 0.5 µm channel stays flat.
 	perM3 := func(count float64) float64 { return count * 1000 / 28.3 }
-	const base, run = 20, 8
+	const base, run = 20, 6
+	rise := []float64{13, 16, 19, 22, 25, 28}
 	setup := func(t *testing.T) *harness {
 		h := newHarness(t, func(cfg *EngineConfig) { cfg.TrendBaseline, cfg.TrendRun = base, run })
-		for i := range base + run - 1 {
+		for i := range base {
 			c := 8.0
 			if i%2 == 1 {
 				c = 12
 			}
-			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500+c), perM3(c)))
+			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(c)))
 		}
 		return h
 	}
-	t.Run("a run of 8 above the centre line", func(t *testing.T) {
+	t.Run("a steady rise toward the alert level", func(t *testing.T) {
 		h := setup(t)
-		for i := range run {
+		for i, c := range rise {
 			if n := len(h.open(KindTrend)); n != 0 {
-				t.Fatalf("trend raised after %d samples of the run", i)
+				t.Fatalf("trend raised after %d samples of the rise", i)
 			}
-			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(11)))
+			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(c)))
 		}
 		a := h.one(KindTrend)
-		if a.Level != LevelAlert || *a.SizeUM != 5 || math.Abs(a.Threshold-perM3(10)) > 1e-9 {
-			t.Errorf("trend alarm %+v, want an alert at 5 µm against the centre line %v /m³", a, perM3(10))
+		if a.Level != LevelAlert || *a.SizeUM != 5 || math.Abs(a.Threshold-perM3(19.15)) > 1e-6 {
+			t.Errorf("trend alarm %+v, want an alert at 5 µm against %v /m³", a, perM3(19.15))
 		}
 		if !strings.Contains(a.Message, "UCL 19.5") {
 			t.Errorf("message %q should give the UCL 10 + 3√10 ≈ 19.5", a.Message)
@@ -255,34 +261,42 @@ func TestTrend(t *testing.T) {
 				t.Errorf("%d %s alarms: the trend should come before any level is crossed", n, kind)
 			}
 		}
-		// A sample at the centre line ends the run; trend alerts do not latch.
+		// It stays while the samples stay above the line, though the rise
+		// has stopped; a sample at or below the line ends it (no latch).
+		h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(27)))
+		h.one(KindTrend)
 		h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(9)))
 		if n := len(h.open(KindTrend)); n != 0 {
-			t.Fatalf("trend still open after the run ended")
+			t.Fatalf("trend still open after the samples fell back")
 		}
 	})
-	t.Run("a broken run raises nothing", func(t *testing.T) {
+	t.Run("a broken rise raises nothing", func(t *testing.T) {
 		h := setup(t)
-		for i := range 2 * run {
-			c := 11.0
-			if i == run-1 {
-				c = 10
-			}
+		for _, c := range []float64{13, 16, 19, 19, 22, 25, 28} {
 			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(c)))
-			if i == 2*run-3 && len(h.open(KindTrend)) != 0 {
-				t.Fatalf("trend raised on a broken run at sample %d", i)
-			}
+		}
+		if n := len(h.open(KindTrend)); n != 0 {
+			t.Fatal("trend raised on a broken rise")
+		}
+	})
+	t.Run("a rise that stays below the line raises nothing", func(t *testing.T) {
+		h := setup(t)
+		for _, c := range []float64{12.5, 13, 14, 15, 16, 17, 18} {
+			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(c)))
+		}
+		if n := len(h.open(KindTrend)); n != 0 {
+			t.Fatal("trend raised below the line")
 		}
 	})
 	t.Run("primed from history after a restart", func(t *testing.T) {
 		h := newHarness(t, func(cfg *EngineConfig) { cfg.TrendBaseline, cfg.TrendRun = base, run })
 		var hist []Observation
-		for i := range base + run - 1 {
+		for i := range base {
 			c := 8.0
 			if i%2 == 1 {
 				c = 12
 			}
-			hist = append(hist, reading("pc-asm-1", engT0.Add(time.Duration(i-base-run)*time.Minute), perM3(500+c), perM3(c)))
+			hist = append(hist, reading("pc-asm-1", engT0.Add(time.Duration(i-base)*time.Minute), perM3(500), perM3(c)))
 		}
 		if err := h.e.Prime(hist); err != nil {
 			t.Fatal(err)
@@ -290,8 +304,8 @@ func TestTrend(t *testing.T) {
 		if n := len(h.j.records(nil)); n != 0 {
 			t.Fatalf("Prime journaled %d transitions", n)
 		}
-		for range run {
-			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(11)))
+		for _, c := range rise {
+			h.feed(reading("pc-asm-1", h.clk.Now(), perM3(500), perM3(c)))
 		}
 		h.one(KindTrend)
 	})
@@ -450,7 +464,7 @@ func TestPressure(t *testing.T) {
 			h.clk.Advance(time.Second)
 			h.tick()
 		}
-		if a := h.one(KindPressureLow); a.State != StatePending {
+		if a := h.one(KindPressureLow); a.State != StateDelayed {
 			t.Fatalf("during the delay: %+v", a)
 		}
 		h.pressure("dp-asm", 11)
@@ -460,9 +474,11 @@ func TestPressure(t *testing.T) {
 		if n := len(h.j.announced(KindPressureLow)); n != 0 {
 			t.Errorf("%d pressure-low transitions went to the notifiers", n)
 		}
-		q := h.j.quiet(KindPressureLow)
-		if len(q) != 2 || q[0].T.To != StatePending || q[1].T.From != StatePending || q[1].T.To != StateCleared {
-			t.Errorf("journal %+v, want pending then cleared, both with no notifier", q)
+		if q := h.j.quiet(KindPressureLow); len(q) != 0 {
+			t.Errorf("journal %+v, want no record of a dip shorter than its delay", q)
+		}
+		if n := h.e.DoorOpenings()["dp-asm"]; n != 1 {
+			t.Errorf("door openings of dp-asm %d, want 1", n)
 		}
 	})
 	t.Run("a DP low for longer than the delay", func(t *testing.T) {
@@ -472,7 +488,7 @@ func TestPressure(t *testing.T) {
 		h.clk.Advance(29 * time.Second)
 		h.pressure("dp-asm", 3)
 		h.tick()
-		if a := h.one(KindPressureLow); a.State != StatePending {
+		if a := h.one(KindPressureLow); a.State != StateDelayed {
 			t.Fatalf("before the delay ran out: %+v", a)
 		}
 		h.clk.Advance(time.Second)
@@ -482,7 +498,7 @@ func TestPressure(t *testing.T) {
 			t.Fatalf("after the delay: %+v", a)
 		}
 		ann := h.j.announced(KindPressureLow)
-		if len(ann) != 1 || ann[0].T.From != StatePending || ann[0].T.To != StateActive || len(ann[0].Notifiers) != 2 {
+		if len(ann) != 1 || ann[0].T.From != "" || ann[0].T.To != StateActive || len(ann[0].Notifiers) != 2 {
 			t.Fatalf("announced %+v", ann)
 		}
 		h.clk.Advance(10 * time.Second)
@@ -499,7 +515,7 @@ func TestPressure(t *testing.T) {
 		h := newHarness(t, nil)
 		h.pressureAt("dp-asm", 3, h.clk.Now().Add(-time.Hour))
 		h.tick()
-		if a := h.one(KindPressureLow); a.State != StatePending {
+		if a := h.one(KindPressureLow); a.State != StateDelayed {
 			t.Fatalf("replayed dip before its recovery: %+v", a)
 		}
 		h.pressureAt("dp-asm", 11, h.clk.Now().Add(-time.Hour+10*time.Second))
@@ -512,7 +528,7 @@ func TestPressure(t *testing.T) {
 		h.pressure("dp-gown", 2)
 		h.clk.Advance(59 * time.Second)
 		h.pressure("dp-gown", 2)
-		if h.one(KindPressureLow).State != StatePending {
+		if h.one(KindPressureLow).State != StateDelayed {
 			t.Fatal("dp-gown active before its 1m delay")
 		}
 		h.clk.Advance(time.Second)
@@ -556,8 +572,8 @@ func TestMaintenance(t *testing.T) {
 	if last.T.To != StateCleared || last.T.Alarm.Location != "asm-1" || !strings.Contains(last.T.Comment, "maintenance") {
 		t.Fatalf("the alert's clearing: %+v", last.T)
 	}
-	// In maintenance: readings above every level raise nothing, but are
-	// recorded once per condition as suppressed.
+	// In maintenance: readings above every level raise nothing.
+	entered := h.clk.Now()
 	before := len(h.j.announced(""))
 	for range 5 {
 		o := reading("pc-asm-1", h.clk.Now(), 400000, 0)
@@ -574,17 +590,12 @@ func TestMaintenance(t *testing.T) {
 	if n := len(h.j.announced("")) - before; n != 0 {
 		t.Errorf("%d transitions announced in maintenance", n)
 	}
-	sup := map[string]int{}
-	for _, r := range h.j.quiet("") {
-		if strings.HasPrefix(r.T.Comment, "suppressed") {
-			sup[r.T.Alarm.Kind]++
-			if r.T.To != StateCleared || !strings.Contains(r.T.Alarm.Message, "maintenance") {
-				t.Errorf("suppressed record %+v", r.T)
-			}
+	// Readings taken in maintenance are kept, not judged: no record of a
+	// particle rule at all, not even a suppressed one.
+	for _, r := range h.j.records(nil) {
+		if r.T.Time.After(entered) && suppressible(r.T.Alarm.Kind) {
+			t.Errorf("a particle rule judged a maintenance reading: %+v", r.T)
 		}
-	}
-	if sup[KindExcursion] != 1 || sup[KindConsecutive] != 1 || sup[KindOutOfClass] != 1 {
-		t.Errorf("suppressed records %v, want one each for excursion, consecutive and out-of-class", sup)
 	}
 	// Instrument and pressure rules keep running.
 	f := reading("pc-asm-1", h.clk.Now(), 1000, 0)

@@ -8,9 +8,9 @@ import (
 	"strings"
 	"time"
 
-	"go.yaml.in/yaml/v3"
-
 	"cleanmon/classify"
+
+	"github.com/prometheus/common/model"
 )
 
 // Operating states of a zone (DESIGN.md §4). Maintenance is only ever set at
@@ -34,26 +34,6 @@ var (
 	ErrOperatingState = errors.New("alerts: invalid operating state")
 )
 
-// Duration is a YAML duration written as Go spells it ("30s", "10m", "1h").
-type Duration time.Duration
-
-// UnmarshalYAML reads a duration string.
-func (d *Duration) UnmarshalYAML(n *yaml.Node) error {
-	var s string
-	if err := n.Decode(&s); err != nil {
-		return fmt.Errorf("want a duration such as \"10m\": %w", err)
-	}
-	v, err := time.ParseDuration(strings.TrimSpace(s))
-	if err != nil {
-		return fmt.Errorf("%q is not a duration such as \"10m\" or \"1h\"", s)
-	}
-	*d = Duration(v)
-	return nil
-}
-
-// MarshalYAML writes the duration back in the form it is read.
-func (d Duration) MarshalYAML() (any, error) { return time.Duration(d).String(), nil }
-
 // ZoneConfig is one zone of the site configuration (the `zones:` list).
 // A zone has an ISO 14644-1 class, or an EU GMP grade, or neither (an
 // unclassified reference area such as a corridor), never both.
@@ -76,10 +56,14 @@ type ZoneConfig struct {
 	// Sizes are the threshold sizes in µm the zone is judged at.
 	Sizes []string `yaml:"sizes"`
 	// Window is the span of the rolling mean (default 10m).
-	Window Duration `yaml:"window"`
+	Window model.Duration `yaml:"window"`
 	// StaleAfter is how long a location may go without a reading and
 	// still count as fresh (default 3m).
-	StaleAfter Duration `yaml:"stale_after"`
+	StaleAfter model.Duration `yaml:"stale_after"`
+	// CleanUp is the clean-up period after a switch to at-rest (default
+	// DefaultCleanUp): meanwhile the zone is judged against the limits of
+	// the state before, and its at-rest window starts after it.
+	CleanUp model.Duration `yaml:"clean_up"`
 	// Levels are the monitoring levels per size (keyed like "0.5"). Left
 	// out, the action level is the class limit and there is no alert level.
 	Levels    map[string]Levels `yaml:"levels"`
@@ -136,6 +120,7 @@ type zoneSpec struct {
 	sizes    []float64
 	window   time.Duration
 	stale    time.Duration
+	cleanUp  time.Duration
 	base     string                 // configured operating state
 	limits   map[string][]SizeLimit // by at-rest / in-operation
 	hasLimit bool                   // some size has a specified limit
@@ -174,7 +159,7 @@ func compileZone(z ZoneConfig, p string) (*zoneSpec, []FieldError) {
 	bad := func(field, format string, a ...any) {
 		errs = append(errs, FieldError{p + field, fmt.Sprintf(format, a...)})
 	}
-	s := &zoneSpec{cfg: z, edition: classify.Edition2015, window: DefaultWindow, stale: DefaultStaleAfter}
+	s := &zoneSpec{cfg: z, edition: classify.Edition2015, window: DefaultWindow, stale: DefaultStaleAfter, cleanUp: DefaultCleanUp}
 
 	if strings.TrimSpace(z.ID) == "" {
 		bad(".id", "missing: every zone needs an id")
@@ -247,6 +232,12 @@ func compileZone(z ZoneConfig, p string) (*zoneSpec, []FieldError) {
 		bad(".stale_after", "%s: must be positive", time.Duration(z.StaleAfter))
 	} else if z.StaleAfter > 0 {
 		s.stale = time.Duration(z.StaleAfter)
+	}
+
+	if z.CleanUp < 0 {
+		bad(".clean_up", "%s: must be positive", time.Duration(z.CleanUp))
+	} else if z.CleanUp > 0 {
+		s.cleanUp = time.Duration(z.CleanUp)
 	}
 
 	seenSize := map[float64]bool{}

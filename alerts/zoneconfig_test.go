@@ -5,6 +5,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/prometheus/common/model"
 	"go.yaml.in/yaml/v3"
 )
 
@@ -30,7 +31,9 @@ func TestValidateZones(t *testing.T) {
 		{"bad edition", func(z *ZoneConfig) { z.Edition = "2020" }, "zones[0].edition", "2015 or 1999"},
 		{"no area", func(z *ZoneConfig) { z.AreaM2 = 0 }, "zones[0].area_m2", "missing"},
 		{"negative area", func(z *ZoneConfig) { z.AreaM2 = -1 }, "zones[0].area_m2", "positive"},
-		{"negative window", func(z *ZoneConfig) { z.Window = Duration(-time.Minute) }, "zones[0].window", "positive"},
+		{"negative window", func(z *ZoneConfig) { z.Window = model.Duration(-time.Minute) }, "zones[0].window", "positive"},
+		{"negative clean-up", func(z *ZoneConfig) { z.CleanUp = model.Duration(-time.Minute) }, "zones[0].clean_up", "positive"},
+		{"own clean-up", func(z *ZoneConfig) { z.CleanUp = model.Duration(15 * time.Minute) }, "", ""},
 		{"no sizes", func(z *ZoneConfig) { z.Sizes = nil; z.Levels = nil }, "zones[0].sizes", "missing"},
 		{"bad size", func(z *ZoneConfig) { z.Sizes = []string{"0.5", "7"} }, "zones[0].sizes[1]", "outside"},
 		{"size twice", func(z *ZoneConfig) { z.Sizes = []string{"0.5", "0.50"} }, "zones[0].sizes[1]", "twice"},
@@ -101,7 +104,7 @@ func TestLevelsInForce(t *testing.T) {
 
 func TestDurationYAML(t *testing.T) {
 	var v struct {
-		W Duration `yaml:"w"`
+		W model.Duration `yaml:"w"`
 	}
 	if err := yaml.Unmarshal([]byte("w: 90s"), &v); err != nil || time.Duration(v.W) != 90*time.Second {
 		t.Fatalf("%v %v", v.W, err)

@@ -3,6 +3,7 @@ package alerts
 import (
 	"fmt"
 	"math"
+	"slices"
 	"sort"
 	"strings"
 	"sync"
@@ -58,6 +59,24 @@ type Observation struct {
 	// PerM3 is the cumulative concentration, particles/m³, aligned with
 	// Sizes.
 	PerM3 []float64
+	// Untrusted, when set, says why the reading is not trusted (fault
+	// status, at or beyond the counter's maximum, flow off its nominal):
+	// it is kept and shown, but left out of every mean, and its location
+	// is unknown until a trusted reading follows. CounterSpec.Judge sets it.
+	Untrusted string
+}
+
+// untrustedReason is why a reading cannot be used in a mean, "" if it can.
+func (o *Observation) untrustedReason() string {
+	switch {
+	case o.Untrusted != "":
+		return o.Untrusted
+	case o.Status == StatusFault:
+		return "the counter reports status fault"
+	case !(o.VolumeL > 0):
+		return "no sampled volume"
+	}
+	return ""
 }
 
 // Binding places a counter at a sampling location of a zone.
@@ -102,13 +121,17 @@ type ZoneView struct {
 	StateReason    string
 	StateSince     time.Time
 	// LimitsState is the operating state whose limits apply: the current
-	// one, or in maintenance the state the zone ran in before.
+	// one, or during a clean-up period and in maintenance the state the
+	// zone ran in before.
 	LimitsState string
-	State       ZoneStatus
-	Limits      []SizeLimit
-	Locations   []LocationView
-	Window      time.Duration
-	StaleAfter  time.Duration
+	// CleanUpUntil is set while the clean-up period after a switch to
+	// at-rest runs; the at-rest window starts when it ends.
+	CleanUpUntil time.Time
+	State        ZoneStatus
+	Limits       []SizeLimit
+	Locations    []LocationView
+	Window       time.Duration
+	StaleAfter   time.Duration
 	// Notes explain anything that qualifies State (maintenance, stale
 	// locations, sizes without a limit).
 	Notes []string
@@ -132,7 +155,12 @@ type LocationView struct {
 	Samples   int
 	// Fresh: a trusted reading came within StaleAfter.
 	Fresh bool
-	State ZoneStatus
+	// Trusted is false while the newest reading is not trusted; Untrusted
+	// then says why. The location is unknown until a trusted reading
+	// follows.
+	Trusted   bool
+	Untrusted string
+	State     ZoneStatus
 }
 
 // ZoneTracker keeps the live state of every zone. It is safe for
@@ -165,7 +193,7 @@ type ZoneTracker struct {
 type liveZone struct {
 	spec   *zoneSpec
 	op     OperatingChange
-	base   string // limits state
+	hist   []OperatingChange // every change, in time order
 	locs   []*liveLocation
 	byLocs map[string]*liveLocation
 }
@@ -177,6 +205,10 @@ type liveLocation struct {
 	latest  *Observation
 	samples []sample // ascending by time
 	fresh   time.Time
+	// untrusted is the newest untrusted reading's time and reason; it
+	// makes the location unknown unless a trusted reading is newer.
+	untrustedAt time.Time
+	untrusted   string
 }
 
 type sample struct {
@@ -210,7 +242,7 @@ func NewZoneTracker(zones []ZoneConfig, bindings []Binding, opt ZoneTrackerOptio
 		t.maxSamples = DefaultMaxSamples
 	}
 	for _, s := range specs {
-		z := &liveZone{spec: s, base: s.base, byLocs: map[string]*liveLocation{}}
+		z := &liveZone{spec: s, byLocs: map[string]*liveLocation{}}
 		z.op = OperatingChange{Zone: s.cfg.ID, State: s.base}
 		for _, lc := range s.cfg.Locations {
 			l := &liveLocation{zone: z, cfg: lc}
@@ -260,7 +292,10 @@ func (l *liveLocation) observe(o *Observation, now time.Time, max int) {
 		cp.PerM3 = append([]float64(nil), o.PerM3...)
 		l.latest = &cp
 	}
-	if o.Status == StatusFault || !(o.VolumeL > 0) {
+	if why := o.untrustedReason(); why != "" {
+		if o.Time.After(l.untrustedAt) {
+			l.untrustedAt, l.untrusted = o.Time, why
+		}
 		return
 	}
 	spec := l.zone.spec
@@ -402,10 +437,54 @@ func (t *ZoneTracker) RestoreOperatingState(ch OperatingChange) error {
 }
 
 func (z *liveZone) apply(ch OperatingChange) {
-	if ch.State != Maintenance {
-		z.base = ch.State
+	at := sort.Search(len(z.hist), func(i int) bool { return z.hist[i].Time.After(ch.Time) })
+	z.hist = slices.Insert(z.hist, at, ch)
+	if at == len(z.hist)-1 {
+		z.op = ch
 	}
-	z.op = ch
+}
+
+// stateAt is the zone's operating state at a time.
+func (z *liveZone) stateAt(at time.Time) StateAt {
+	return OperatingAt(z.spec.base, z.hist, z.spec.cleanUp, at)
+}
+
+// OperatingAt tells which operating state and limits applied to a zone at
+// a time (StateAt's zero value for an unknown zone).
+func (t *ZoneTracker) OperatingAt(zone string, at time.Time) StateAt {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	z, ok := t.byID[zone]
+	if !ok {
+		return StateAt{}
+	}
+	return z.stateAt(at)
+}
+
+// LimitsAt returns the limits and levels in force in a zone at a time,
+// with the state they belong to.
+func (t *ZoneTracker) LimitsAt(zone string, at time.Time) ([]SizeLimit, StateAt, bool) {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	z, ok := t.byID[zone]
+	if !ok {
+		return nil, StateAt{}, false
+	}
+	st := z.stateAt(at)
+	return slices.Clone(z.spec.limits[st.Limits]), st, true
+}
+
+// History returns a zone's operating-state changes, in time order, and
+// its configured state and clean-up period: what OperatingAt needs to
+// judge stored readings by the state of their time.
+func (t *ZoneTracker) History(zone string) (initial string, changes []OperatingChange, cleanUp time.Duration, ok bool) {
+	t.mu.Lock()
+	defer t.mu.Unlock()
+	z, ok := t.byID[zone]
+	if !ok {
+		return "", nil, 0, false
+	}
+	return z.spec.base, slices.Clone(z.hist), z.spec.cleanUp, true
 }
 
 func (z *liveZone) view(now time.Time) ZoneView { return z.partView(now, nil) }
@@ -416,17 +495,19 @@ func (z *liveZone) view(now time.Time) ZoneView { return z.partView(now, nil) }
 // without recomputing a zone of thousands of locations for every batch.
 func (z *liveZone) partView(now time.Time, only map[string]bool) ZoneView {
 	s := z.spec
+	st := z.stateAt(now)
 	v := ZoneView{
 		ID:             s.cfg.ID,
 		Name:           s.cfg.Name,
 		Grade:          s.grade,
 		AreaM2:         s.cfg.AreaM2,
 		Sizes:          append([]float64(nil), s.sizes...),
-		OperatingState: z.op.State,
+		OperatingState: st.Operating,
 		StateBy:        z.op.By,
 		StateReason:    z.op.Reason,
 		StateSince:     z.op.Time,
-		LimitsState:    z.base,
+		LimitsState:    st.Limits,
+		CleanUpUntil:   st.CleanUpUntil,
 		Window:         s.window,
 		StaleAfter:     s.stale,
 		At:             now,
@@ -436,7 +517,7 @@ func (z *liveZone) partView(now time.Time, only map[string]bool) ZoneView {
 		v.Class = &c
 		v.Edition = string(s.edition)
 	}
-	limits := s.limits[z.base]
+	limits := s.limits[st.Limits]
 	v.Limits = make([]SizeLimit, len(limits))
 	copy(v.Limits, limits)
 	anyLimit := false
@@ -444,51 +525,61 @@ func (z *liveZone) partView(now time.Time, only map[string]bool) ZoneView {
 		if sl.Limit != nil {
 			anyLimit = true
 		} else if s.hasClass || s.grade != "" {
-			v.Notes = append(v.Notes, fmt.Sprintf("no %s limit at %s µm: %s", s.describeAt(z.base), classify.FormatSize(sl.SizeUM), strings.TrimPrefix(sl.Note, "no limit: ")))
+			v.Notes = append(v.Notes, fmt.Sprintf("no %s limit at %s µm: %s", s.describeAt(st.Limits), classify.FormatSize(sl.SizeUM), strings.TrimPrefix(sl.Note, "no limit: ")))
 		}
 	}
 
 	if !s.hasClass && s.grade == "" {
 		v.Notes = append(v.Notes, "unclassified area: no class or grade to be in")
 	}
+	from := window{after: now.Add(-s.window), since: st.Since}
+	from.maint = z.maintenanceAfter(from.after)
 	worst, fresh := StatusInClass, 0
 	for _, l := range z.locs {
 		if only != nil && !only[l.cfg.ID] {
 			continue
 		}
-		lv := l.view(now, limits)
-		if lv.Fresh {
+		lv := l.view(now, from, limits)
+		switch {
+		case lv.Fresh:
 			fresh++
 			if lv.State.rank() > worst.rank() {
 				worst = lv.State
 			}
-		} else if lv.Time.IsZero() {
+		case !lv.Trusted:
+			v.Notes = append(v.Notes, fmt.Sprintf("location %s: newest reading not trusted (%s)", l.cfg.ID, lv.Untrusted))
+		case lv.Time.IsZero():
 			v.Notes = append(v.Notes, fmt.Sprintf("location %s: no reading yet", l.cfg.ID))
-		} else {
+		default:
 			v.Notes = append(v.Notes, fmt.Sprintf("location %s: no trusted reading at every zone size within %s (latest %s)", l.cfg.ID, s.stale, lv.Time.UTC().Format(time.RFC3339)))
 		}
 		v.Locations = append(v.Locations, lv)
 	}
-	switch {
-	case len(z.locs) == 0:
-		v.State = StatusUnknown
-		v.Notes = append(v.Notes, "no sampling location")
-	case fresh == 0:
-		v.State = StatusUnknown
-	case worst == StatusInClass && fresh < len(z.locs):
-		v.State = StatusUnknown
-	case worst == StatusInClass && !anyLimit:
-		v.State = StatusUnknown
-		if s.hasClass || s.grade != "" {
-			v.Notes = append(v.Notes, "no limit to be in at this operating state: only alert and action levels are judged")
-		}
-	default:
-		v.State = worst
+	v.State = zoneStatus(len(z.locs), fresh, worst, anyLimit, st.Judged)
+	if worst == StatusInClass && fresh == len(z.locs) && !anyLimit && st.Judged && (s.hasClass || s.grade != "") {
+		v.Notes = append(v.Notes, "no limit to be in at this operating state: only alert and action levels are judged")
 	}
-	if z.op.State == Maintenance {
-		v.Notes = append(v.Notes, fmt.Sprintf("in maintenance (by %s: %s): readings are recorded and judged against the %s limits; excursion alarms are suppressed", z.op.By, z.op.Reason, z.base))
+	if len(z.locs) == 0 {
+		v.Notes = append(v.Notes, "no sampling location")
+	}
+	if !st.CleanUpUntil.IsZero() {
+		v.Notes = append(v.Notes, fmt.Sprintf("clean-up after the switch to at-rest until %s: judged against the %s limits meanwhile", st.CleanUpUntil.UTC().Format(time.RFC3339), st.Limits))
+	}
+	if !st.Judged {
+		v.Notes = append(v.Notes, fmt.Sprintf("in maintenance (by %s: %s): readings are recorded but not judged; the zone's state is unknown until it leaves maintenance", z.op.By, z.op.Reason))
 	}
 	return v
+}
+
+// zoneStatus is the fail-safe rule from the locations to the zone.
+func zoneStatus(locs, fresh int, worst ZoneStatus, anyLimit, judged bool) ZoneStatus {
+	switch {
+	case !judged, locs == 0, fresh == 0:
+		return StatusUnknown
+	case worst == StatusInClass && (fresh < locs || !anyLimit):
+		return StatusUnknown
+	}
+	return worst
 }
 
 func (s *zoneSpec) describeAt(state string) string {
@@ -498,9 +589,51 @@ func (s *zoneSpec) describeAt(state string) string {
 	return "grade " + s.grade + " " + state
 }
 
-func (l *liveLocation) view(now time.Time, limits []SizeLimit) LocationView {
+// window is the span of a rolling mean: after the start of the window and
+// from the start of the limits regime in force, outside maintenance.
+type window struct {
+	after, since time.Time
+	maint        [][2]time.Time // maintenance spans [from, to); to zero: still on
+}
+
+func (w window) holds(t time.Time) bool {
+	if !t.After(w.after) || t.Before(w.since) {
+		return false
+	}
+	for _, m := range w.maint {
+		if !t.Before(m[0]) && (m[1].IsZero() || t.Before(m[1])) {
+			return false
+		}
+	}
+	return true
+}
+
+// maintenanceAfter lists the maintenance spans that reach past a time.
+func (z *liveZone) maintenanceAfter(after time.Time) [][2]time.Time {
+	k := sort.Search(len(z.hist), func(i int) bool { return z.hist[i].Time.After(after) }) - 1
+	var out [][2]time.Time
+	for i := max(k, 0); i < len(z.hist); i++ {
+		if z.hist[i].State != Maintenance || i > 0 && z.hist[i-1].State == Maintenance && i-1 >= max(k, 0) {
+			continue
+		}
+		span := [2]time.Time{z.hist[i].Time}
+		for j := i + 1; j < len(z.hist); j++ {
+			if z.hist[j].State != Maintenance {
+				span[1] = z.hist[j].Time
+				break
+			}
+		}
+		out = append(out, span)
+	}
+	return out
+}
+
+func (l *liveLocation) view(now time.Time, from window, limits []SizeLimit) LocationView {
 	spec := l.zone.spec
-	lv := LocationView{ID: l.cfg.ID, Name: l.cfg.Name, Counter: l.counter, State: StatusUnknown}
+	lv := LocationView{ID: l.cfg.ID, Name: l.cfg.Name, Counter: l.counter, State: StatusUnknown, Trusted: true}
+	if l.untrusted != "" && !l.fresh.After(l.untrustedAt) {
+		lv.Trusted, lv.Untrusted = false, l.untrusted
+	}
 	if l.latest != nil {
 		lv.Counter = l.latest.Counter
 		lv.Time = l.latest.Time
@@ -513,8 +646,16 @@ func (l *liveLocation) view(now time.Time, limits []SizeLimit) LocationView {
 		}
 	}
 	l.prune(now)
-	lv.Samples = len(l.samples)
-	if len(l.samples) == 0 {
+	// The window of the regime in force, without readings taken in
+	// maintenance.
+	in := make([]sample, 0, len(l.samples))
+	for _, s := range l.samples {
+		if from.holds(s.t) {
+			in = append(in, s)
+		}
+	}
+	lv.Samples = len(in)
+	if len(in) == 0 {
 		return lv
 	}
 	lv.MeanPerM3 = make(map[string]float64, len(spec.sizes))
@@ -523,7 +664,7 @@ func (l *liveLocation) view(now time.Time, limits []SizeLimit) LocationView {
 	for i, size := range spec.sizes {
 		var sum float64
 		n := 0
-		for _, s := range l.samples {
+		for _, s := range in {
 			if !math.IsNaN(s.perM3[i]) {
 				sum += s.perM3[i]
 				n++
@@ -549,7 +690,7 @@ func (l *liveLocation) view(now time.Time, limits []SizeLimit) LocationView {
 			state = st
 		}
 	}
-	lv.Fresh = complete && !l.fresh.IsZero() && now.Sub(l.fresh) <= spec.stale
+	lv.Fresh = complete && lv.Trusted && !l.fresh.IsZero() && now.Sub(l.fresh) <= spec.stale
 	if lv.Fresh {
 		lv.State = state
 	}

@@ -6,6 +6,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // fakeClock is the injectable clock of the tests.
@@ -23,7 +25,7 @@ func fp(v float64) *float64 { return &v }
 func assemblyZone() ZoneConfig {
 	return ZoneConfig{
 		ID: "assembly", Name: "Assembly hall", Class: fp(7), OperatingState: InOperation, AreaM2: 60,
-		Sizes: []string{"0.5", "5"}, Window: Duration(10 * time.Minute), StaleAfter: Duration(3 * time.Minute),
+		Sizes: []string{"0.5", "5"}, Window: model.Duration(10 * time.Minute), StaleAfter: model.Duration(3 * time.Minute),
 		Levels:    map[string]Levels{"0.5": {Alert: fp(100000), Action: fp(250000)}},
 		Locations: []LocationConfig{{ID: "asm-1"}, {ID: "asm-2"}},
 	}
@@ -187,22 +189,31 @@ func TestOperatingStateChangesLimits(t *testing.T) {
 	}
 	var persisted []OperatingChange
 	persist := func(ch OperatingChange) error { persisted = append(persisted, ch); return nil }
+	clk.Advance(time.Second)
 	v, err := tr.SetOperatingState(OperatingChange{Zone: "fill", State: InOperation, By: "j.marsh", Reason: "shift start"}, persist)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if v.State != StatusInClass || *v.Limits[0].Limit != 352000 || v.OperatingState != InOperation {
+	// The in-operation window starts at the switch: the at-rest reading
+	// is not judged against in-operation limits.
+	if v.State != StatusUnknown || *v.Limits[0].Limit != 352000 || v.OperatingState != InOperation {
 		t.Fatalf("in operation: %s %v %s", v.State, *v.Limits[0].Limit, v.OperatingState)
+	}
+	clk.t = clk.t.Add(time.Minute)
+	tr.Observe(obs("pc-f", clk.t, 10000, 10))
+	if v, _ = tr.Zone("fill"); v.State != StatusInClass {
+		t.Fatalf("in operation after a reading: %s", v.State)
 	}
 	if len(persisted) != 1 || persisted[0].Time.IsZero() || persisted[0].By != "j.marsh" {
 		t.Fatalf("persisted %+v", persisted)
 	}
-	// Maintenance keeps judging against the limits of the state before.
+	// Maintenance judges nothing: the zone is unknown, the limits shown
+	// are those of the state before.
 	v, err = tr.SetOperatingState(OperatingChange{Zone: "fill", State: Maintenance, By: "j.marsh", Reason: "filter change"}, persist)
 	if err != nil {
 		t.Fatal(err)
 	}
-	if v.OperatingState != Maintenance || v.LimitsState != InOperation || v.State != StatusInClass {
+	if v.OperatingState != Maintenance || v.LimitsState != InOperation || v.State != StatusUnknown {
 		t.Fatalf("maintenance: %s limits %s state %s", v.OperatingState, v.LimitsState, v.State)
 	}
 	if !strings.Contains(strings.Join(v.Notes, "|"), "maintenance") {
@@ -362,4 +373,41 @@ func BenchmarkObserve(b *testing.B) {
 		clk.Advance(time.Second)
 	}
 	b.ReportMetric(float64(b.N*len(batch))/b.Elapsed().Seconds(), "readings/s")
+}
+
+// Readings taken in maintenance stay out of every mean, also of the
+// clean-up that follows it, which is judged against the limits of the
+// state before the maintenance.
+func TestMaintenanceReadingsLeftOutOfTheMean(t *testing.T) {
+	clk := &fakeClock{t: t0}
+	z := gradeB()
+	z.OperatingState = InOperation
+	tr := newTracker(t, clk, []ZoneConfig{z}, []Binding{{"pc-f", "fill", "f-1"}})
+	set := func(state string) {
+		t.Helper()
+		if _, err := tr.SetOperatingState(OperatingChange{Zone: "fill", State: state, By: "l.berg", Reason: "test"}, nil); err != nil {
+			t.Fatal(err)
+		}
+	}
+	step := func(p05 float64) {
+		tr.Observe(obs("pc-f", clk.t, p05, 0))
+		clk.Advance(time.Minute)
+	}
+	step(10000)
+	step(20000)
+	set(Maintenance)
+	step(900000) // a filter change: kept, not judged
+	step(800000)
+	set(AtRest)
+	step(30000)
+	v, _ := tr.Zone("fill")
+	if v.LimitsState != InOperation || v.CleanUpUntil.IsZero() {
+		t.Fatalf("clean-up: limits %s until %s", v.LimitsState, v.CleanUpUntil)
+	}
+	// (10 000 + 20 000 + 30 000) / 3 = 20 000 /m³, in class against the
+	// grade B in-operation 352 000 /m³ (EU GMP Annex 1 (2022), from memory).
+	l := v.Locations[0]
+	if l.Samples != 3 || l.MeanPerM3["0.5"] != 20000 || v.State != StatusInClass {
+		t.Errorf("location %+v, zone %s: want the mean of the three judged readings", l, v.State)
+	}
 }

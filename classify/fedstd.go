@@ -47,3 +47,15 @@ func FEDFromISO(class float64) (perFt3 float64, name float64, err error) {
 	}
 	return perFt3, 0, nil
 }
+
+// FEDLabel is the FED-STD-209E English class an ISO class matches by its
+// ≥0.5 µm limit, written "Class 100", or "" when it matches none of the
+// six. The standard was cancelled in 2001; the label is for reading old
+// specifications only.
+func FEDLabel(class float64) string {
+	_, name, err := FEDFromISO(class)
+	if err != nil || name == 0 {
+		return ""
+	}
+	return "Class " + groupThousands(name)
+}

@@ -39,7 +39,7 @@ const (
 type gmpRow struct{ p05, p5 float64 } // 0 = not specified / not predetermined
 
 // EU GMP Annex 1 (2022), Table 1 (classification) and the monitoring
-// table, particles/m³ at ≥0.5 µm / ≥5 µm, as recalled in DESIGN.md §3.
+// table, particles/m³ at ≥0.5 µm / ≥5 µm, from memory.
 var gmpClassification = map[string]map[string]gmpRow{
 	"A": {AtRest: {3520, 0}, InOperation: {3520, 0}},
 	"B": {AtRest: {3520, 0}, InOperation: {352000, 2930}},

@@ -36,7 +36,8 @@ var (
 // Limit is one cell of a limit table: a maximum concentration in
 // particles/m³, or a cell the table leaves blank. A blank cell is not zero
 // and not infinity: the standard gives no limit there, and Note says why so
-// that the caller can refuse or warn.
+// that the caller can refuse or warn. A specified limit may carry a Note
+// too (NoteFormula) when no table shows it.
 type Limit struct {
 	PerM3     float64 `json:"per_m3"`
 	Specified bool    `json:"specified"`
@@ -44,14 +45,63 @@ type Limit struct {
 }
 
 // Reasons a cell of ISO 14644-1 Table 1 is blank. The wording is ours; the
-// grounds are the footnotes of the 2015 edition's Table 1.
+// grounds are the footnotes of the 2015 edition's Table 1 (from memory).
 const (
-	noteLowConcentration  = "no limit: at this low concentration sampling and statistics do not support classification"
-	noteLargeParticles    = "no limit: particles above 1 µm at this low concentration are lost in sampling lines, so classification at this size is not appropriate"
-	noteMacroparticle     = "no limit: ≥5 µm at ISO 5 is specified only through the macroparticle (M) descriptor"
-	noteHighConcentration = "no limit: concentrations are too high for particle counters at this size"
-	noteLegacyBlank       = "no limit: the 1999 table gives no value for this cell"
+	noteLowConcentration  = "no limit: at this low concentration sampling and statistics do not support classification (ISO 14644-1:2015 Table 1, footnote)"
+	noteLargeParticles    = "no limit: particles above 1 µm at this low concentration are lost in sampling lines, so classification at this size is not appropriate (ISO 14644-1:2015 Table 1, footnote)"
+	noteMacroparticle     = "no limit: ≥5 µm at ISO 5 is specified only through the macroparticle (M) descriptor (ISO 14644-1:2015 Table 1, footnote; Annex C)"
+	noteHighConcentration = "no limit: concentrations are too high for particle counters at this size (ISO 14644-1:2015 Table 1, footnote)"
+	noteLegacyBlank       = "no limit: ISO 14644-1:1999 Table 1 gives no value for this cell"
 )
+
+// NoteFormula marks a limit that no published table shows (an intermediate
+// class or a size between the tables' columns): it is the class formula
+// with the tables' rounding, as the standard allows, and no blank is
+// invented for it.
+const NoteFormula = "by the class formula: ISO 14644-1 Table 1 shows no cell for this class and size"
+
+// table1Sizes are the columns of ISO 14644-1 Table 1 (both editions), in µm.
+var table1Sizes = []float64{0.1, 0.2, 0.3, 0.5, 1, 5}
+
+// tableBlank2015 and tableBlank1999 list, per integer class, the columns
+// (indexes into table1Sizes) that the published Table 1 leaves blank, with
+// the reason. Cell by cell from ISO 14644-1:2015 Table 1 and 1999 Table 1
+// (recalled, from memory); every other cell is the
+// formula.
+var tableBlank2015 = map[int]map[int]string{
+	1: {1: noteLowConcentration, 2: noteLowConcentration, 3: noteLowConcentration, 4: noteLowConcentration, 5: noteLargeParticles},
+	2: {3: noteLowConcentration, 4: noteLowConcentration, 5: noteLargeParticles},
+	3: {4: noteLowConcentration, 5: noteLargeParticles},
+	4: {5: noteLargeParticles},
+	5: {5: noteMacroparticle},
+	7: {0: noteHighConcentration, 1: noteHighConcentration, 2: noteHighConcentration},
+	8: {0: noteHighConcentration, 1: noteHighConcentration, 2: noteHighConcentration},
+	9: {0: noteHighConcentration, 1: noteHighConcentration, 2: noteHighConcentration},
+}
+
+var tableBlank1999 = map[int]map[int]string{
+	1: {2: noteLegacyBlank, 3: noteLegacyBlank, 4: noteLegacyBlank, 5: noteLegacyBlank},
+	2: {4: noteLegacyBlank, 5: noteLegacyBlank},
+	3: {5: noteLegacyBlank},
+	4: {5: noteLegacyBlank},
+	7: {0: noteLegacyBlank, 1: noteLegacyBlank, 2: noteLegacyBlank},
+	8: {0: noteLegacyBlank, 1: noteLegacyBlank, 2: noteLegacyBlank},
+	9: {0: noteLegacyBlank, 1: noteLegacyBlank, 2: noteLegacyBlank},
+}
+
+// tableCell tells whether (class, size) is a cell of Table 1: an integer
+// class at one of the table's sizes. It returns the column index.
+func tableCell(class, sizeUM float64) (int, bool) {
+	if class != math.Round(class) {
+		return 0, false
+	}
+	for i, s := range table1Sizes {
+		if s == sizeUM {
+			return i, true
+		}
+	}
+	return 0, false
+}
 
 // ValidateClass accepts ISO classes 1 to 9 in steps of 0.1 (intermediate
 // classes are allowed by ISO 14644-1 in increments of 0.1 as the minimum).
@@ -87,17 +137,13 @@ func RoundLimit(c float64) float64 {
 	return math.Round(r)
 }
 
-// ISOLimit returns the class limit at a threshold size for an edition: the
-// formula with the tables' rounding, or a blank cell with its reason. The
-// blank cells follow the pattern of the published Table 1 and extend it to
-// intermediate classes:
-//
-//   - 2015: a rounded value below 10 /m³ is blank (too few particles);
-//     sizes above 1 µm are blank below ISO 6 (ISO 5: macroparticle
-//     descriptor only); sizes below 0.5 µm are blank above ISO 6 (too many
-//     for counters).
-//   - 1999: a rounded value below 2 /m³ is blank; sizes above 1 µm are
-//     blank below ISO 5; sizes below 0.5 µm blank above ISO 6.
+// ISOLimit returns the class limit at a threshold size for an edition.
+// A cell of the published Table 1 (integer class, one of the sizes 0.1,
+// 0.2, 0.3, 0.5, 1, 5 µm) is the table's value or its blank with the
+// table's reason. Any other class or size (intermediate classes in 0.1
+// steps, sizes between the columns, ISO 14644-1:2015 Annex E, from memory)
+// is the formula with the tables' rounding and Note NoteFormula: the tool
+// does not extend the table's blanks by a rule of its own.
 func ISOLimit(class, sizeUM float64, ed Edition) (Limit, error) {
 	if err := ValidateClass(class); err != nil {
 		return Limit{}, err
@@ -106,27 +152,22 @@ func ISOLimit(class, sizeUM float64, ed Edition) (Limit, error) {
 		return Limit{}, fmt.Errorf("%w: %v µm is outside %v–%v µm", ErrSize, sizeUM, MinSizeUM, MaxSizeUM)
 	}
 	n := roundClass(class)
-	v := RoundLimit(FormulaConcentration(n, sizeUM))
+	var blanks map[int]map[int]string
 	switch ed {
 	case Edition2015, "":
-		switch {
-		case sizeUM < 0.5 && n > 6:
-			return Limit{Note: noteHighConcentration}, nil
-		case sizeUM > 1 && n < 6:
-			if n == 5 {
-				return Limit{Note: noteMacroparticle}, nil
-			}
-			return Limit{Note: noteLargeParticles}, nil
-		case v < 10:
-			return Limit{Note: noteLowConcentration}, nil
-		}
+		blanks = tableBlank2015
 	case Edition1999:
-		switch {
-		case sizeUM < 0.5 && n > 6, sizeUM > 1 && n < 5, v < 2:
-			return Limit{Note: noteLegacyBlank}, nil
-		}
+		blanks = tableBlank1999
 	default:
 		return Limit{}, fmt.Errorf("%w: %q", ErrEdition, ed)
+	}
+	v := RoundLimit(FormulaConcentration(n, sizeUM))
+	col, inTable := tableCell(n, sizeUM)
+	if !inTable {
+		return Limit{PerM3: v, Specified: true, Note: NoteFormula}, nil
+	}
+	if note, blank := blanks[int(n)][col]; blank {
+		return Limit{Note: note}, nil
 	}
 	return Limit{PerM3: v, Specified: true}, nil
 }

@@ -3,6 +3,7 @@ package classify
 import (
 	"errors"
 	"math"
+	"strings"
 	"testing"
 )
 
@@ -11,7 +12,7 @@ var tableSizes = []float64{0.1, 0.2, 0.3, 0.5, 1, 5}
 // blank marks a cell the published table leaves empty.
 const blank = -1
 
-// ISO 14644-1:2015 Table 1, particles/m³ (as recalled in DESIGN.md §3).
+// ISO 14644-1:2015 Table 1, particles/m³ (from memory).
 var table2015 = map[int][6]float64{
 	1: {10, blank, blank, blank, blank, blank},
 	2: {100, 24, 10, blank, blank, blank},
@@ -25,7 +26,7 @@ var table2015 = map[int][6]float64{
 }
 
 // ISO 14644-1:1999 Table 1: the 2015 table plus ISO 1 at 0.2 µm (2), ISO 2
-// at 0.5 µm (4), ISO 3 at 1 µm (8) and ISO 5 at 5 µm (29) (DESIGN.md §3).
+// at 0.5 µm (4), ISO 3 at 1 µm (8) and ISO 5 at 5 µm (29) (from memory).
 var table1999 = map[int][6]float64{
 	1: {10, 2, blank, blank, blank, blank},
 	2: {100, 24, 10, 4, blank, blank},
@@ -68,7 +69,7 @@ func TestISOLimitEveryTableCell(t *testing.T) {
 }
 
 func TestRoundLimit(t *testing.T) {
-	// The rounding rule quoted in DESIGN.md §3 from ISO 14644-1 Table 1:
+	// The rounding rule of ISO 14644-1 Table 1 (from memory):
 	// nearest whole number, at most three significant figures.
 	for _, tc := range []struct{ in, want float64 }{
 		{10176, 10200}, {23651, 23700}, {23.65, 24}, {8.32, 8}, {352.3, 352}, {3516.9, 3520}, {2.37, 2},
@@ -138,7 +139,7 @@ func TestParseSize(t *testing.T) {
 }
 
 // EU GMP Annex 1 (2022), Table 1 (classification) and the monitoring
-// limits, as recalled in DESIGN.md §3. 0 marks "not specified" or "not
+// limits, from memory. 0 marks "not specified" or "not
 // predetermined".
 func TestGMPLimits(t *testing.T) {
 	type row struct {
@@ -198,8 +199,8 @@ func TestGMPLimits(t *testing.T) {
 }
 
 func TestFEDEquivalence(t *testing.T) {
-	// FED-STD-209E Class 100 ≈ ISO 5 and Class 100 000 ≈ ISO 8 (DESIGN.md
-	// §3; 1 m³ = 35.3147 ft³); the full ladder 1→3 … 100 000→8.
+	// FED-STD-209E Class 100 ≈ ISO 5 and Class 100 000 ≈ ISO 8 (from
+	// memory; 1 m³ = 35.3147 ft³); the full ladder 1→3 … 100 000→8.
 	for _, tc := range []struct{ fed, iso float64 }{{1, 3}, {10, 4}, {100, 5}, {1000, 6}, {10000, 7}, {100000, 8}} {
 		got, err := ISOFromFED(tc.fed)
 		if err != nil || got != tc.iso {
@@ -220,5 +221,48 @@ func TestFEDEquivalence(t *testing.T) {
 	}
 	if _, err := ISOFromFED(1e9); err == nil {
 		t.Error("a class beyond ISO 9 must be refused")
+	}
+}
+
+// Cells no table shows are the formula, not an invented blank: ISO
+// 14644-1:2015 Annex E (from memory) allows intermediate classes and sizes
+// inside 0.1–5 µm by Cn = 10^N × (0.1/D)^2.08, rounded as the tables are.
+func TestISOLimitFormulaOutsideTable(t *testing.T) {
+	for _, tc := range []struct {
+		class, size float64
+		want        float64 // worked by hand from the formula
+	}{
+		// 10^5 × (0.1/2.5)^2.08 = 10^5 × 0.0012368 = 123.68 → 124.
+		{5, 2.5, 124},
+		// 10^6.3 × (0.1/0.3)^2.08 = 1 995 262 × 0.10176 = 203 044 → 203 000.
+		{6.3, 0.3, 203000},
+		// 10^4 × (0.1/0.7)^2.08 = 10 000 × 0.017466 = 174.66 → 175.
+		{4, 0.7, 175},
+	} {
+		got, err := ISOLimit(tc.class, tc.size, Edition2015)
+		if err != nil || !got.Specified || got.PerM3 != tc.want || got.Note != NoteFormula {
+			t.Errorf("ISO %v at %v µm = %+v, %v; want %v by the formula", tc.class, tc.size, got, err, tc.want)
+		}
+	}
+	// The published blank stays blank, with the table's own reason.
+	got, err := ISOLimit(5, 5, Edition2015)
+	if err != nil || got.Specified || !strings.Contains(got.Note, "macroparticle") {
+		t.Errorf("ISO 5 at 5 µm (2015 Table 1 blank, footnote to the M descriptor) = %+v, %v", got, err)
+	}
+	// ISO 14644-1:1999 Table 1 filled ISO 5 at 5 µm with 29.
+	got, err = ISOLimit(5, 5, Edition1999)
+	if err != nil || got.PerM3 != 29 {
+		t.Errorf("1999 ISO 5 at 5 µm = %+v, %v; want 29", got, err)
+	}
+}
+
+func TestParseSizeKeepsGivenValue(t *testing.T) {
+	got, err := ParseSize("0.305um")
+	if err != nil || got != 0.305 || FormatSize(got) != "0.305" {
+		t.Errorf("ParseSize(0.305um) = %v, %v; a size must not be rounded", got, err)
+	}
+	_, err = ParseSize("0.099")
+	if !errors.Is(err, ErrSize) || !strings.Contains(err.Error(), "0.1–5") {
+		t.Errorf("0.099 µm: %v", err)
 	}
 }

@@ -11,7 +11,7 @@ var ErrArea = errors.New("classify: invalid area")
 
 // tableA1 is ISO 14644-1:2015 Table A.1: rows (area up to m², minimum
 // locations). An area between two rows takes the next row up. Rows as
-// recalled in DESIGN.md §3.
+// recalled, from memory.
 var tableA1 = []struct {
 	area float64
 	n    int
@@ -94,4 +94,5 @@ type Plan struct {
 	MinSamplesPerLocation int                 `json:"min_samples_per_location"`
 	LimitsPerM3           map[string]*float64 `json:"limits_per_m3"`
 	Notes                 []string            `json:"notes"`
+	Sequential            *SequentialAdvice   `json:"sequential,omitempty"`
 }

@@ -7,7 +7,7 @@ import (
 )
 
 func TestMinLocations2015TableA1(t *testing.T) {
-	// ISO 14644-1:2015 Table A.1 (rows from memory, as DESIGN.md §3; 52 →
+	// ISO 14644-1:2015 Table A.1 (rows from memory; 52 →
 	// 10 and the formula above 1 000 m² cross-checked against published
 	// quotations). An area between rows takes the next row up.
 	rows := [][2]float64{

@@ -13,6 +13,9 @@ type Recovery struct {
 	T100Min    float64 `json:"t100_min"`
 	C0PerM3    float64 `json:"c0_per_m3"`
 	RSquared   float64 `json:"r_squared"`
+	Points     int     `json:"points"`   // points the fit used
+	FromMin    float64 `json:"from_min"` // time of the first point used
+	ToMin      float64 `json:"to_min"`   // time of the last point used
 }
 
 // RecoveryRate fits ln C against time (minutes since the challenge ended)
@@ -53,5 +56,46 @@ func RecoveryRate(minutes, perM3 []float64) (Recovery, error) {
 		r2 = 1
 	}
 	rate := -slope
-	return Recovery{RatePerMin: rate, T100Min: math.Log(100) / rate, C0PerM3: math.Exp(icpt), RSquared: r2}, nil
+	return Recovery{RatePerMin: rate, T100Min: math.Log(100) / rate, C0PerM3: math.Exp(icpt), RSquared: r2,
+		Points: len(minutes), FromMin: minutes[0], ToMin: minutes[len(minutes)-1]}, nil
+}
+
+// MinRecoveryPoints is the fewest points RecoveryFit accepts: with two the
+// line always fits perfectly and R² says nothing.
+const MinRecoveryPoints = 3
+
+// RecoveryFit picks the decay out of a recorded series and fits it: from
+// the highest concentration (the end of the challenge) forward, up to but
+// not including the first point at or below floorPerM3 (the background or
+// the target class limit, where the decay flattens and would bias the
+// line; 0 for none) or at zero. Times must increase. The points used are
+// reported.
+func RecoveryFit(minutes, perM3 []float64, floorPerM3 float64) (Recovery, error) {
+	if len(minutes) != len(perM3) {
+		return Recovery{}, fmt.Errorf("%w: %d times for %d concentrations", ErrStats, len(minutes), len(perM3))
+	}
+	peak := -1
+	for i := range minutes {
+		if math.IsNaN(minutes[i]) || math.IsNaN(perM3[i]) || perM3[i] < 0 {
+			return Recovery{}, fmt.Errorf("%w: point %d: time %v, concentration %v", ErrStats, i, minutes[i], perM3[i])
+		}
+		if i > 0 && !(minutes[i] > minutes[i-1]) {
+			return Recovery{}, fmt.Errorf("%w: point %d: time %v does not follow %v", ErrStats, i, minutes[i], minutes[i-1])
+		}
+		if peak < 0 || perM3[i] > perM3[peak] {
+			peak = i
+		}
+	}
+	if peak < 0 {
+		return Recovery{}, fmt.Errorf("%w: no points", ErrStats)
+	}
+	end := peak
+	for end < len(perM3) && perM3[end] > floorPerM3 && perM3[end] > 0 {
+		end++
+	}
+	if end-peak < MinRecoveryPoints {
+		return Recovery{}, fmt.Errorf("%w: %d points between the peak %v /m³ at %v min and the floor %v /m³; the fit needs at least %d",
+			ErrStats, end-peak, perM3[peak], minutes[peak], floorPerM3, MinRecoveryPoints)
+	}
+	return RecoveryRate(minutes[peak:end], perM3[peak:end])
 }

@@ -26,8 +26,10 @@ func FormatSize(um float64) string {
 }
 
 // ParseSize reads a threshold size such as "0.5", "0.5um", "0.5µm" or
-// "5 um" and checks that it lies inside 0.1–5 µm. The value is rounded to
-// 0.01 µm so that "0.30" and "0.3" name the same channel.
+// "5 um" and checks that it lies inside 0.1–5 µm. The value is kept as
+// given ("0.30" and "0.3" are the same number; "0.305" stays 0.305): a
+// size silently rounded would judge a channel against another size's
+// limit.
 func ParseSize(s string) (float64, error) {
 	t := strings.TrimSpace(s)
 	for _, suf := range []string{"µm", "μm", "um", "UM", "Um"} {
@@ -40,9 +42,8 @@ func ParseSize(s string) (float64, error) {
 	if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
 		return 0, fmt.Errorf("%w: %q is not a size in µm", ErrSize, s)
 	}
-	v = math.Round(v*100) / 100
 	if v < MinSizeUM || v > MaxSizeUM {
-		return 0, fmt.Errorf("%w: %s µm is outside %s–%s µm", ErrSize, FormatSize(v), FormatSize(MinSizeUM), FormatSize(MaxSizeUM))
+		return 0, fmt.Errorf("%w: %s µm is outside %s–%s µm, the range of the ISO 14644-1 class formula", ErrSize, FormatSize(v), FormatSize(MinSizeUM), FormatSize(MaxSizeUM))
 	}
 	return v, nil
 }

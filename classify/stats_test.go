@@ -29,7 +29,7 @@ func TestStudentTQuantileAgainstGonum(t *testing.T) {
 
 func TestStudentTMatches1999Table(t *testing.T) {
 	// ISO 14644-1:1999 Annex C, t(0.95, m−1) rounded to one decimal for
-	// m = 2..9 locations (as recalled in DESIGN.md §3).
+	// m = 2..9 locations (from memory).
 	table := []float64{6.3, 2.9, 2.4, 2.1, 2.0, 1.9, 1.9, 1.9}
 	for i, want := range table {
 		m := i + 2

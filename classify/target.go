@@ -110,9 +110,13 @@ func (t *Target) normalise() ([]SizeLimit, []string, error) {
 			warn = append(warn, fmt.Sprintf("%s µm not judged: %s", FormatSize(s), l.Note))
 		} else {
 			anySpecified = true
+			if l.Note != "" {
+				warn = append(warn, fmt.Sprintf("%s µm: limit %s /m³ %s", FormatSize(s), fmtNum(l.PerM3), l.Note))
+			}
 		}
 		out = append(out, SizeLimit{SizeUM: s, Limit: l})
 	}
+	warn = append(warn, closeSizes(t.Sizes)...)
 	if !anySpecified {
 		return nil, nil, fmt.Errorf("%w: %s has no limit at any considered size", ErrBlankCell, t.Name())
 	}
@@ -175,8 +179,27 @@ func MakePlan(t Target) (Plan, error) {
 		p.MinSamplesPerLocation = 3
 		p.Notes = append(p.Notes, "1999 edition: with a single location take at least three samples there")
 	}
-	if p.SampleVolumeL > 1000 {
-		p.Notes = append(p.Notes, "very large sample volume: the 2015 edition allows sequential sampling (Annex D)")
+	if adv := AdviseSequential(p.LimitAtLargestPerM3, t.FlowLPM); adv.Suggested {
+		p.Sequential = &adv
+		p.Notes = append(p.Notes, adv.Reason)
 	}
 	return p, nil
+}
+
+// SizeRatioMin is the least ratio between consecutive considered sizes:
+// each larger size at least 1.5 times the next smaller (ISO 14644-1:2015
+// clause 4, from memory).
+const SizeRatioMin = 1.5
+
+// closeSizes warns about consecutive considered sizes closer than
+// SizeRatioMin; the rule is recalled, so it warns rather than refuses.
+func closeSizes(sizes []float64) []string {
+	var out []string
+	for i := 1; i < len(sizes); i++ {
+		if sizes[i]/sizes[i-1] < SizeRatioMin*(1-1e-9) {
+			out = append(out, fmt.Sprintf("considered sizes %s µm and %s µm are closer than %v× each other (ISO 14644-1:2015 clause 4, from memory: each larger size at least 1.5 times the next smaller)",
+				FormatSize(sizes[i-1]), FormatSize(sizes[i]), SizeRatioMin))
+		}
+	}
+	return out
 }

@@ -7,7 +7,7 @@ import (
 
 	"cleanmon/classify"
 
-	"go.yaml.in/yaml/v3"
+	"github.com/prometheus/common/model"
 )
 
 // Mode says how a counter reports its size channels.
@@ -52,58 +52,18 @@ const (
 	maxIDLen = 64
 )
 
-// Duration is a time.Duration written in configuration files as a Go
-// duration string ("30s", "1m", "1h").
-type Duration time.Duration
-
-// D returns the value as a time.Duration.
-func (d Duration) D() time.Duration { return time.Duration(d) }
-
-// String formats the duration as time.Duration does.
-func (d Duration) String() string { return time.Duration(d).String() }
-
-// MarshalYAML writes the duration as a string such as "30s".
-func (d Duration) MarshalYAML() (any, error) { return d.String(), nil }
-
-// UnmarshalYAML reads a duration string; a bare number is refused because
-// its unit would be a guess.
-func (d *Duration) UnmarshalYAML(n *yaml.Node) error {
-	if n.Kind != yaml.ScalarNode {
-		return fmt.Errorf("line %d: a duration must be a string such as \"30s\"", n.Line)
-	}
-	return d.parse(n.Value, n.Line)
-}
-
-// MarshalText writes the duration as a string such as "30s" (JSON, flags).
-func (d Duration) MarshalText() ([]byte, error) { return []byte(d.String()), nil }
-
-// UnmarshalText reads a duration string such as "30s".
-func (d *Duration) UnmarshalText(b []byte) error { return d.parse(string(b), 0) }
-
-func (d *Duration) parse(s string, line int) error {
-	v, err := time.ParseDuration(s)
-	if err != nil {
-		if line > 0 {
-			return fmt.Errorf("line %d: %q is not a duration (write e.g. \"30s\", \"1m\", \"1h\")", line, s)
-		}
-		return fmt.Errorf("%q is not a duration (write e.g. \"30s\", \"1m\", \"1h\")", s)
-	}
-	*d = Duration(v)
-	return nil
-}
-
 // Counter is the configuration of one particle counter at one sampling
 // location (yaml section "counters").
 type Counter struct {
-	ID       string   `yaml:"id"`
-	Zone     string   `yaml:"zone"`
-	Location string   `yaml:"location"`   // sampling location id; defaults to ID
-	FlowLPM  float64  `yaml:"flow_lpm"`   // nominal flow, default 28.3
-	Sizes    []string `yaml:"sizes"`      // channel thresholds, ascending, e.g. ["0.3","0.5","5"]
-	Mode     Mode     `yaml:"mode"`       // default cumulative
-	Interval Duration `yaml:"interval"`   // expected sample period, default 1m
-	MaxPerM3 float64  `yaml:"max_per_m3"` // stated maximum concentration (ISO 21501-4 coincidence limit); 0 = unknown
-	Source   string   `yaml:"source"`     // "push" (default), or "modbus" (the default when a modbus section is given)
+	ID       string         `yaml:"id"`
+	Zone     string         `yaml:"zone"`
+	Location string         `yaml:"location"`   // sampling location id; defaults to ID
+	FlowLPM  float64        `yaml:"flow_lpm"`   // nominal flow, default 28.3
+	Sizes    []string       `yaml:"sizes"`      // channel thresholds, ascending, e.g. ["0.3","0.5","5"]
+	Mode     Mode           `yaml:"mode"`       // default cumulative
+	Interval model.Duration `yaml:"interval"`   // expected sample period, default 1m
+	MaxPerM3 float64        `yaml:"max_per_m3"` // stated maximum concentration (ISO 21501-4 coincidence limit); 0 = unknown
+	Source   string         `yaml:"source"`     // "push" (default), or "modbus" (the default when a modbus section is given)
 	// Modbus is where and how to poll the counter when its source is modbus.
 	Modbus *ModbusSource `yaml:"modbus"`
 }
@@ -111,14 +71,14 @@ type Counter struct {
 // Sensor is the configuration of one differential-pressure sensor between
 // two areas (yaml section "sensors").
 type Sensor struct {
-	ID       string   `yaml:"id"`
-	High     string   `yaml:"high"`     // zone on the high-pressure side
-	Low      string   `yaml:"low"`      // area on the low side: a zone or any unclassified area id ("corridor")
-	MinPa    float64  `yaml:"min_pa"`   // minimum DP, ≥ 0
-	MaxPa    float64  `yaml:"max_pa"`   // maximum DP; 0 = none
-	Delay    Duration `yaml:"delay"`    // how long below min before an alarm, default 30s
-	Interval Duration `yaml:"interval"` // expected reporting period, default 10s
-	Source   string   `yaml:"source"`   // "push" (default), or "modbus" (the default when a modbus section is given)
+	ID       string         `yaml:"id"`
+	High     string         `yaml:"high"`     // zone on the high-pressure side
+	Low      string         `yaml:"low"`      // area on the low side: a zone or any unclassified area id ("corridor")
+	MinPa    float64        `yaml:"min_pa"`   // minimum DP, ≥ 0
+	MaxPa    float64        `yaml:"max_pa"`   // maximum DP; 0 = none
+	Delay    model.Duration `yaml:"delay"`    // how long below min before an alarm, default 30s
+	Interval model.Duration `yaml:"interval"` // expected reporting period, default 10s
+	Source   string         `yaml:"source"`   // "push" (default), or "modbus" (the default when a modbus section is given)
 	// Modbus is where and how to poll the sensor when its source is modbus.
 	Modbus *ModbusSource `yaml:"modbus"`
 }
@@ -135,7 +95,7 @@ func (c Counter) withDefaults() Counter {
 		c.Mode = ModeCumulative
 	}
 	if c.Interval == 0 {
-		c.Interval = Duration(DefaultCounterInterval)
+		c.Interval = model.Duration(DefaultCounterInterval)
 	}
 	if c.Source == "" {
 		c.Source = defaultSource(c.Modbus != nil)
@@ -146,10 +106,10 @@ func (c Counter) withDefaults() Counter {
 // withDefaults returns the sensor with empty fields filled in.
 func (s Sensor) withDefaults() Sensor {
 	if s.Delay == 0 {
-		s.Delay = Duration(DefaultSensorDelay)
+		s.Delay = model.Duration(DefaultSensorDelay)
 	}
 	if s.Interval == 0 {
-		s.Interval = Duration(DefaultSensorInterval)
+		s.Interval = model.Duration(DefaultSensorInterval)
 	}
 	if s.Source == "" {
 		s.Source = defaultSource(s.Modbus != nil)
@@ -300,11 +260,11 @@ func checkSizes(p string, sizes []string, add func(string, string, ...any)) {
 	}
 }
 
-func checkInterval(p string, d Duration, add func(string, string, ...any)) {
+func checkInterval(p string, d model.Duration, add func(string, string, ...any)) {
 	switch {
 	case d < 0:
 		add(p, "must not be negative")
-	case d != 0 && d.D() < MinInterval:
+	case d != 0 && time.Duration(d) < MinInterval:
 		add(p, "%s is shorter than the %s minimum", d, MinInterval)
 	}
 }

@@ -7,6 +7,8 @@ import (
 	"sort"
 	"strings"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // Kinds of environment sensor: what a sensor measures decides which
@@ -147,9 +149,9 @@ type EnvironmentSensorConfig struct {
 	Kind string `yaml:"kind"`
 	// Delay is how long a value may stay outside a band before an alarm;
 	// default 5m.
-	Delay Duration `yaml:"delay"`
+	Delay model.Duration `yaml:"delay"`
 	// Interval is the expected reporting period, default 1m.
-	Interval Duration `yaml:"interval"`
+	Interval model.Duration `yaml:"interval"`
 	// Source is "push" (default; HTTP or MQTT) or "modbus" (the default
 	// when a modbus section is given).
 	Source string `yaml:"source"`
@@ -183,10 +185,10 @@ func (c *EnvironmentSensorConfig) Channels() []string { return kindChannels[c.Ki
 
 func (c EnvironmentSensorConfig) withDefaults() EnvironmentSensorConfig {
 	if c.Delay == 0 {
-		c.Delay = Duration(DefaultEnvironmentDelay)
+		c.Delay = model.Duration(DefaultEnvironmentDelay)
 	}
 	if c.Interval == 0 {
-		c.Interval = Duration(DefaultEnvironmentInterval)
+		c.Interval = model.Duration(DefaultEnvironmentInterval)
 	}
 	if c.Source == "" {
 		c.Source = defaultSource(c.Modbus != nil)
@@ -449,16 +451,19 @@ var channelWords = map[string]string{
 // physical bounds b.
 func (v *validator) environment(i int, b EnvironmentBounds, raw *RawEnvironment, out *Environment) *InputError {
 	if raw.Sensor == "" {
-		return inputErr(i, "sensor", "missing")
+		return inputErrRule(i, "sensor", RuleRequired, "missing")
+	}
+	if ie := CheckText(i, "sensor", raw.Sensor, maxIDLen); ie != nil {
+		return ie
 	}
 	ei, ok := v.reg.env[raw.Sensor]
 	if !ok {
 		if _, dp := v.reg.sensors[raw.Sensor]; dp {
-			return inputErr(i, "sensor", "%q is a differential-pressure sensor: send its samples to the pressure endpoint", raw.Sensor)
+			return inputErrRule(i, "sensor", RuleUnknownID, "%q is a differential-pressure sensor: send its samples to the pressure endpoint", raw.Sensor)
 		}
-		return inputErr(i, "sensor", "unknown environment sensor %q", raw.Sensor)
+		return inputErrRule(i, "sensor", RuleUnknownID, "unknown environment sensor %q", raw.Sensor)
 	}
-	t, ie := v.time(i, raw.Time)
+	t, ie := v.time(i, ei.ID, raw.Time)
 	if ie != nil {
 		return ie
 	}
@@ -469,15 +474,15 @@ func (v *validator) environment(i int, b EnvironmentBounds, raw *RawEnvironment,
 		has := contains(chans, ch)
 		switch {
 		case p == nil && has:
-			return inputErr(i, ch, "missing: sensor %s reports %s", ei.ID, channelWords[ch])
+			return inputErrRule(i, ch, RuleRequired, "missing: sensor %s reports %s", ei.ID, channelWords[ch])
 		case p == nil:
 			continue
 		case !has:
-			return inputErr(i, ch, "sensor %s is a %s sensor: it has no %s channel", ei.ID, ei.Kind, ch)
+			return inputErrRule(i, ch, RuleEnvironmentChannel, "sensor %s is a %s sensor: it has no %s channel", ei.ID, ei.Kind, ch)
 		}
 		lo, hi, unit := b.channelRange(ch)
 		if !finite(*p) || *p < lo || *p > hi {
-			return inputErr(i, ch, "%g %s is outside the physical range %g…%g %s: check the sensor and its scaling", *p, unit, lo, hi, unit)
+			return inputErrRule(i, ch, RuleEnvironmentRange, "%g %s is outside the physical range %g…%g %s: check the sensor and its scaling", *p, unit, lo, hi, unit)
 		}
 		switch ch {
 		case ChanTemperature:

@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"io"
-	"net/http"
 	"time"
 )
 
@@ -66,9 +65,12 @@ func (in *EnvironmentIngest) OnRejected(f func(Rejection)) { in.onReject = appen
 
 func (in *EnvironmentIngest) validator() validator {
 	now := in.opt.Now().UTC()
-	v := validator{reg: in.reg, newest: now.Add(in.opt.MaxFuture), volTol: -1}
+	b := in.reg.bounds.withDefaults()
+	v := validator{reg: in.reg, b: b, now: now, oldest: b.Oldest, skew: in.opt.MaxFuture, volTol: -1}
 	if in.opt.Retention > 0 {
-		v.oldest = now.Add(-in.opt.Retention)
+		if r := now.Add(-in.opt.Retention); r.After(v.oldest) {
+			v.oldest, v.retain = r, true
+		}
 	}
 	return v
 }
@@ -88,41 +90,31 @@ func (in *EnvironmentIngest) SubmitEnvironment(ctx context.Context, raws []RawEn
 	return in.commit(ctx, es)
 }
 
-// ServeHTTP handles POST /api/v1/environment: a JSON object, a JSON array
-// or NDJSON of samples; 200 with a [Result] once durable, 400
-// {"error","index","field"} for any bad sample (nothing stored), 405, 413,
-// 415 as usual, 503 when the sink fails.
-func (in *EnvironmentIngest) ServeHTTP(w http.ResponseWriter, r *http.Request) {
-	if r.Method != http.MethodPost {
-		w.Header().Set("Allow", http.MethodPost)
-		in.rejected("", errMethod)
-		writeJSON(w, http.StatusMethodNotAllowed, errorBody{Error: errMethod.Error()})
-		return
-	}
-	f, ok := formatOf(r.Header.Get("Content-Type"))
+// PostEnvironment takes the body of a request carrying environment
+// samples (POST /api/v1/environment) under the rules of
+// [Ingest.PostReadings]: a JSON object, a JSON array or NDJSON (an empty
+// contentType is JSON), all or nothing, and an answer only once the
+// accepted samples are durable. Errors: ErrContentType, an error wrapping
+// ErrTooLarge, an *InputError naming the bad sample, or one wrapping
+// ErrCommit.
+func (in *EnvironmentIngest) PostEnvironment(ctx context.Context, contentType string, declaredLength int64, body io.Reader) (Result, error) {
+	f, ok := formatOf(contentType)
 	if !ok {
-		in.rejected("", errContentType)
-		writeJSON(w, http.StatusUnsupportedMediaType, errorBody{Error: errContentType.Error()})
-		return
+		in.rejected("", ErrContentType)
+		return Result{}, ErrContentType
 	}
-	if r.ContentLength > in.opt.MaxBodyBytes {
-		err := fmt.Errorf("%w: %d bytes declared, the limit is %d", ErrTooLarge, r.ContentLength, in.opt.MaxBodyBytes)
+	if declaredLength > in.opt.MaxBodyBytes {
+		err := fmt.Errorf("%w: %d bytes declared, the limit is %d", ErrTooLarge, declaredLength, in.opt.MaxBodyBytes)
 		in.rejected("", err)
-		writeError(w, err)
-		return
+		return Result{}, err
 	}
-	es, lastID, err := in.decode(http.MaxBytesReader(w, r.Body, in.opt.MaxBodyBytes), f)
+	lim := &limitReader{r: body, left: in.opt.MaxBodyBytes, limit: in.opt.MaxBodyBytes}
+	es, lastID, err := in.decode(lim, f)
 	if err != nil {
 		in.rejected(lastID, err)
-		writeError(w, err)
-		return
+		return Result{}, err
 	}
-	res, err := in.commit(r.Context(), es)
-	if err != nil {
-		writeError(w, err)
-		return
-	}
-	writeJSON(w, http.StatusOK, res)
+	return in.commit(ctx, es)
 }
 
 // decode reads and validates a whole body; on error it also returns the
@@ -147,7 +139,7 @@ func (in *EnvironmentIngest) decode(r io.Reader, f bodyFormat) ([]Environment, s
 func DecodeEnvironment(r io.Reader, contentType string, maxLine int) ([]RawEnvironment, error) {
 	f, ok := formatOf(contentType)
 	if !ok {
-		return nil, errContentType
+		return nil, ErrContentType
 	}
 	var out []RawEnvironment
 	_, err := decodeBody(r, f, maxLine, func(_ int, raw *RawEnvironment) *InputError {

@@ -10,6 +10,8 @@ import (
 	"sync"
 	"testing"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // memEnvSink keeps one environment sample per sensor+time, as the store
@@ -59,7 +61,7 @@ func demoEnvironment() []EnvironmentSensorConfig {
 			HumidityPct:  &EnvironmentLimits{Action: &EnvironmentBand{Low: f64(40), High: f64(50)}}},
 		{ID: "th-met", Zone: "metrology", Kind: EnvTemperatureHumidity,
 			TemperatureC: &EnvironmentLimits{Action: &EnvironmentBand{Low: f64(19.5), High: f64(20.5)}}},
-		{ID: "av-hood", Zone: "coating-hood", Kind: EnvAirVelocity, Delay: Duration(time.Minute),
+		{ID: "av-hood", Zone: "coating-hood", Kind: EnvAirVelocity, Delay: model.Duration(time.Minute),
 			VelocityMS: &EnvironmentLimits{Action: &EnvironmentBand{Low: f64(0.36), High: f64(0.54)}}},
 	}
 }
@@ -241,7 +243,7 @@ func TestEnvironmentJudge(t *testing.T) {
 			t.Errorf("%s %s %g: %q, want %q", c.sensor, c.ch, c.v, got, c.want)
 		}
 	}
-	if ei, _ := reg.EnvironmentSensor("th-asm"); ei.Delay.D() != DefaultEnvironmentDelay || ei.Source != SourcePush {
+	if ei, _ := reg.EnvironmentSensor("th-asm"); time.Duration(ei.Delay) != DefaultEnvironmentDelay || ei.Source != SourcePush {
 		t.Errorf("defaults not applied: %+v", ei)
 	}
 }

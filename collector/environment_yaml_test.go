@@ -2,6 +2,7 @@ package collector
 
 import (
 	"testing"
+	"time"
 
 	"go.yaml.in/yaml/v3"
 )
@@ -50,7 +51,7 @@ mqtt:
 		t.Fatal(err)
 	}
 	av, ok := reg.EnvironmentSensor("av-hood")
-	if !ok || av.Source != SourceModbus || av.Delay.D().Seconds() != 60 || *av.VelocityMS.Action.Low != 0.36 || *av.Modbus.Unit != 4 {
+	if !ok || av.Source != SourceModbus || time.Duration(av.Delay).Seconds() != 60 || *av.VelocityMS.Action.Low != 0.36 || *av.Modbus.Unit != 4 {
 		t.Fatalf("av-hood decoded as %+v", av)
 	}
 	if errs := ValidateMQTT(&cfg.MQTT, reg); len(errs) > 0 {

@@ -13,6 +13,9 @@ var (
 	ErrInput = errors.New("collector: invalid input")
 	// ErrTooLarge reports a request body beyond IngestOptions.MaxBodyBytes.
 	ErrTooLarge = errors.New("collector: request body too large")
+	// ErrContentType refuses a body in a format the ingest path does not
+	// read (it reads application/json and application/x-ndjson).
+	ErrContentType = errors.New("unsupported Content-Type: use application/json or application/x-ndjson")
 	// ErrCommit wraps a failure of the [Sink]: nothing of the request may be
 	// assumed stored, and the sender should retry later.
 	ErrCommit = errors.New("collector: commit failed")
@@ -47,6 +50,10 @@ type InputError struct {
 	Msg string
 	// Line is the 1-based line number in an NDJSON body, 0 otherwise.
 	Line int
+	// Rule names the rule the element broke (one of the Rule constants),
+	// so that a sender, a log and a test can tell refusals apart without
+	// parsing Msg.
+	Rule string
 }
 
 // Error implements error; the text names the element and the field.
@@ -55,15 +62,19 @@ func (e *InputError) Error() string {
 	if e.Line > 0 {
 		where += fmt.Sprintf(" (line %d)", e.Line)
 	}
-	if e.Field == "" {
-		return where + ": " + e.Msg
+	rule := ""
+	if e.Rule != "" {
+		rule = " [rule " + e.Rule + "]"
 	}
-	return where + ", " + e.Field + ": " + e.Msg
+	if e.Field == "" {
+		return where + ": " + e.Msg + rule
+	}
+	return where + ", " + e.Field + ": " + e.Msg + rule
 }
 
 // Unwrap makes every InputError match [ErrInput] with errors.Is.
 func (e *InputError) Unwrap() error { return ErrInput }
 
-func inputErr(i int, field, format string, args ...any) *InputError {
-	return &InputError{Index: i, Field: field, Msg: fmt.Sprintf(format, args...)}
+func inputErrRule(i int, field, rule, format string, args ...any) *InputError {
+	return &InputError{Index: i, Field: field, Rule: rule, Msg: fmt.Sprintf(format, args...)}
 }

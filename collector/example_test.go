@@ -47,7 +47,7 @@ func ExampleIngest_SubmitReadings() {
 	// Output:
 	// pc-met 2026-03-02T10:00:00Z: ≥0.5 µm 35336 /m³, ≥5 µm 1767 /m³
 	// {1 0} <nil>
-	// element 0, volume_l: 0 L: the sampled volume must be a finite number of litres > 0
+	// element 0, volume_l: 0 L: the sampled volume must be a finite number of litres > 0 [rule volume-positive]
 }
 
 func ExampleSimulator_Backfill() {

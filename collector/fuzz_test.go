@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"math"
+	"strings"
 	"testing"
 	"time"
 )
@@ -158,6 +159,78 @@ func FuzzDecodePressure(f *testing.F) {
 			var again Pressure
 			if ie := v.pressure(i, &raw, &again); ie != nil || !again.Time.Equal(p.Time) || again.Pa != p.Pa || again.Sensor != p.Sensor {
 				t.Fatalf("sample %d re-validates to %+v, %v; want %+v", i, again, ie, p)
+			}
+		}
+	})
+}
+
+// FuzzStrictKeys checks the strict decoder against an independent reading
+// of the same body (encoding/json's token stream): whatever it accepts
+// has no key twice in an object and no key that differs from a field only
+// in case.
+func FuzzStrictKeys(f *testing.F) {
+	f.Add([]byte(`{"sensor":"dp-asm-gown","time":"2026-03-02T10:00:00Z","pa":12.4}`))
+	f.Add([]byte(`{"sensor":"dp-asm-gown","time":"2026-03-02T10:00:00Z","pa":12,"pa":-50}`))
+	f.Add([]byte(`[{"sensor":"dp-asm-gown","time":"2026-03-02T10:00:00Z","PA":12}]`))
+	f.Fuzz(func(t *testing.T, body []byte) {
+		_, err := DecodeElements(bytes.NewReader(body), false, fuzzMaxBody, func(i int, raw *RawPressure) *InputError { return nil })
+		if err != nil {
+			checkDecodeErr(t, err, 1<<20)
+			return
+		}
+		dec := json.NewDecoder(bytes.NewReader(body))
+		type frame struct {
+			obj   bool
+			key   bool // the next string token is a key
+			names map[string]bool
+		}
+		var stack []*frame
+		for {
+			tok, err := dec.Token()
+			if err != nil {
+				return // the oracle cannot read it: nothing to compare
+			}
+			top := (*frame)(nil)
+			if len(stack) > 0 {
+				top = stack[len(stack)-1]
+			}
+			switch v := tok.(type) {
+			case json.Delim:
+				switch v {
+				case '{', '[':
+					if top != nil && top.obj {
+						top.key = true
+					}
+					stack = append(stack, &frame{obj: v == '{', key: v == '{', names: map[string]bool{}})
+				default:
+					stack = stack[:len(stack)-1]
+				}
+			case string:
+				if top != nil && top.obj && top.key {
+					if top.names[v] {
+						t.Fatalf("accepted key %q twice in %q", v, body)
+					}
+					top.names[v] = true
+					if len(stack) == 1 {
+						for _, known := range []string{"sensor", "time", "pa"} {
+							if v != known && strings.EqualFold(v, known) {
+								t.Fatalf("accepted case variant %q in %q", v, body)
+							}
+						}
+					}
+					top.key = false
+					continue
+				}
+				if top != nil && top.obj {
+					top.key = true
+				}
+			default:
+				if top != nil && top.obj {
+					top.key = true
+				}
+			}
+			if len(stack) == 0 && !dec.More() {
+				return
 			}
 		}
 	})

@@ -6,6 +6,8 @@ import (
 	"sync"
 	"testing"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // memSink is a real in-memory Sink: it keeps one row per counter+time (per
@@ -86,7 +88,7 @@ var testNow = time.Date(2026, 3, 2, 10, 1, 0, 0, time.UTC)
 // §6 ("Veldmark Photonics, building C").
 func demoCounters() []Counter {
 	return []Counter{
-		{ID: "pc-hood", Zone: "coating-hood", Sizes: []string{"0.3", "0.5", "5"}, Interval: Duration(time.Minute), MaxPerM3: 4e6},
+		{ID: "pc-hood", Zone: "coating-hood", Sizes: []string{"0.3", "0.5", "5"}, Interval: model.Duration(time.Minute), MaxPerM3: 4e6},
 		{ID: "pc-asm-1", Zone: "assembly", Sizes: []string{"0.5", "1", "5"}},
 		{ID: "pc-asm-2", Zone: "assembly", Sizes: []string{"0.5um", "1um", "5um"}},
 		{ID: "pc-asm-3", Zone: "assembly", Sizes: []string{"0.5", "1", "5"}},

@@ -2,10 +2,8 @@ package collector
 
 import (
 	"context"
-	"encoding/json"
-	"errors"
 	"fmt"
-	"net/http"
+	"io"
 	"time"
 )
 
@@ -139,19 +137,21 @@ func (in *Ingest) SubmitPressure(ctx context.Context, raws []RawPressure) (Resul
 	return in.commitPressure(ctx, ps)
 }
 
-// Readings handles POST /api/v1/readings: a JSON object, a JSON array or
-// NDJSON (Content-Type application/x-ndjson) of readings. 200 with a
-// [Result] once durable; 400 {"error","index","field"} for any bad reading
-// (nothing stored); 405, 413, 415 as usual; 503 when the sink fails.
-func (in *Ingest) Readings(w http.ResponseWriter, r *http.Request) {
-	f, ok := in.precheck(w, r, "readings")
-	if !ok {
-		return
+// PostReadings takes the body of a request carrying readings: a JSON
+// object, a JSON array or NDJSON (contentType application/x-ndjson),
+// declaredLength bytes long by its header (-1 when unknown). Nothing is
+// stored unless every reading is valid, and it returns once the accepted
+// ones are durable. Errors: ErrContentType, an error wrapping ErrTooLarge,
+// an *InputError naming the bad reading, or one wrapping ErrCommit.
+func (in *Ingest) PostReadings(ctx context.Context, contentType string, declaredLength int64, body io.Reader) (Result, error) {
+	f, err := in.precheck(contentType, declaredLength, "readings")
+	if err != nil {
+		return Result{}, err
 	}
 	v := in.validator()
 	rs := make([]Reading, 0, 64)
 	lastID := ""
-	_, err := decodeBody(http.MaxBytesReader(w, r.Body, in.opt.MaxBodyBytes), f, int(in.opt.MaxBodyBytes)+1,
+	_, err = decodeBody(in.limit(body), f, int(in.opt.MaxBodyBytes)+1,
 		func(i int, raw *RawReading) *InputError {
 			lastID = raw.Counter
 			rs = append(rs, Reading{})
@@ -159,27 +159,22 @@ func (in *Ingest) Readings(w http.ResponseWriter, r *http.Request) {
 		})
 	if err != nil {
 		in.rejected("readings", lastID, err)
-		writeError(w, err)
-		return
+		return Result{}, err
 	}
-	res, err := in.commitReadings(r.Context(), rs)
-	if err != nil {
-		writeError(w, err)
-		return
-	}
-	writeJSON(w, http.StatusOK, res)
+	return in.commitReadings(ctx, rs)
 }
 
-// Pressure handles POST /api/v1/pressure under the same rules as Readings.
-func (in *Ingest) Pressure(w http.ResponseWriter, r *http.Request) {
-	f, ok := in.precheck(w, r, "pressure")
-	if !ok {
-		return
+// PostPressure takes a request body of DP samples under the same rules as
+// PostReadings.
+func (in *Ingest) PostPressure(ctx context.Context, contentType string, declaredLength int64, body io.Reader) (Result, error) {
+	f, err := in.precheck(contentType, declaredLength, "pressure")
+	if err != nil {
+		return Result{}, err
 	}
 	v := in.validator()
 	ps := make([]Pressure, 0, 64)
 	lastID := ""
-	_, err := decodeBody(http.MaxBytesReader(w, r.Body, in.opt.MaxBodyBytes), f, int(in.opt.MaxBodyBytes)+1,
+	_, err = decodeBody(in.limit(body), f, int(in.opt.MaxBodyBytes)+1,
 		func(i int, raw *RawPressure) *InputError {
 			lastID = raw.Sensor
 			ps = append(ps, Pressure{})
@@ -187,43 +182,63 @@ func (in *Ingest) Pressure(w http.ResponseWriter, r *http.Request) {
 		})
 	if err != nil {
 		in.rejected("pressure", lastID, err)
-		writeError(w, err)
-		return
+		return Result{}, err
 	}
-	res, err := in.commitPressure(r.Context(), ps)
-	if err != nil {
-		writeError(w, err)
-		return
-	}
-	writeJSON(w, http.StatusOK, res)
+	return in.commitPressure(ctx, ps)
 }
 
-// errMethod and errContentType are answered before the body is read.
-var (
-	errMethod      = errors.New("method not allowed: use POST")
-	errContentType = errors.New("unsupported Content-Type: use application/json or application/x-ndjson")
-)
-
-func (in *Ingest) precheck(w http.ResponseWriter, r *http.Request, kind string) (bodyFormat, bool) {
-	if r.Method != http.MethodPost {
-		w.Header().Set("Allow", http.MethodPost)
-		in.rejected(kind, "", errMethod)
-		writeJSON(w, http.StatusMethodNotAllowed, errorBody{Error: errMethod.Error()})
-		return 0, false
-	}
-	f, ok := formatOf(r.Header.Get("Content-Type"))
+// precheck refuses what can be refused before the body is read.
+func (in *Ingest) precheck(contentType string, declaredLength int64, kind string) (bodyFormat, error) {
+	f, ok := formatOf(contentType)
 	if !ok {
-		in.rejected(kind, "", errContentType)
-		writeJSON(w, http.StatusUnsupportedMediaType, errorBody{Error: errContentType.Error()})
-		return 0, false
+		in.rejected(kind, "", ErrContentType)
+		return 0, ErrContentType
 	}
-	if r.ContentLength > in.opt.MaxBodyBytes {
-		err := fmt.Errorf("%w: %d bytes declared, the limit is %d", ErrTooLarge, r.ContentLength, in.opt.MaxBodyBytes)
+	if declaredLength > in.opt.MaxBodyBytes {
+		err := fmt.Errorf("%w: %d bytes declared, the limit is %d", ErrTooLarge, declaredLength, in.opt.MaxBodyBytes)
 		in.rejected(kind, "", err)
-		writeError(w, err)
-		return 0, false
+		return 0, err
 	}
-	return f, true
+	return f, nil
+}
+
+// limit bounds a body at MaxBodyBytes: reading past it fails with a
+// *limitError, which the decoders turn into ErrTooLarge.
+func (in *Ingest) limit(r io.Reader) io.Reader {
+	return &limitReader{r: r, left: in.opt.MaxBodyBytes, limit: in.opt.MaxBodyBytes}
+}
+
+// limitReader is io.LimitReader that fails, rather than ends, at the limit,
+// so that a cut-off body is not mistaken for a complete one.
+type limitReader struct {
+	r           io.Reader
+	left, limit int64
+}
+
+// limitError is the failure of a body past the limit.
+type limitError struct{ Limit int64 }
+
+func (e *limitError) Error() string { return fmt.Sprintf("request body larger than %d bytes", e.Limit) }
+
+func (l *limitReader) Read(p []byte) (int, error) {
+	if l.left <= 0 {
+		// One byte more tells a body of exactly the limit from a longer one.
+		var one [1]byte
+		n, err := l.r.Read(one[:])
+		if n > 0 {
+			return 0, &limitError{l.limit}
+		}
+		if err == nil {
+			err = io.ErrNoProgress
+		}
+		return 0, err
+	}
+	if int64(len(p)) > l.left {
+		p = p[:l.left]
+	}
+	n, err := l.r.Read(p)
+	l.left -= int64(n)
+	return n, err
 }
 
 // dupKey identifies a sample: one per instrument and instant.
@@ -316,36 +331,4 @@ func (in *Ingest) rejected(kind, id string, err error) {
 	for _, f := range in.onReject {
 		f(Rejection{Kind: kind, ID: id, Err: err})
 	}
-}
-
-// errorBody is the JSON of every refusal; index and field are present for
-// a bad element.
-type errorBody struct {
-	Error string  `json:"error"`
-	Index *int    `json:"index,omitempty"`
-	Field *string `json:"field,omitempty"`
-	Line  int     `json:"line,omitempty"`
-}
-
-func writeError(w http.ResponseWriter, err error) {
-	var ie *InputError
-	switch {
-	case errors.As(err, &ie):
-		writeJSON(w, http.StatusBadRequest, errorBody{Error: ie.Error(), Index: &ie.Index, Field: &ie.Field, Line: ie.Line})
-	case errors.Is(err, ErrTooLarge):
-		writeJSON(w, http.StatusRequestEntityTooLarge, errorBody{Error: err.Error()})
-	case errors.Is(err, ErrCommit):
-		writeJSON(w, http.StatusServiceUnavailable, errorBody{Error: err.Error()})
-	default:
-		writeJSON(w, http.StatusInternalServerError, errorBody{Error: err.Error()})
-	}
-}
-
-func writeJSON(w http.ResponseWriter, status int, v any) {
-	w.Header().Set("Content-Type", "application/json")
-	w.Header().Set("X-Content-Type-Options", "nosniff")
-	w.WriteHeader(status)
-	enc := json.NewEncoder(w)
-	enc.SetEscapeHTML(false) // the messages quote "≥" and "> 0", not HTML
-	_ = enc.Encode(v)
 }

@@ -108,8 +108,6 @@ func TestBadRequestsCommitNothing(t *testing.T) {
 		index  int    // -1 = no index expected
 	}
 	cases := []tc{
-		{name: "wrong method", method: http.MethodGet, status: 405, index: -1},
-		{name: "wrong method pressure", method: http.MethodPut, path: "/api/v1/pressure", body: `{}`, status: 405, index: -1},
 		{name: "wrong content type", ctype: "text/plain", body: good, status: 415, index: -1},
 		{name: "form content type", ctype: "application/x-www-form-urlencoded", body: good, status: 415, index: -1},
 		{name: "empty body", body: "", status: 400, index: 0},

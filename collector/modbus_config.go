@@ -11,6 +11,8 @@ import (
 	"time"
 
 	"cleanmon/classify"
+
+	"github.com/prometheus/common/model"
 )
 
 // ModbusSource says where and how the poller reads one counter, DP or
@@ -57,10 +59,10 @@ type ModbusSource struct {
 	// Poll is the time between polls. Default for a counter: 5 s, or half
 	// its interval when that is shorter; for a sensor: its interval, each
 	// poll being one DP sample.
-	Poll Duration `yaml:"poll"`
+	Poll model.Duration `yaml:"poll"`
 	// Timeout bounds each request; default 2 s, or the poll period when
 	// that is shorter.
-	Timeout Duration `yaml:"timeout"`
+	Timeout model.Duration `yaml:"timeout"`
 	// WordOrder of 32-bit values: "high-first" (default) or "low-first".
 	WordOrder string `yaml:"word_order"`
 
@@ -223,7 +225,7 @@ func (f *regField) allOnes() uint64 { return 1<<(16*uint(f.n)) - 1 }
 // ("counters[0].modbus").
 func validateModbusCounter(p string, c *Counter, add func(string, string, ...any)) {
 	checkModbusAddress(p, c.Modbus.Address, add)
-	interval := c.Interval.D()
+	interval := time.Duration(c.Interval)
 	if interval == 0 {
 		interval = DefaultCounterInterval
 	}
@@ -233,7 +235,7 @@ func validateModbusCounter(p string, c *Counter, add func(string, string, ...any
 // validateModbusSensor checks the modbus section of sensor s at path p.
 func validateModbusSensor(p string, s *Sensor, add func(string, string, ...any)) {
 	checkModbusAddress(p, s.Modbus.Address, add)
-	interval := s.Interval.D()
+	interval := time.Duration(s.Interval)
 	if interval == 0 {
 		interval = DefaultSensorInterval
 	}
@@ -244,7 +246,7 @@ func validateModbusSensor(p string, s *Sensor, add func(string, string, ...any))
 // sensor e at path p.
 func validateModbusEnvironment(p string, e *EnvironmentSensorConfig, add func(string, string, ...any)) {
 	checkModbusAddress(p, e.Modbus.Address, add)
-	interval := e.Interval.D()
+	interval := time.Duration(e.Interval)
 	if interval == 0 {
 		interval = DefaultEnvironmentInterval
 	}
@@ -359,23 +361,23 @@ func (pl *planner) timing(src *ModbusSource, interval time.Duration) {
 		plan.poll = min(DefaultModbusPoll, interval/2)
 	case src.Poll == 0:
 		plan.poll = interval
-	case src.Poll.D() < MinModbusPoll:
+	case time.Duration(src.Poll) < MinModbusPoll:
 		pl.addf(p+".poll", "%s is shorter than the %s minimum", src.Poll, MinModbusPoll)
-	case pl.kind == "counter" && src.Poll.D() > interval/2:
+	case pl.kind == "counter" && time.Duration(src.Poll) > interval/2:
 		// A sample number seen only every other sample loses samples.
 		pl.addf(p+".poll", "%s is more than half the interval (%s): poll at least twice per sample so that none is missed", src.Poll, interval)
 	default:
-		plan.poll = src.Poll.D()
+		plan.poll = time.Duration(src.Poll)
 	}
 	switch {
 	case src.Timeout < 0:
 		pl.addf(p+".timeout", "must not be negative")
 	case src.Timeout == 0:
 		plan.timeout = min(DefaultModbusTimeout, max(plan.poll, MinModbusPoll))
-	case plan.poll > 0 && src.Timeout.D() > plan.poll:
+	case plan.poll > 0 && time.Duration(src.Timeout) > plan.poll:
 		pl.addf(p+".timeout", "%s is longer than the poll period (%s)", src.Timeout, plan.poll)
 	default:
-		plan.timeout = src.Timeout.D()
+		plan.timeout = time.Duration(src.Timeout)
 	}
 	switch src.WordOrder {
 	case "", WordHighFirst:

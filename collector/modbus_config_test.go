@@ -6,6 +6,7 @@ import (
 	"testing"
 	"time"
 
+	"github.com/prometheus/common/model"
 	"go.yaml.in/yaml/v3"
 )
 
@@ -19,7 +20,7 @@ func r32(addr int) *ModbusRegister { return &ModbusRegister{Addr: ip(addr), Bits
 // time, 32-bit volume).
 func mbCounter() Counter {
 	return Counter{
-		ID: "pc-asm-1", Zone: "assembly", Sizes: []string{"0.5", "1", "5"}, Interval: Duration(time.Second),
+		ID: "pc-asm-1", Zone: "assembly", Sizes: []string{"0.5", "1", "5"}, Interval: model.Duration(time.Second),
 		Source: SourceModbus, Modbus: mbSource(""),
 	}
 }
@@ -29,7 +30,7 @@ func mbSource(addr string) *ModbusSource {
 		addr = "127.0.0.1:5020"
 	}
 	return &ModbusSource{
-		Address: addr, Poll: Duration(100 * time.Millisecond), Timeout: Duration(100 * time.Millisecond),
+		Address: addr, Poll: model.Duration(100 * time.Millisecond), Timeout: model.Duration(100 * time.Millisecond),
 		Sample:        r32(0),
 		Channels:      map[string]ModbusRegister{"0.5": *r32(2), "1": *r32(4), "5": *r32(6)},
 		Status:        &ModbusStatus{Addr: ip(8), Values: map[string]string{"0": "ok", "1": "warning", "2": "fault"}},
@@ -40,7 +41,7 @@ func mbSource(addr string) *ModbusSource {
 }
 
 func mbSensor() Sensor {
-	return Sensor{ID: "dp-asm-gown", High: "assembly", Low: "gowning", MinPa: 8, Interval: Duration(time.Second),
+	return Sensor{ID: "dp-asm-gown", High: "assembly", Low: "gowning", MinPa: 8, Interval: model.Duration(time.Second),
 		Source: SourceModbus, Modbus: &ModbusSource{Address: "127.0.0.1:5021",
 			Pa:     &ModbusRegister{Addr: ip(0), Signed: true, Scale: 0.1},
 			Status: &ModbusStatus{Addr: ip(1), Values: map[string]string{"0": "ok", "1": "fault"}}}}
@@ -62,10 +63,10 @@ func TestValidateModbusCounter(t *testing.T) {
 		{"address without a host", func(c *Counter) { c.Modbus.Address = ":502" }, []string{"counters[0].modbus.address"}},
 		{"unit 256", func(c *Counter) { c.Modbus.Unit = ip(256) }, []string{"counters[0].modbus.unit"}},
 		{"unit 0 is allowed", func(c *Counter) { c.Modbus.Unit = ip(0) }, nil},
-		{"poll too short", func(c *Counter) { c.Modbus.Poll = Duration(50 * time.Millisecond) }, []string{"counters[0].modbus.poll"}},
-		{"poll beyond half the interval", func(c *Counter) { c.Modbus.Poll, c.Modbus.Timeout = Duration(600*time.Millisecond), 0 }, []string{"counters[0].modbus.poll"}},
+		{"poll too short", func(c *Counter) { c.Modbus.Poll = model.Duration(50 * time.Millisecond) }, []string{"counters[0].modbus.poll"}},
+		{"poll beyond half the interval", func(c *Counter) { c.Modbus.Poll, c.Modbus.Timeout = model.Duration(600*time.Millisecond), 0 }, []string{"counters[0].modbus.poll"}},
 		{"poll and timeout left to defaults", func(c *Counter) { c.Modbus.Poll, c.Modbus.Timeout = 0, 0 }, nil},
-		{"timeout beyond the poll period", func(c *Counter) { c.Modbus.Timeout = Duration(time.Second) }, []string{"counters[0].modbus.timeout"}},
+		{"timeout beyond the poll period", func(c *Counter) { c.Modbus.Timeout = model.Duration(time.Second) }, []string{"counters[0].modbus.timeout"}},
 		{"word order unknown", func(c *Counter) { c.Modbus.WordOrder = "middle-endian" }, []string{"counters[0].modbus.word_order"}},
 		{"sample missing", func(c *Counter) { c.Modbus.Sample = nil }, []string{"counters[0].modbus.sample"}},
 		{"channels missing", func(c *Counter) { c.Modbus.Channels = nil }, []string{"counters[0].modbus.channels"}},
@@ -158,7 +159,7 @@ func TestModbusExampleConfig(t *testing.T) {
 	if ci.Source != SourceModbus || ci.Modbus.Status.Values["1"] != StatusWarning {
 		t.Fatalf("decoded %+v, status %+v", ci.Counter, ci.Modbus.Status)
 	}
-	plan, err := compileModbus(ci.Modbus, "counter", ci.Sizes, ci.Interval.D())
+	plan, err := compileModbus(ci.Modbus, "counter", ci.Sizes, time.Duration(ci.Interval))
 	if err != nil {
 		t.Fatal(err)
 	}

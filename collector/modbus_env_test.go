@@ -5,18 +5,20 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 func envModbusSensors() []EnvironmentSensorConfig {
 	return []EnvironmentSensorConfig{
-		{ID: "th-mb", Zone: "assembly", Kind: EnvTemperatureHumidity, Interval: Duration(time.Second), Modbus: &ModbusSource{
-			Address: "127.0.0.1:1", Poll: Duration(100 * time.Millisecond),
+		{ID: "th-mb", Zone: "assembly", Kind: EnvTemperatureHumidity, Interval: model.Duration(time.Second), Modbus: &ModbusSource{
+			Address: "127.0.0.1:1", Poll: model.Duration(100 * time.Millisecond),
 			TemperatureC: &ModbusRegister{Addr: ip(0), Signed: true, Scale: 0.01},
 			HumidityPct:  &ModbusRegister{Addr: ip(1), Scale: 0.01},
 			Status:       &ModbusStatus{Addr: ip(2), Values: map[string]string{"0": StatusOK, "1": StatusFault}},
 		}},
-		{ID: "av-mb", Zone: "coating-hood", Kind: EnvAirVelocity, Interval: Duration(time.Second), Modbus: &ModbusSource{
-			Address: "127.0.0.1:1", Poll: Duration(100 * time.Millisecond),
+		{ID: "av-mb", Zone: "coating-hood", Kind: EnvAirVelocity, Interval: model.Duration(time.Second), Modbus: &ModbusSource{
+			Address: "127.0.0.1:1", Poll: model.Duration(100 * time.Millisecond),
 			VelocityMS: &ModbusRegister{Addr: ip(10), Type: RegHolding, Bits: 32, Scale: 0.0001},
 		}},
 	}

@@ -188,7 +188,7 @@ func NewPoller(reg *Registry, submit Submitter, opt PollerOptions) (*Poller, err
 		if ci.Source != SourceModbus {
 			continue
 		}
-		plan, err := compileModbus(ci.Modbus, "counter", ci.Sizes, ci.Interval.D())
+		plan, err := compileModbus(ci.Modbus, "counter", ci.Sizes, time.Duration(ci.Interval))
 		if err != nil {
 			return nil, fmt.Errorf("%w: counter %s: %w", ErrModbus, ci.ID, err)
 		}
@@ -198,7 +198,7 @@ func NewPoller(reg *Registry, submit Submitter, opt PollerOptions) (*Poller, err
 		if si.Source != SourceModbus {
 			continue
 		}
-		plan, err := compileModbus(si.Modbus, "sensor", nil, si.Interval.D())
+		plan, err := compileModbus(si.Modbus, "sensor", nil, time.Duration(si.Interval))
 		if err != nil {
 			return nil, fmt.Errorf("%w: sensor %s: %w", ErrModbus, si.ID, err)
 		}
@@ -233,7 +233,7 @@ func (p *Poller) addEnvironment(reg *Registry, sub EnvironmentSubmitter) error {
 		if sub == nil {
 			return fmt.Errorf("%w: environment sensor %s is polled, but PollerOptions.Environment is not set", ErrModbus, ei.ID)
 		}
-		plan, err := compileModbus(ei.Modbus, "environment", ei.Channels(), ei.Interval.D())
+		plan, err := compileModbus(ei.Modbus, "environment", ei.Channels(), time.Duration(ei.Interval))
 		if err != nil {
 			return fmt.Errorf("%w: environment sensor %s: %w", ErrModbus, ei.ID, err)
 		}
@@ -630,7 +630,7 @@ func (d *device) counterReading(vals [][]uint16, now time.Time) (RawReading, *po
 			return raw, fault(ReasonImplausible, "volume reads %g L", vol)
 		}
 	} else {
-		flow, secs := ci.FlowLPM, ci.Interval.D().Seconds()
+		flow, secs := ci.FlowLPM, time.Duration(ci.Interval).Seconds()
 		if raw.FlowLPM > 0 {
 			flow = raw.FlowLPM
 		}

@@ -14,6 +14,7 @@ import (
 
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/testutil"
+	"github.com/prometheus/common/model"
 	"github.com/simonvetter/modbus"
 )
 
@@ -720,7 +721,7 @@ func TestModbusPollerConnectionBound(t *testing.T) {
 func TestModbusPollerSensor(t *testing.T) {
 	s := mbSensor()
 	s.Modbus.Address = ""
-	s.Modbus.Poll = Duration(100 * time.Millisecond)
+	s.Modbus.Poll = model.Duration(100 * time.Millisecond)
 	r := newRig(t, nil, []Sensor{s}, PollerOptions{})
 	if err := r.slaves[s.ID].PublishPressure(-3.5); err != nil {
 		t.Fatal(err)

@@ -9,6 +9,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // socatPair links two pseudo-terminals with socat (Debian socat), as a
@@ -86,20 +88,20 @@ func TestModbusRTUAgainstPymodbus(t *testing.T) {
 	startRTUSensors(t, py, theirs, "--baud", "38400", "--parity", "N", "--stop", "2")
 
 	addr := "rtu://" + ours + "?baud=38400&parity=none"
-	poll := Duration(200 * time.Millisecond)
+	poll := model.Duration(200 * time.Millisecond)
 	es := []EnvironmentSensorConfig{
-		{ID: "th-rtu", Zone: "assembly", Kind: EnvTemperatureHumidity, Interval: Duration(time.Second), Modbus: &ModbusSource{
+		{ID: "th-rtu", Zone: "assembly", Kind: EnvTemperatureHumidity, Interval: model.Duration(time.Second), Modbus: &ModbusSource{
 			Address: addr, Unit: ip(7), Poll: poll,
 			TemperatureC: &ModbusRegister{Addr: ip(0), Signed: true, Scale: 0.01},
 			HumidityPct:  &ModbusRegister{Addr: ip(1), Scale: 0.01},
 			Status:       &ModbusStatus{Addr: ip(2), Values: map[string]string{"0": StatusOK}},
 		}},
-		{ID: "av-rtu", Zone: "coating-hood", Kind: EnvAirVelocity, Interval: Duration(time.Second), Modbus: &ModbusSource{
+		{ID: "av-rtu", Zone: "coating-hood", Kind: EnvAirVelocity, Interval: model.Duration(time.Second), Modbus: &ModbusSource{
 			Address: addr, Unit: ip(8), Poll: poll,
 			VelocityMS: &ModbusRegister{Addr: ip(0), Type: RegHolding, Scale: 0.001},
 		}},
-		{ID: "th-silent", Zone: "assembly", Kind: EnvTemperature, Interval: Duration(time.Second), Modbus: &ModbusSource{
-			Address: addr, Unit: ip(9), Poll: poll, Timeout: Duration(150 * time.Millisecond),
+		{ID: "th-silent", Zone: "assembly", Kind: EnvTemperature, Interval: model.Duration(time.Second), Modbus: &ModbusSource{
+			Address: addr, Unit: ip(9), Poll: poll, Timeout: model.Duration(150 * time.Millisecond),
 			TemperatureC: &ModbusRegister{Addr: ip(0), Signed: true, Scale: 0.01},
 		}},
 	}

@@ -53,7 +53,7 @@ func NewCounterSlave(c Counter) (*ModbusSlave, error) {
 		}
 		keys[i] = classify.FormatSize(v)
 	}
-	plan, err := compileModbus(c.Modbus, "counter", c.Sizes, c.Interval.D())
+	plan, err := compileModbus(c.Modbus, "counter", c.Sizes, time.Duration(c.Interval))
 	if err != nil {
 		return nil, fmt.Errorf("counter %s: %w", c.ID, err)
 	}
@@ -68,7 +68,7 @@ func NewSensorSlave(ss Sensor) (*ModbusSlave, error) {
 		return nil, fmt.Errorf("%w: sensor %s has no modbus section", ErrModbus, ss.ID)
 	}
 	ss = ss.withDefaults()
-	plan, err := compileModbus(ss.Modbus, "sensor", nil, ss.Interval.D())
+	plan, err := compileModbus(ss.Modbus, "sensor", nil, time.Duration(ss.Interval))
 	if err != nil {
 		return nil, fmt.Errorf("sensor %s: %w", ss.ID, err)
 	}
@@ -82,7 +82,7 @@ func NewEnvironmentSlave(e EnvironmentSensorConfig) (*ModbusSlave, error) {
 		return nil, fmt.Errorf("%w: environment sensor %s has no modbus section", ErrModbus, e.ID)
 	}
 	e = e.withDefaults()
-	plan, err := compileModbus(e.Modbus, "environment", e.Channels(), e.Interval.D())
+	plan, err := compileModbus(e.Modbus, "environment", e.Channels(), time.Duration(e.Interval))
 	if err != nil {
 		return nil, fmt.Errorf("environment sensor %s: %w", e.ID, err)
 	}

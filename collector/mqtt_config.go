@@ -10,6 +10,8 @@ import (
 	"slices"
 	"strings"
 	"time"
+
+	"github.com/prometheus/common/model"
 )
 
 // Kinds of data an MQTT topic carries.
@@ -68,11 +70,11 @@ type MQTTConfig struct {
 	// nothing since duplicates are dropped by the store. Default 1.
 	QoS *int `yaml:"qos"`
 	// KeepAlive, default 30s; ConnectTimeout, default 10s.
-	KeepAlive      Duration `yaml:"keep_alive"`
-	ConnectTimeout Duration `yaml:"connect_timeout"`
+	KeepAlive      model.Duration `yaml:"keep_alive"`
+	ConnectTimeout model.Duration `yaml:"connect_timeout"`
 	// MaxBackoff bounds the wait between reconnection attempts (which
 	// doubles from 1 s), default 1m.
-	MaxBackoff Duration `yaml:"max_backoff"`
+	MaxBackoff model.Duration `yaml:"max_backoff"`
 	// Topics says what each subscription carries; at least one.
 	Topics []MQTTTopic `yaml:"topics"`
 }
@@ -155,7 +157,7 @@ func ValidateMQTT(c *MQTTConfig, reg *Registry) []FieldError {
 	}
 	for _, d := range []struct {
 		name string
-		d    Duration
+		d    model.Duration
 	}{{"keep_alive", c.KeepAlive}, {"connect_timeout", c.ConnectTimeout}, {"max_backoff", c.MaxBackoff}} {
 		if d.d < 0 {
 			add(p+"."+d.name, "must not be negative")

@@ -57,7 +57,7 @@ func decodePayload(t *mqttTopic, payload []byte, reg *Registry) (mqttBatch, *Inp
 		if errors.As(err, &ie) {
 			return b, ie
 		}
-		return b, inputErr(0, "", "%v", err)
+		return b, inputErrRule(0, "", RuleSyntax, "%v", err)
 	}
 	return b, nil
 }
@@ -71,7 +71,7 @@ func ownedBy(i int, field string, id *string, topicID string) *InputError {
 	case *id == "":
 		*id = topicID
 	case *id != topicID:
-		return inputErr(i, field, "%q, but the topic carries %q", *id, topicID)
+		return inputErrRule(i, field, RuleTopicInstrument, "%q, but the topic carries %q", *id, topicID)
 	}
 	return nil
 }
@@ -83,10 +83,10 @@ func decodeFlat(t *mqttTopic, payload []byte, reg *Registry) (mqttBatch, *InputE
 	var b mqttBatch
 	var obj map[string]jsontext.Value
 	if err := jsonv2.Unmarshal(payload, &obj); err != nil {
-		return b, inputErr(0, "", "a flat payload must be one JSON object with unique field names: %v", err)
+		return b, inputErrRule(0, "", RuleSyntax, "a flat payload must be one JSON object with unique field names: %v", err)
 	}
 	if obj == nil {
-		return b, inputErr(0, "", "a flat payload must be one JSON object, not null")
+		return b, inputErrRule(0, "", RuleSyntax, "a flat payload must be one JSON object, not null")
 	}
 	f := flatReader{t: t, obj: obj}
 	when, ie := f.time()
@@ -180,11 +180,11 @@ func (f flatReader) number(ch string) (*float64, *InputError) {
 		return nil, nil
 	}
 	if v.Kind() != '0' {
-		return nil, inputErr(0, f.field(ch), "must be a number, not %s", v)
+		return nil, inputErrRule(0, f.field(ch), RuleType, "must be a number, not %s", v)
 	}
 	n, err := strconv.ParseFloat(string(v), 64)
 	if err != nil || math.IsInf(n, 0) {
-		return nil, inputErr(0, f.field(ch), "%s is not a finite number", v)
+		return nil, inputErrRule(0, f.field(ch), RuleType, "%s is not a finite number", v)
 	}
 	return &n, nil
 }
@@ -197,7 +197,7 @@ func (f flatReader) text(ch string) (string, *InputError) {
 	}
 	var s string
 	if v.Kind() != '"' || jsonv2.Unmarshal(v, &s) != nil {
-		return "", inputErr(0, f.field(ch), "must be a string, not %s", v)
+		return "", inputErrRule(0, f.field(ch), RuleType, "must be a string, not %s", v)
 	}
 	return s, nil
 }
@@ -212,7 +212,7 @@ func (f flatReader) time() (string, *InputError) {
 	if v.Kind() == '0' {
 		s, err := strconv.ParseFloat(string(v), 64)
 		if err != nil || !finite(s) || s <= 0 || s > 1e11 {
-			return "", inputErr(0, f.field("time"), "%s is not a time in Unix seconds", v)
+			return "", inputErrRule(0, f.field("time"), RuleTimeFormat, "%s is not a time in Unix seconds", v)
 		}
 		sec, frac := math.Modf(s)
 		return time.Unix(int64(sec), int64(math.Round(frac*1e9))).UTC().Format(time.RFC3339Nano), nil

@@ -14,6 +14,8 @@ import (
 
 	mqtt "github.com/eclipse/paho.mqtt.golang"
 	"github.com/prometheus/client_golang/prometheus"
+
+	"github.com/prometheus/common/model"
 )
 
 // ErrMQTT wraps failures of the MQTT source's set-up and sessions.
@@ -138,9 +140,9 @@ func NewMQTTSource(cfg MQTTConfig, reg *Registry, sink MQTTSink, opt MQTTOptions
 	return s, nil
 }
 
-func durOr(d Duration, def time.Duration) time.Duration {
+func durOr(d model.Duration, def time.Duration) time.Duration {
 	if d > 0 {
-		return d.D()
+		return time.Duration(d)
 	}
 	return def
 }
@@ -274,7 +276,7 @@ func (s *MQTTSource) handle(ss *session, m mqtt.Message) {
 		return
 	}
 	if len(m.Payload()) > s.opt.MaxPayload {
-		s.reject(t, m, inputErr(0, "", "payload of %d bytes is beyond the %d-byte limit", len(m.Payload()), s.opt.MaxPayload))
+		s.reject(t, m, inputErrRule(0, "", RuleTooLarge, "payload of %d bytes is beyond the %d-byte limit", len(m.Payload()), s.opt.MaxPayload))
 		return
 	}
 	b, ie := decodePayload(t, m.Payload(), s.reg)
@@ -310,7 +312,7 @@ func (s *MQTTSource) reject(t *mqttTopic, m mqtt.Message, ie *InputError) {
 // commit hands the batch to the sink.
 func (s *MQTTSource) commit(ctx context.Context, t *mqttTopic, b *mqttBatch) (Result, error) {
 	if b.len() == 0 {
-		return Result{}, inputErr(0, "", "empty: the payload holds no %s", t.kind)
+		return Result{}, inputErrRule(0, "", RuleSyntax, "empty: the payload holds no %s", t.kind)
 	}
 	switch t.kind {
 	case MQTTReadings:

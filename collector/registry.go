@@ -48,6 +48,7 @@ type Registry struct {
 	sensors    map[string]*SensorInfo
 	counterIDs []string                          // sorted
 	sensorIDs  []string                          // sorted
+	bounds     Bounds                            // physical limits of samples (bounds.go); zero: defaults
 	env        map[string]*EnvironmentSensorInfo // set by WithEnvironment
 	envIDs     []string                          // sorted
 	envBounds  EnvironmentBounds                 // zero: the defaults

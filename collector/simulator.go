@@ -256,13 +256,13 @@ func (s *Simulator) start(t time.Time) {
 	if !s.started {
 		s.started, s.cursor = true, t
 		for _, c := range s.counters {
-			c.next = gridAfter(t, c.info.Interval.D())
+			c.next = gridAfter(t, time.Duration(c.info.Interval))
 		}
 		for _, p := range s.sensors {
-			p.next = gridAfter(t, p.info.Interval.D())
+			p.next = gridAfter(t, time.Duration(p.info.Interval))
 		}
 		for _, e := range s.env {
-			e.next = gridAfter(t, e.info.Interval.D())
+			e.next = gridAfter(t, time.Duration(e.info.Interval))
 		}
 		return
 	}
@@ -321,13 +321,13 @@ func (s *Simulator) Run(ctx context.Context, speed float64, submit Submitter) er
 	simStart, wallStart := s.cursor, time.Now()
 	shortest := time.Hour
 	for _, c := range s.counters {
-		shortest = min(shortest, c.info.Interval.D())
+		shortest = min(shortest, time.Duration(c.info.Interval))
 	}
 	for _, p := range s.sensors {
-		shortest = min(shortest, p.info.Interval.D())
+		shortest = min(shortest, time.Duration(p.info.Interval))
 	}
 	for _, e := range s.env {
-		shortest = min(shortest, e.info.Interval.D())
+		shortest = min(shortest, time.Duration(e.info.Interval))
 	}
 	tick := min(max(time.Duration(float64(shortest)/speed), 10*time.Millisecond), time.Second)
 	t := time.NewTicker(tick)
@@ -381,7 +381,7 @@ func (s *Simulator) advance(to time.Time) Batch {
 	}
 	var rs []stamped[RawReading]
 	for _, c := range s.counters {
-		for d := c.info.Interval.D(); c.next.Before(to); c.next = c.next.Add(d) {
+		for d := time.Duration(c.info.Interval); c.next.Before(to); c.next = c.next.Add(d) {
 			if raw, ok := c.sample(c.next, s.opt); ok {
 				rs = append(rs, stamped[RawReading]{c.next, raw})
 			}
@@ -389,13 +389,13 @@ func (s *Simulator) advance(to time.Time) Batch {
 	}
 	var ps []stamped[RawPressure]
 	for _, p := range s.sensors {
-		for d := p.info.Interval.D(); p.next.Before(to); p.next = p.next.Add(d) {
+		for d := time.Duration(p.info.Interval); p.next.Before(to); p.next = p.next.Add(d) {
 			ps = append(ps, stamped[RawPressure]{p.next, p.sample(p.next, s.opt)})
 		}
 	}
 	var es []stamped[RawEnvironment]
 	for _, e := range s.env {
-		for d := e.info.Interval.D(); e.next.Before(to); e.next = e.next.Add(d) {
+		for d := time.Duration(e.info.Interval); e.next.Before(to); e.next = e.next.Add(d) {
 			es = append(es, stamped[RawEnvironment]{e.next, e.sample(e.next, s.opt.EnvExcursionRate)})
 		}
 	}
@@ -449,7 +449,7 @@ func (c *simCounter) sample(t time.Time, opt SimOptions) (RawReading, bool) {
 	// Flow and volume are rounded as an instrument would report them, the
 	// volume computed from the reported flow so that the two agree.
 	flow := round(ci.FlowLPM*(1+max(-3*simFlowSigma, min(3*simFlowSigma, simFlowSigma*r.NormFloat64()))), 1e3)
-	secs := ci.Interval.D().Seconds()
+	secs := time.Duration(ci.Interval).Seconds()
 	vol := round(flow*secs/60, 1e4)
 	level := c.frac * c.refLimit * math.Exp(c.dev) * mult
 	n := len(ci.SizesUM)

@@ -250,7 +250,7 @@ func TestSimulatorRates(t *testing.T) {
 	for _, ci := range reg.Counters() {
 		rs := sim.readings[ci.ID]
 		ref, limit := refChannel(t, ci)
-		step := ci.Interval.D()
+		step := time.Duration(ci.Interval)
 		above := false
 		for i, r := range rs {
 			if i > 0 {
@@ -289,14 +289,14 @@ func TestSimulatorRates(t *testing.T) {
 				if !prevStart.IsZero() {
 					// Openings 2–6 min apart, start to start (one sample
 					// of rounding either way).
-					if g := p.Time.Sub(prevStart); g < DefaultDoorGapMin-si.Interval.D() || g > DefaultDoorGapMax+si.Interval.D() {
+					if g := p.Time.Sub(prevStart); g < DefaultDoorGapMin-time.Duration(si.Interval) || g > DefaultDoorGapMax+time.Duration(si.Interval) {
 						t.Errorf("%s: door openings %s apart", si.ID, g)
 					}
 				}
 				dipStart, prevStart = p.Time, p.Time
 			}
 			// Every dip recovers within the sensor's delay: no alarm due.
-			if below && p.Time.Sub(dipStart) >= si.Delay.D() {
+			if below && p.Time.Sub(dipStart) >= time.Duration(si.Delay) {
 				t.Errorf("%s: still below %g Pa %s after the dip began", si.ID, si.MinPa, p.Time.Sub(dipStart))
 			}
 		}

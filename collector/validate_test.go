@@ -170,7 +170,10 @@ func TestVolumeConsistency(t *testing.T) {
 		{"25.5", 0, true},
 		{"25.4", 0, false},
 		{"28.4", 0.001, false},
-		{"100", -1, true},
+		// With the consistency check off, the pump's limit still holds:
+		// at most 2 × 28.3 L/min × 60 s × 1.05 = 59.43 L.
+		{"59.4", -1, true},
+		{"100", -1, false},
 	}
 	for _, c := range cases {
 		t.Run(c.vol, func(t *testing.T) {
@@ -228,6 +231,10 @@ func TestTimeBounds(t *testing.T) {
 func TestInputErrorText(t *testing.T) {
 	e := &InputError{Index: 3, Field: "counts.0.5", Msg: "count -1 is negative", Line: 7}
 	if got, want := e.Error(), "element 3 (line 7), counts.0.5: count -1 is negative"; got != want {
+		t.Errorf("%q, want %q", got, want)
+	}
+	e.Rule = RuleCount
+	if got, want := e.Error(), "element 3 (line 7), counts.0.5: count -1 is negative [rule count-value]"; got != want {
 		t.Errorf("%q, want %q", got, want)
 	}
 	if !errors.Is(e, ErrInput) {

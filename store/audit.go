@@ -38,7 +38,7 @@ const AuditActorSystem = "cleanmon"
 
 var storeActions = map[string]bool{
 	AuditChainStart: true, AuditReadings: true, AuditPressure: true, AuditOpState: true,
-	AuditAlarm: true, AuditSweep: true, AuditBackup: true,
+	AuditAlarm: true, AuditSweep: true, AuditBackup: true, AuditKeyChange: true, AuditUncleanStop: true,
 }
 
 // AuditEntry is one entry of the audit trail. Each entry is chained to the
@@ -158,6 +158,9 @@ func appendAudit(tx *bolt.Tx, e *AuditEntry) (uint64, [32]byte, error) {
 	v = append(v, body...)
 	if err := b.Put(key, seal(key, v)); err != nil {
 		return 0, prev, fmt.Errorf("store: audit entry: %w", err)
+	}
+	if err := signEntry(tx, seq, hash); err != nil {
+		return 0, prev, err
 	}
 	return seq, hash, nil
 }

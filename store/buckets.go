@@ -21,9 +21,11 @@ var (
 	bucketAlarmsAt  = []byte("alarms_updated")     // updated ‖ alarm ID → index mark
 	bucketOutbox    = []byte("outbox")             // notifier → item ID → item
 	bucketAudit     = []byte("audit")              // sequence → chained audit entry
+	bucketAuditSig  = []byte("audit_sig")          // sequence → key id ‖ Ed25519 signature (audit_sign.go)
 	knownBuckets    = [][]byte{
 		bucketMeta, bucketReadings, bucketPressure, bucketRollup1m, bucketRollup1h, bucketOpState,
-		bucketJournal, bucketJournalAt, bucketAlarms, bucketAlarmsAt, bucketOutbox, bucketAudit,
+		bucketJournal, bucketJournalAt, bucketAlarms, bucketAlarmsAt, bucketOutbox, bucketAudit, bucketRuns, bucketAccounts,
+		bucketAuditSig,
 	}
 	metaSchema      = []byte("schema")       // uvarint schemaVersion
 	metaSweptBefore = []byte("swept_before") // 8-byte key: latest Sweep horizon

@@ -120,6 +120,9 @@ func Open(dir string, opt Options) (*Store, error) {
 		_ = db.Close()
 		return nil, err
 	}
+	if _, err := s.markRunning(); err != nil { // unclean.go; reads stay served on a full disk
+		log.Warn("store: could not mark the store open; an unclean stop of this run will not be recorded", "path", path, "err", err)
+	}
 	go s.committer()
 	return s, nil
 }
@@ -141,6 +144,7 @@ func (s *Store) Close() error {
 	s.inflight.Wait()
 	close(s.reqs)
 	<-s.committerDone
+	s.closeAudit() // unclean.go
 	return s.db.Close()
 }
 

@@ -50,7 +50,7 @@ func TestZoneClassification(t *testing.T) {
 	d.getJSON("/api/v1/zones/hood/classification"+hourRange(0), &rep)
 	// ISO 14644-1:2015 Table A.1: ≤ 2 m² → 1 location. ISO 5 limits
 	// 3 520 /m³ at 0.5 µm and 832 at 1 µm (Table 1). Single sample volume
-	// 20/832 × 1000 ≈ 24.04 L (DESIGN.md §3), so each 28.3 L reading is a
+	// 20/832 × 1000 ≈ 24.04 L, so each 28.3 L reading is a
 	// sample of its own. Mean at 0.5 µm: (50 + 40 + 60)/3 per 28.3 L.
 	if rep.Verdict != "pass" || rep.Class == nil || *rep.Class != 5 || rep.RequiredLocations != 1 || len(rep.Locations) != 1 ||
 		rep.Locations[0].ID != "hood-1" || rep.Locations[0].Samples != 3 || !rep.Locations[0].Pass || *rep.LimitsPerM3["0.5"] != 3520 {
@@ -71,7 +71,7 @@ func TestZoneClassification(t *testing.T) {
 
 	d.getJSON("/api/v1/zones/fill/classification"+hourRange(0), &rep)
 	// Grade B at rest (EU GMP Annex 1 (2022) classification: 3 520 /m³ at
-	// 0.5 µm, 5 µm not specified, DESIGN.md §3): the single sample volume
+	// 0.5 µm, 5 µm not specified): the single sample volume
 	// is 20/3520 × 1000 ≈ 5.68 L. Two 2.83 L readings (5.66 L) fall just
 	// short, so three are pooled into one sample of 8.49 L and the last
 	// two are left out.

@@ -51,7 +51,7 @@ func TestAccessByRole(t *testing.T) {
 		{"ingest", secretIngest}, {"viewer", secretViewer}, {"operator", secretOperator}, {"admin", secretAdmin},
 	}
 	// Expected per route and token, in the order of tokens above (the
-	// roles of DESIGN.md §4 as the daemon issue defines them): 0 is
+	// roles of the access rules): 0 is
 	// "let through" — the handler ran and answered on its own terms (a
 	// classification of an empty range is 422, an unknown alarm 404).
 	const ok = 0
@@ -172,25 +172,6 @@ func TestOpenReads(t *testing.T) {
 	for _, c := range cases {
 		if code, _, body := d.do(c.method, c.path, c.token, c.ct, c.body); code != c.code {
 			t.Errorf("%s %s token %q: %d %s, want %d", c.method, c.path, c.token, code, body, c.code)
-		}
-	}
-}
-
-func TestGrants(t *testing.T) {
-	// The role table of the access rules, checked cell by cell.
-	table := map[string][4]bool{ // read, ingest, operate, admin
-		roleIngest:   {false, true, false, false},
-		roleViewer:   {true, false, false, false},
-		roleOperator: {true, false, true, false},
-		roleAdmin:    {true, true, true, true},
-		"":           {false, false, false, false},
-		"root":       {false, false, false, false},
-	}
-	for role, w := range table {
-		for p, want := range w {
-			if got := grants(role, permission(p)); got != want {
-				t.Errorf("grants(%q, %s) = %v, want %v", role, permission(p), got, want)
-			}
 		}
 	}
 }

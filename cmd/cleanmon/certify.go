@@ -11,21 +11,9 @@ import (
 	"time"
 
 	"cleanmon/classify"
+	"cleanmon/cmd/cleanmon/internal/report"
 	"cleanmon/collector"
 )
-
-// certifyOut is the certify JSON: the classify report (DESIGN.md §4 keys
-// at top level) with the report's own context.
-type certifyOut struct {
-	classify.Report
-	Site          string `json:"site,omitempty"`
-	Zone          string `json:"zone,omitempty"`
-	Date          string `json:"date,omitempty"`
-	Certifier     string `json:"certifier,omitempty"`
-	SamplesFile   string `json:"samples_file,omitempty"`
-	SamplesSHA256 string `json:"samples_sha256,omitempty"`
-	Differential  bool   `json:"differential_counts"`
-}
 
 func runCertify(args []string, stdout, stderr io.Writer) int {
 	fs := newFlags("certify", "--class N --area M2 --sizes LIST [--edition 2015|1999] [--state at-rest|in-operation] [--format text|json|html] [--out FILE] SAMPLES.csv", stderr)
@@ -34,7 +22,7 @@ func runCertify(args []string, stdout, stderr io.Writer) int {
 	format := fs.String("format", "text", "report format: text, json or html")
 	outFile := fs.String("out", "", "write the report to this file (atomically) instead of stdout")
 	differential := fs.Bool("differential", false, "counts in the file are per channel (this size up to the next), not cumulative")
-	var meta certifyOut
+	var meta report.Certification
 	fs.StringVar(&meta.Site, "site", "", "site name printed on the report")
 	fs.StringVar(&meta.Zone, "zone", "", "zone name printed on the report")
 	fs.StringVar(&meta.Date, "date", "", "report date (default today, UTC)")
@@ -86,9 +74,9 @@ func runCertify(args []string, stdout, stderr io.Writer) int {
 			enc.SetIndent("", "  ")
 			return enc.Encode(meta)
 		case "html":
-			return writeHTMLReport(w, t, meta)
+			return report.WriteHTML(w, t, meta)
 		default:
-			return writeTextReport(w, t, meta)
+			return report.WriteText(w, t, meta)
 		}
 	})
 	if err != nil {

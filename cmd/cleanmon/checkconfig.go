@@ -1,6 +1,7 @@
 package main
 
 import (
+	"cleanmon/cmd/cleanmon/internal/site"
 	"errors"
 	"flag"
 	"fmt"
@@ -33,24 +34,11 @@ func runCheckConfig(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintln(stderr, "cleanmon check-config: --config FILE is required")
 		return exitUsage
 	}
-	cfg, err := loadConfigFile(*path)
+	cfg, err := site.LoadFile(*path)
 	if err != nil {
-		printConfigError(stderr, "cleanmon check-config", err)
+		site.PrintError(stderr, "cleanmon check-config", err)
 		return exitUsage
 	}
 	fmt.Fprintf(stdout, "ok: %d zones, %d counters, %d sensors\n", len(cfg.Zones), len(cfg.Counters), len(cfg.PressureSensors))
 	return exitOK
-}
-
-// printConfigError writes each problem on its own line; a file that could
-// not be read at all gets one line with the command's name.
-func printConfigError(w io.Writer, cmd string, err error) {
-	var ce *configError
-	if errors.As(err, &ce) {
-		for _, p := range ce.Problems {
-			fmt.Fprintln(w, p.String())
-		}
-		return
-	}
-	fmt.Fprintf(w, "%s: %v\n", cmd, err)
 }

@@ -2,6 +2,7 @@ package main
 
 import (
 	"bytes"
+	"cleanmon/cmd/cleanmon/internal/loadtest"
 	"context"
 	"crypto/sha256"
 	"encoding/hex"
@@ -46,18 +47,26 @@ func cleanmonBinary(t *testing.T) string {
 	return binPath
 }
 
-// daemon is one running cleanmon process on loopback (the bench's child).
-type daemon = child
+// process is one running cleanmon daemon process on loopback (the
+// bench's child runner), with its URL and its stderr at hand.
+type process struct {
+	*loadtest.Child
+	url  string
+	logs *loadtest.LockedWriter
+}
+
+func (p *process) kill() { p.Kill() }
+func (p *process) stop() { p.Stop() }
 
 // startDaemon runs `cleanmon serve` until the test ends.
-func startDaemon(t *testing.T, args ...string) *daemon {
+func startDaemon(t *testing.T, args ...string) *process {
 	t.Helper()
-	d, err := startChild(cleanmonBinary(t), append([]string{"serve", "--listen", "127.0.0.1:0"}, args...)...)
+	c, err := loadtest.StartChild(cleanmonBinary(t), append([]string{"serve", "--listen", "127.0.0.1:0"}, args...)...)
 	if err != nil {
 		t.Fatal(err)
 	}
-	t.Cleanup(d.kill)
-	return d
+	t.Cleanup(c.Kill)
+	return &process{Child: c, url: c.URL, logs: c.Logs}
 }
 
 const crashToken = "crash-test-admin-token"

@@ -103,7 +103,7 @@ func TestIngestRefusesBadRequests(t *testing.T) {
 }
 
 // A reading re-sent with the time of a stored one but other values is
-// answered as a duplicate (DESIGN.md §4), the stored reading stays, and it
+// answered as a duplicate, the stored reading stays, and it
 // is counted as a conflict so that someone looks at the instrument.
 func TestIngestConflictKeepsTheFirstReading(t *testing.T) {
 	d := startSite(t, apiSite(false), "")

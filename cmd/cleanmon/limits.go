@@ -4,14 +4,14 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
-	"strings"
 
 	"cleanmon/classify"
+	"cleanmon/cmd/cleanmon/internal/report"
 )
 
 const allTableSizes = "0.1,0.2,0.3,0.5,1,5"
 
-// limitsOut is the JSON of `cleanmon limits --json` (DESIGN.md §4 and the
+// limitsOut is the JSON of `cleanmon limits --json` (the fixed shape and the
 // certification issue: a blank cell is null and has a note).
 type limitsOut struct {
 	Class       *float64            `json:"class,omitempty"`
@@ -112,26 +112,9 @@ func printLimits(w io.Writer, t classify.Target, out limitsOut) {
 			fmt.Fprintf(w, "%10s  %s\n", key, "— (no limit)")
 			continue
 		}
-		fmt.Fprintf(w, "%10s  %s\n", key, groupDigits(*v))
+		fmt.Fprintf(w, "%10s  %s\n", key, report.GroupDigits(*v))
 	}
 	for _, n := range out.Notes {
 		fmt.Fprintf(w, "note: %s\n", n)
 	}
-}
-
-// groupDigits writes a whole number with thin groups of three (35 200 000),
-// the way the standards print their tables; fractions keep one decimal.
-func groupDigits(v float64) string {
-	s := fmt.Sprintf("%.0f", v)
-	if v < 100 && v != float64(int64(v)) {
-		return fmt.Sprintf("%.1f", v)
-	}
-	var b strings.Builder
-	for i, r := range s {
-		if i > 0 && (len(s)-i)%3 == 0 {
-			b.WriteByte(' ')
-		}
-		b.WriteRune(r)
-	}
-	return b.String()
 }

@@ -9,7 +9,7 @@ import (
 	"os"
 )
 
-// Exit statuses shared by every sub-command (DESIGN.md §4).
+// Exit statuses shared by every sub-command.
 const (
 	exitOK    = 0 // success, or a certification that passes
 	exitFail  = 1 // a certification that fails, or a runtime fault

@@ -72,7 +72,7 @@ func TestCertifyGolden(t *testing.T) {
 	}
 }
 
-// The JSON shapes marked MUST in DESIGN.md §4 and in the certification
+// The JSON shapes marked MUST by the project and in the certification
 // issue, checked key by key rather than only through the golden file.
 func TestJSONShapes(t *testing.T) {
 	_, out, _ := runCLI(t, "limits", "--class", "5", "--json")
@@ -144,7 +144,7 @@ func TestCertifyBadInput(t *testing.T) {
 		{"missing size column", "location,volume_l,0.5um\nA,28.3,100\n", nil, "f.csv:1: 5um: column for a considered size is missing"},
 		{"duplicate column", "location,volume_l,0.5um,0.5um,5um\nA,28.3,1,1,1\n", nil, "f.csv:1: 0.5um: column appears twice"},
 		{"unknown column", "location,volume_l,0.5um,5um,operator\nA,28.3,1,1,x\n", nil, "f.csv:1: operator: unknown column"},
-		{"size outside --sizes", "location,volume_l,0.3um,0.5um,5um\nA,28.3,1,1,1\n", nil, "f.csv:1: 0.3um: size 0.3 µm is not among"},
+		{"size outside 0.1–5 µm", "location,volume_l,0.5um,5um,10um\nA,28.3,1,1,1\n", nil, "f.csv:1: 10um: size column"},
 		{"non-numeric count", "# c\nlocation,volume_l,0.5um,5um\n\nA,28.3,12x,2\n", nil, "f.csv:4: 0.5um: \"12x\" is not a whole number"},
 		{"negative count", "location,volume_l,0.5um,5um\nA,28.3,100,2\nB,28.3,-4,0\n", nil, "f.csv:3: 0.5um: \"-4\" is negative"},
 		{"zero volume", "location,volume_l,0.5um,5um\nA,0,100,2\n", nil, "f.csv:2: volume_l: 0 L: the sampled volume must be positive"},

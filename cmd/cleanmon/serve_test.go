@@ -15,6 +15,7 @@ import (
 	"testing"
 	"time"
 
+	"cleanmon/cmd/cleanmon/internal/daemon"
 	"cleanmon/store"
 )
 
@@ -103,7 +104,7 @@ func TestSecondDaemonOnSameDataDir(t *testing.T) {
 	ctx, cancel := context.WithTimeout(context.Background(), 20*time.Second)
 	defer cancel()
 	var out, errb bytes.Buffer
-	code := serve(ctx, serveOptions{configPath: p, dataDir: dir, listen: "127.0.0.1:0", speed: 1}, &out, &errb)
+	code := serve(ctx, daemon.Options{ConfigPath: p, DataDir: dir, Listen: "127.0.0.1:0", Speed: 1}, &out, &errb)
 	if code != exitFail || !strings.Contains(errb.String(), "is in use by another cleanmon process") || out.Len() != 0 {
 		t.Fatalf("exit %d, stdout %q, stderr:\n%s", code, out.String(), errb.String())
 	}
@@ -212,7 +213,7 @@ func TestBackupEndpoint(t *testing.T) {
 
 func TestDemoServesFiveZonesAtOnce(t *testing.T) {
 	began := time.Now()
-	d := startTestDaemon(t, serveOptions{demo: true})
+	d := startTestDaemon(t, daemon.Options{Demo: true})
 	var zs []zoneOut
 	code, _, b := d.do("GET", "/api/v1/zones", "", "", nil) // open: no token
 	elapsed := time.Since(began)
@@ -226,7 +227,7 @@ func TestDemoServesFiveZonesAtOnce(t *testing.T) {
 	for _, z := range zs {
 		ids = append(ids, z.ID)
 	}
-	// DESIGN.md §6: the five zones of the demo site.
+	// the demo site: the five zones of the demo site.
 	if strings.Join(ids, ",") != "coating-hood,assembly,metrology,gowning,corridor" {
 		t.Fatalf("zones %v", ids)
 	}
@@ -287,7 +288,7 @@ func TestDemoServesFiveZonesAtOnce(t *testing.T) {
 
 func TestDemoSpeed(t *testing.T) {
 	dir := t.TempDir()
-	d := startTestDaemon(t, serveOptions{demo: true, dataDir: dir, speed: 120})
+	d := startTestDaemon(t, daemon.Options{Demo: true, DataDir: dir, Speed: 120})
 	first := time.Time{}
 	deadline := time.Now().Add(20 * time.Second)
 	for {

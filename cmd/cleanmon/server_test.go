@@ -3,6 +3,7 @@ package main
 import (
 	"bufio"
 	"bytes"
+	"cleanmon/cmd/cleanmon/internal/daemon"
 	"context"
 	"crypto/sha256"
 	"encoding/hex"
@@ -31,8 +32,8 @@ func tokenHash(s string) string {
 	return hex.EncodeToString(h[:])
 }
 
-// apiSite is the site of the API tests (zones of the invented site of
-// DESIGN.md §6, cut down): an ISO 5 hood of 2 m² with one location, an
+// apiSite is the site of the API tests (zones of the invented demo site,
+// cut down): an ISO 5 hood of 2 m² with one location, an
 // ISO 7 hall with two, a GMP grade B room and an unclassified corridor.
 func apiSite(openReads bool) string {
 	return fmt.Sprintf(`site: "Veldmark Photonics, building C (API tests)"
@@ -111,17 +112,17 @@ type testDaemon struct {
 
 // startTestDaemon runs serve with o (listen defaults to 127.0.0.1:0) and waits
 // for the URL it prints.
-func startTestDaemon(t *testing.T, o serveOptions) *testDaemon {
+func startTestDaemon(t *testing.T, o daemon.Options) *testDaemon {
 	t.Helper()
-	if o.listen == "" {
-		o.listen = "127.0.0.1:0"
+	if o.Listen == "" {
+		o.Listen = "127.0.0.1:0"
 	}
-	if o.speed == 0 {
-		o.speed = 1
+	if o.Speed == 0 {
+		o.Speed = 1
 	}
 	ctx, cancel := context.WithCancel(context.Background())
 	pr, pw := io.Pipe()
-	d := &testDaemon{t: t, dataDir: o.dataDir, stderr: &syncBuffer{}, cancel: cancel, done: make(chan int, 1),
+	d := &testDaemon{t: t, dataDir: o.DataDir, stderr: &syncBuffer{}, cancel: cancel, done: make(chan int, 1),
 		client: &http.Client{Timeout: 20 * time.Second}}
 	go func() {
 		code := serve(ctx, o, pw, d.stderr)
@@ -167,7 +168,7 @@ func startSite(t *testing.T, yaml, dataDir string) *testDaemon {
 	if dataDir == "" {
 		dataDir = t.TempDir()
 	}
-	return startTestDaemon(t, serveOptions{configPath: p, dataDir: dataDir})
+	return startTestDaemon(t, daemon.Options{ConfigPath: p, DataDir: dataDir})
 }
 
 // stop shuts the testDaemon down as a signal would and returns its exit status.

@@ -105,7 +105,7 @@ func TestTLSAndReload(t *testing.T) {
 	// Renewed certificate, one token revoked and one added.
 	cert2, key2, pool2 := selfSigned(t, dir, "second")
 	os.WriteFile(cfg, []byte(transportSite(map[string]string{"wall": "secret-wall", "new": "secret-new"}, cert2, key2, 1000)), 0o600)
-	d.cmd.Process.Signal(syscall.SIGHUP)
+	d.Signal(syscall.SIGHUP)
 	waitFor(t, 10*time.Second, "the reload", func() bool {
 		// Until the reload lands the old certificate is served, which this
 		// client does not trust: that is a "not yet", not a failure.
@@ -138,7 +138,7 @@ func TestTLSAndReload(t *testing.T) {
 	})
 	// A broken file on reload changes nothing.
 	os.WriteFile(cfg, []byte("site: [unclosed\n"), 0o600)
-	d.cmd.Process.Signal(syscall.SIGHUP)
+	d.Signal(syscall.SIGHUP)
 	time.Sleep(300 * time.Millisecond) // the refusal is only logged; give it a moment, then check nothing moved
 	if code, _ := get(t, client(pool2, 0), d.url+"/api/v1/zones", "secret-new"); code != 200 {
 		t.Errorf("a broken reload changed the tokens: %d", code)

@@ -71,14 +71,14 @@ func TestPagesOnDemoSite(t *testing.T) {
 
 	b.open(d.url+"/", `document.body.dataset.ready === "yes"`)
 
-	// Every zone of the demo site (DESIGN.md §6) and of the API is on the page.
+	// Every zone of the demo site and of the API is on the page.
 	var shown []struct{ ID, Text, State string }
 	b.eval(`[...document.querySelectorAll(".zone-card[data-zone]")].map(n => ({id: n.dataset.zone, text: n.innerText, state: n.dataset.state}))`, &shown)
 	ids := map[string]string{}
 	for _, s := range shown {
 		ids[s.ID] = s.Text
 	}
-	for _, want := range []string{"coating-hood", "assembly", "metrology", "gowning", "corridor"} { // DESIGN.md §6
+	for _, want := range []string{"coating-hood", "assembly", "metrology", "gowning", "corridor"} { // the demo site
 		if _, ok := ids[want]; !ok {
 			t.Errorf("overview lacks demo zone %s; shows %v", want, shown)
 		}
@@ -93,7 +93,7 @@ func TestPagesOnDemoSite(t *testing.T) {
 	// and the sensor shows its minimum.
 	var sensors []uiSensor
 	uiGet(t, d.url+"/api/v1/sensors", "", &sensors)
-	if len(sensors) != 4 { // DESIGN.md §6: four "pressure to" entries
+	if len(sensors) != 4 { // the demo site: four "pressure to" entries
 		t.Fatalf("demo has %d DP sensors, want 4", len(sensors))
 	}
 	var tops map[string]float64
@@ -204,7 +204,7 @@ const (
 	uiIngest   = "ui-ingest-secret-0d9e"
 )
 
-// uiTokenSite is a cut-down site of DESIGN.md §6 with tokens and no open
+// uiTokenSite is a cut-down site of the demo site with tokens and no open
 // reads: a coating hood of 3 m² with two locations (ISO 14644-1:2015
 // Table A.1: 2–4 m² needs 2), the assembly hall with alert and action
 // levels, and the metrology room for a year of hourly readings.
@@ -434,7 +434,7 @@ func TestPagesOnTokenSite(t *testing.T) {
 // uiCertification posts planned samples of the coating hood and compares,
 // for a clean period and one with an excursion, the certification page
 // with `cleanmon certify` on a file of the same samples.
-func uiCertification(t *testing.T, b *browser, d *daemon, now time.Time) {
+func uiCertification(t *testing.T, b *browser, d *process, now time.Time) {
 	base := now.Truncate(time.Minute).Add(-3 * time.Hour)
 	var rs []uiReading
 	for i := 0; i < 5; i++ {
@@ -596,7 +596,7 @@ func uiReportBody(t *testing.T, html []byte) string {
 // uiYearChart posts a year of hourly readings for one location and draws
 // the zone page's year view, which comes from the hourly rollups, and
 // prints how long the browser took (a measurement, not a timed assertion).
-func uiYearChart(t *testing.T, b *browser, d *daemon, now time.Time) {
+func uiYearChart(t *testing.T, b *browser, d *process, now time.Time) {
 	end := now.Truncate(time.Hour)
 	var rs []uiReading
 	for i := 1; i <= 8760; i++ {

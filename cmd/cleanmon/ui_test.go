@@ -2,175 +2,27 @@ package main
 
 import (
 	"bytes"
+	"cleanmon/cmd/cleanmon/internal/access"
+	"cleanmon/cmd/cleanmon/internal/report"
+	"cleanmon/cmd/cleanmon/internal/web"
 	"crypto/sha256"
 	"encoding/base64"
 	"encoding/hex"
 	"encoding/json"
 	"fmt"
 	"math"
-	"net/http"
 	"os"
-	"path"
 	"path/filepath"
 	"regexp"
-	"slices"
-	"sort"
 	"strings"
 	"testing"
 	"time"
-
-	"cleanmon/alerts"
-	"cleanmon/collector"
 )
 
 // TestPageRoutes serves every page and every embedded asset through the
 // real daemon: each with the strict policy and the other security
 // headers, its content type and its embedded bytes, revalidated by ETag,
 // and answering HEAD; a zone that does not exist and a missing asset are
-// 404s, with the zone name escaped.
-func TestPageRoutes(t *testing.T) {
-	d := startSite(t, apiSite(false), "")
-	type want struct {
-		path, ctype string
-		body        []byte
-	}
-	var cases []want
-	for name, page := range map[string]string{"/": "overview.html", "/alarms": "alarms.html", "/certify": "certify.html", "/zones/hood": "zone.html"} {
-		cases = append(cases, want{name, "text/html; charset=utf-8", webPages[page].body})
-	}
-	for name, f := range webAssets {
-		cases = append(cases, want{"/assets/" + name, contentTypes[path.Ext(name)], f.body})
-	}
-	sort.Slice(cases, func(i, j int) bool { return cases[i].path < cases[j].path })
-	if len(webAssets) < 7 || len(webPages) != 4 {
-		t.Fatalf("embedded %d assets and %d pages; want the 4 pages and their scripts, style sheet and icon", len(webAssets), len(webPages))
-	}
-	for _, c := range cases {
-		t.Run(c.path, func(t *testing.T) {
-			code, h, body := d.do("GET", c.path, "", "", nil)
-			if code != http.StatusOK || !bytes.Equal(body, c.body) {
-				t.Fatalf("%d, %d bytes; want 200 with the %d embedded bytes", code, len(body), len(c.body))
-			}
-			for k, v := range map[string]string{
-				"Content-Security-Policy": pageCSP, "X-Content-Type-Options": "nosniff", "Referrer-Policy": "no-referrer",
-				"X-Frame-Options": "DENY", "Content-Type": c.ctype,
-			} {
-				if h.Get(k) != v {
-					t.Errorf("%s: %q, want %q", k, h.Get(k), v)
-				}
-			}
-			req, _ := http.NewRequest("GET", d.url+c.path, nil)
-			req.Header.Set("If-None-Match", h.Get("ETag"))
-			resp, err := d.client.Do(req)
-			if err != nil {
-				t.Fatal(err)
-			}
-			resp.Body.Close()
-			if h.Get("ETag") == "" || resp.StatusCode != http.StatusNotModified {
-				t.Errorf("revalidation with ETag %q: %d, want 304", h.Get("ETag"), resp.StatusCode)
-			}
-			code, h, body = d.do("HEAD", c.path, "", "", nil)
-			if code != http.StatusOK || len(body) != 0 || h.Get("Content-Security-Policy") != pageCSP {
-				t.Errorf("HEAD: %d, %d bytes, policy %q", code, len(body), h.Get("Content-Security-Policy"))
-			}
-		})
-	}
-	for _, c := range []struct {
-		path, ctype, contains, lacks string
-	}{
-		{"/zones/%3Cb%3Enope", "text/html; charset=utf-8", "&lt;b&gt;nope", "<b>"},
-		{"/assets/nope.js", "application/json", `"error":"no such asset: /assets/nope.js"`, ""},
-		{"/assets/", "application/json", `"error"`, ""},
-	} {
-		t.Run(c.path, func(t *testing.T) {
-			code, h, body := d.do("GET", c.path, "", "", nil)
-			if code != http.StatusNotFound || h.Get("Content-Type") != c.ctype || !strings.Contains(string(body), c.contains) ||
-				(c.lacks != "" && strings.Contains(string(body), c.lacks)) {
-				t.Errorf("%d %q %s", code, h.Get("Content-Type"), body)
-			}
-			if h.Get("Content-Security-Policy") != pageCSP {
-				t.Errorf("policy %q", h.Get("Content-Security-Policy"))
-			}
-		})
-	}
-}
-
-// TestPagesRunUnderStrictPolicy reads the embedded files as the policy
-// would: no inline script, no style attribute, no event-handler
-// attribute, nothing from another origin, one module per page, every
-// referenced asset present, and no script that turns text into markup.
-func TestPagesRunUnderStrictPolicy(t *testing.T) {
-	tag := regexp.MustCompile(`(?is)<([a-z][a-z0-9]*)([^>]*)>`)
-	attr := regexp.MustCompile(`(?is)\s([a-z-]+)\s*=\s*"([^"]*)"`)
-	for name, f := range webPages {
-		t.Run(name, func(t *testing.T) {
-			modules := 0
-			for _, m := range tag.FindAllStringSubmatch(string(f.body), -1) {
-				el, attrs := strings.ToLower(m[1]), map[string]string{}
-				for _, a := range attr.FindAllStringSubmatch(m[2], -1) {
-					attrs[strings.ToLower(a[1])] = a[2]
-				}
-				for k, v := range attrs {
-					switch {
-					case k == "style":
-						t.Errorf("<%s style=%q>: a style attribute the policy refuses", el, v)
-					case strings.HasPrefix(k, "on"):
-						t.Errorf("<%s %s=...>: an event-handler attribute the policy refuses", el, k)
-					case strings.HasPrefix(strings.ToLower(v), "javascript:"):
-						t.Errorf("<%s %s=%q>: a javascript: URL", el, k, v)
-					case (k == "src" || k == "href") && strings.HasPrefix(v, "/assets/"):
-						if webAssets[strings.TrimPrefix(v, "/assets/")] == nil {
-							t.Errorf("<%s %s=%q>: no such embedded asset", el, k, v)
-						}
-					case (k == "src" || k == "href") && strings.Contains(v, "//"):
-						t.Errorf("<%s %s=%q>: another origin", el, k, v)
-					}
-				}
-				switch el {
-				case "script":
-					if attrs["src"] == "" {
-						t.Error("an inline <script>")
-					}
-					if attrs["type"] != "module" {
-						t.Errorf("<script src=%q> is not a module", attrs["src"])
-					}
-					modules++
-				case "style":
-					t.Error("an inline <style> block")
-				}
-			}
-			if modules != 1 {
-				t.Errorf("%d module scripts, want one", modules)
-			}
-		})
-	}
-	forbidden := []string{"innerHTML", "outerHTML", "insertAdjacentHTML", "document.write", "eval(", "new Function", `setAttribute("style"`, ".style.", "https://"}
-	imports := regexp.MustCompile(`(?m)from "\./([^"]+)"`)
-	for name, f := range webAssets {
-		if path.Ext(name) != ".js" {
-			continue
-		}
-		t.Run(name, func(t *testing.T) {
-			src := string(f.body)
-			for _, bad := range forbidden {
-				if strings.Contains(src, bad) {
-					t.Errorf("contains %q", bad)
-				}
-			}
-			// The one http:// string allowed is the SVG namespace name.
-			if strings.Count(src, "http://") != strings.Count(src, "http://www.w3.org/2000/svg") {
-				t.Error("refers to an http:// address other than the SVG namespace")
-			}
-			for _, m := range imports.FindAllStringSubmatch(src, -1) {
-				if webAssets[m[1]] == nil {
-					t.Errorf("imports ./%s, which is not embedded", m[1])
-				}
-			}
-		})
-	}
-}
-
-// TestUISession asks GET /ui/session with each kind of token, on a site
 // with and without open reads; it names the token, never returns it.
 func TestUISession(t *testing.T) {
 	for _, open := range []bool{false, true} {
@@ -203,11 +55,11 @@ func TestUISession(t *testing.T) {
 					decodeAPIError(t, b)
 					return
 				}
-				var s uiSessionJSON
+				var s access.Session
 				if err := json.Unmarshal(b, &s); err != nil {
 					t.Fatal(err)
 				}
-				want := uiSessionJSON{OpenReads: open, SignedIn: c.name != "", Name: c.name, Role: c.role, MayRead: c.mayRead, MayOperate: c.mayOperat}
+				want := access.Session{OpenReads: open, SignedIn: c.name != "", Name: c.name, Role: c.role, MayRead: c.mayRead, MayOperate: c.mayOperat}
 				if s != want {
 					t.Errorf("%+v, want %+v", s, want)
 				}
@@ -217,66 +69,6 @@ func TestUISession(t *testing.T) {
 }
 
 // TestSiteAreas orders the pressure cascade: an area is one step above
-// the highest of its low sides.
-func TestSiteAreas(t *testing.T) {
-	demo, err := demoConfig()
-	if err != nil {
-		t.Fatal(err)
-	}
-	z := func(ids ...string) []alerts.ZoneConfig {
-		var out []alerts.ZoneConfig
-		for _, id := range ids {
-			out = append(out, alerts.ZoneConfig{ID: id})
-		}
-		return out
-	}
-	dp := func(pairs ...string) []collector.Sensor {
-		var out []collector.Sensor
-		for i := 0; i+1 < len(pairs); i += 2 {
-			out = append(out, collector.Sensor{ID: fmt.Sprintf("dp-%d", i/2), High: pairs[i], Low: pairs[i+1]})
-		}
-		return out
-	}
-	cases := []struct {
-		name    string
-		zones   []alerts.ZoneConfig
-		sensors []collector.Sensor
-		want    map[string]int
-		areas   []string // ids that are not zones
-	}{
-		// DESIGN.md §6: hood → assembly, metrology → assembly,
-		// assembly → gowning, gowning → corridor.
-		{"demo site", demo.Zones, demo.PressureSensors,
-			map[string]int{"coating-hood": 3, "metrology": 3, "assembly": 2, "gowning": 1, "corridor": 0}, nil},
-		{"no sensors", z("a", "b"), nil, map[string]int{"a": 0, "b": 0}, nil},
-		{"low side not a zone", z("a"), dp("a", "outside"), map[string]int{"a": 1, "outside": 0}, []string{"outside"}},
-		{"longest path wins", z("a", "b", "c"), dp("a", "c", "a", "b", "b", "c"), map[string]int{"a": 2, "b": 1, "c": 0}, nil},
-		{"cycle is cut", z("a", "b"), dp("a", "b", "b", "a"), map[string]int{"a": 1, "b": 0}, nil},
-	}
-	for _, c := range cases {
-		t.Run(c.name, func(t *testing.T) {
-			got := siteAreas(c.zones, c.sensors)
-			levels := map[string]int{}
-			var areas []string
-			for _, a := range got {
-				levels[a.ID] = a.Level
-				if !a.Zone {
-					areas = append(areas, a.ID)
-				}
-			}
-			if fmt.Sprint(levels) != fmt.Sprint(c.want) || !slices.Equal(areas, c.areas) {
-				t.Errorf("levels %v, areas %v; want %v, %v", levels, areas, c.want, c.areas)
-			}
-			for i, zc := range c.zones {
-				if got[i].ID != zc.ID {
-					t.Errorf("position %d: %s, want the zones first in configuration order", i, got[i].ID)
-				}
-			}
-		})
-	}
-}
-
-// TestUIPressure reduces posted DP samples to buckets and checks each
 // bucket's count, minimum, mean and maximum against the samples.
 func TestUIPressure(t *testing.T) {
 	d := startSite(t, apiSite(false), "")
@@ -306,7 +98,7 @@ func TestUIPressure(t *testing.T) {
 	q := "?from=" + from.Format(time.RFC3339) + "&to=" + to.Format(time.RFC3339)
 	for _, points := range []int{1, 7, 10, 120, 500} {
 		t.Run(fmt.Sprint(points, " points"), func(t *testing.T) {
-			var got uiDPHistoryJSON
+			var got web.DPHistory
 			d.getJSON(fmt.Sprintf("/ui/pressure/dp-hood%s&points=%d", q, points), &got)
 			width := max(to.Sub(from)/time.Duration(points), time.Second)
 			type acc struct {
@@ -408,16 +200,16 @@ func TestCertifyReport(t *testing.T) {
 	if cd := h.Get("Content-Disposition"); !regexp.MustCompile(`^attachment; filename="certification-hood-\d{8}T\d{4}Z-\d{8}T\d{4}Z\.html"$`).MatchString(cd) {
 		t.Errorf("Content-Disposition %q", cd)
 	}
-	if h.Get("Content-Security-Policy") != reportCSP || !strings.Contains(reportCSP, "default-src 'none'") {
-		t.Errorf("policy %q, want %q", h.Get("Content-Security-Policy"), reportCSP)
+	if h.Get("Content-Security-Policy") != report.CSP || !strings.Contains(report.CSP, "default-src 'none'") {
+		t.Errorf("policy %q, want %q", h.Get("Content-Security-Policy"), report.CSP)
 	}
 	m := regexp.MustCompile(`(?s)<style>(.*?)</style>`).FindAllSubmatch(html, -1)
 	if len(m) != 1 {
 		t.Fatalf("%d style blocks in the report", len(m))
 	}
 	sum := sha256.Sum256(m[0][1])
-	if want := "style-src 'sha256-" + base64.StdEncoding.EncodeToString(sum[:]) + "'"; !strings.Contains(reportCSP, want) {
-		t.Errorf("policy %q does not allow the report's style block (%s)", reportCSP, want)
+	if want := "style-src 'sha256-" + base64.StdEncoding.EncodeToString(sum[:]) + "'"; !strings.Contains(report.CSP, want) {
+		t.Errorf("policy %q does not allow the report's style block (%s)", report.CSP, want)
 	}
 	if bytes.Contains(html, []byte("<script")) {
 		t.Error("the report holds a script")

@@ -1,0 +1,124 @@
+package api
+
+import (
+	"cleanmon/alerts"
+	"cleanmon/cmd/cleanmon/internal/httpx"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"net/http"
+	"net/url"
+	"sort"
+	"strings"
+	"time"
+
+	"github.com/go-chi/chi/v5"
+)
+
+// listAlarms is GET /api/v1/alarms?state=active|all[&since=RFC3339]:
+// active are the alarms not cleared (from the engine); all adds what the
+// journal holds since `since` (default the last 7 days).
+func (s *Server) listAlarms(w http.ResponseWriter, r *http.Request) {
+	q := r.URL.Query()
+	state := q.Get("state")
+	switch state {
+	case "", "active", "all":
+	default:
+		httpx.WriteFieldError(w, "state", fmt.Sprintf("%q: want active or all", state))
+		return
+	}
+	out := []alerts.Alarm{}
+	if state != "all" {
+		out = append(out, s.alarms.Active()...)
+	} else {
+		since := s.now().Add(-7 * 24 * time.Hour)
+		if v := q.Get("since"); v != "" {
+			t, err := time.Parse(time.RFC3339Nano, v)
+			if err != nil {
+				httpx.WriteFieldError(w, "since", fmt.Sprintf("%q is not an RFC 3339 time", v))
+				return
+			}
+			since = t
+		}
+		seen := map[string]bool{}
+		for _, a := range s.alarms.Active() {
+			out = append(out, a)
+			seen[a.ID] = true
+		}
+		err := s.store.ScanAlarms(since, func(id string, _ time.Time, snap []byte, _ bool) error {
+			if seen[id] {
+				return nil
+			}
+			var a alerts.Alarm
+			if err := json.Unmarshal(snap, &a); err != nil {
+				return fmt.Errorf("alarm %s: %w", id, err)
+			}
+			seen[id] = true
+			out = append(out, a)
+			return nil
+		})
+		if err != nil {
+			Errors.Write(w, "reading the alarm journal: ", err)
+			return
+		}
+	}
+	sort.SliceStable(out, func(i, j int) bool { return out[i].Since.After(out[j].Since) })
+	httpx.WriteJSON(w, http.StatusOK, out)
+}
+
+// ackRequest is the body of POST /api/v1/alarms/{id}/ack.
+type ackRequest struct {
+	By      string `json:"by"`
+	Comment string `json:"comment"`
+}
+
+const maxAckBody = 8 << 10
+
+// ackAlarm is POST /api/v1/alarms/{id}/ack (operator). The alarm is
+// attributed to the token that made the request; the free-text `by` is
+// kept beside it as a remark, so "who" cannot be typed in by anyone.
+func (s *Server) ackAlarm(w http.ResponseWriter, r *http.Request) {
+	var req ackRequest
+	if !httpx.DecodeStrict(w, r, maxAckBody, &req, "by, comment") {
+		return
+	}
+	id := chi.URLParam(r, "id")
+	if u, err := url.PathUnescape(id); err == nil {
+		id = u // an id sent with %3A for its colons names the same alarm
+	}
+	who := identityOf(r, req.By)
+	if strings.TrimSpace(who) == "" {
+		httpx.WriteFieldError(w, "by", "missing: say who acknowledges")
+		return
+	}
+	a, err := s.alarms.Ack(r.Context(), id, who, req.Comment)
+	switch {
+	case err == nil:
+		s.log.Info("alarm acknowledged", "alarm", id, "by", who, "token", httpx.IdentityOf(r).Token)
+		httpx.WriteJSON(w, http.StatusOK, a)
+	case errors.Is(err, alerts.ErrNoAlarm):
+		httpx.WriteError(w, http.StatusNotFound, err.Error())
+	case errors.Is(err, alerts.ErrAlreadyAcked), errors.Is(err, alerts.ErrAlarmCleared), errors.Is(err, alerts.ErrAlarmPending):
+		httpx.WriteError(w, http.StatusConflict, err.Error())
+	case errors.Is(err, alerts.ErrAck):
+		httpx.WriteError(w, http.StatusBadRequest, err.Error())
+	default:
+		s.log.Error("acknowledgement not recorded", "alarm", id, "err", err)
+		Errors.Write(w, "acknowledgement not recorded: ", err)
+	}
+}
+
+// identityOf is who a change is attributed to: the token's name, with the
+// request's free-text name as a remark when it adds something; without a
+// token (the open demo) the free text alone.
+func identityOf(r *http.Request, remark string) string {
+	remark = strings.TrimSpace(remark)
+	tok := httpx.IdentityOf(r).Token
+	switch {
+	case tok == "":
+		return remark
+	case remark == "" || remark == tok:
+		return tok
+	}
+	return tok + " (" + remark + ")"
+}

@@ -1,0 +1,259 @@
+package api
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"net/http"
+	"net/http/httptest"
+	"strings"
+	"testing"
+	"time"
+
+	"cleanmon/alerts"
+	"cleanmon/collector"
+	"cleanmon/store"
+
+	"github.com/go-chi/chi/v5"
+)
+
+// Every refusal of the ingest path reaches the client with its status and
+// the element at fault, through the one error table.
+func TestIngestAnswers(t *testing.T) {
+	cases := []struct {
+		name   string
+		err    error
+		status int
+		index  any
+		field  any
+	}{
+		{"accepted", nil, http.StatusOK, nil, nil},
+		{"bad reading", &collector.InputError{Index: 3, Field: "volume_l", Msg: "must be > 0"}, http.StatusBadRequest, 3.0, "volume_l"},
+		{"content type", collector.ErrContentType, http.StatusUnsupportedMediaType, nil, nil},
+		{"too large", fmt.Errorf("%w: the limit is 8 bytes", collector.ErrTooLarge), http.StatusRequestEntityTooLarge, nil, nil},
+		{"store failed", fmt.Errorf("%w: disk full", collector.ErrCommit), http.StatusServiceUnavailable, nil, nil},
+	}
+	for _, c := range cases {
+		for _, path := range []string{"/api/v1/readings", "/api/v1/pressure"} {
+			t.Run(c.name+" "+path, func(t *testing.T) {
+				var gotKind string
+				h := newTestAPI(t, Options{Ingest: fakeIngest{post: func(kind, _ string, body io.Reader) (collector.Result, error) {
+					gotKind = kind
+					if c.err != nil {
+						return collector.Result{}, c.err
+					}
+					return collector.Result{Accepted: 1}, nil
+				}}})
+				status, body := call(t, h, "POST", path, "application/json", `{}`)
+				if status != c.status {
+					t.Fatalf("status %d, want %d (%v)", status, c.status, body)
+				}
+				if want := path[len("/api/v1/"):]; gotKind != want {
+					t.Errorf("routed to %s, want %s", gotKind, want)
+				}
+				if c.err == nil {
+					if body["accepted"] != 1.0 {
+						t.Errorf("answer %v", body)
+					}
+					return
+				}
+				if body["error"] == "" || body["index"] != c.index || body["field"] != c.field {
+					t.Errorf("answer %v, want index %v field %v", body, c.index, c.field)
+				}
+			})
+		}
+	}
+}
+
+// An unknown {zone} is refused once, by the middleware, on every zone
+// route; the store is never asked.
+func TestUnknownZoneEveryRoute(t *testing.T) {
+	asked := false
+	h := newTestAPI(t, Options{Store: fakeStore{
+		scanReadings: func(string, time.Time, time.Time, func(store.Reading) error) error { asked = true; return nil },
+		setState:     func(context.Context, store.OperatingState) error { asked = true; return nil },
+	}})
+	for _, r := range []struct{ method, path, body string }{
+		{"GET", "/api/v1/zones/lab", ""},
+		{"GET", "/api/v1/zones/lab/readings", ""},
+		{"GET", "/api/v1/zones/lab/classification", ""},
+		{"GET", "/api/v1/zones/lab/levels", ""},
+		{"PUT", "/api/v1/zones/lab/state", `{"state":"at-rest","by":"j.marsh"}`},
+	} {
+		status, body := call(t, h, r.method, r.path, "application/json", r.body)
+		if status != http.StatusNotFound || body["error"] != `unknown zone "lab"` {
+			t.Errorf("%s %s: %d %v", r.method, r.path, status, body)
+		}
+	}
+	if asked {
+		t.Error("the store was asked about an unknown zone")
+	}
+	// A known zone passes the middleware and reaches the handler.
+	if status, body := call(t, h, "GET", "/api/v1/zones/hood/readings?location=nowhere", "", ""); status != http.StatusBadRequest || body["field"] != "location" {
+		t.Errorf("known zone, bad location: %d %v", status, body)
+	}
+}
+
+// An operating-state change is on record in the store before the zone
+// shows it; a store that fails leaves the zone as it was and answers 503.
+func TestPutZoneStateRecordsFirst(t *testing.T) {
+	for _, c := range []struct {
+		name   string
+		err    error
+		status int
+	}{
+		{"recorded", nil, http.StatusOK},
+		{"store failed", errors.New("disk full"), http.StatusServiceUnavailable},
+		{"store refused", store.ErrInvalid, http.StatusBadRequest},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			var recorded []store.OperatingState
+			applied := false
+			h := newTestAPI(t, Options{
+				Store: fakeStore{setState: func(_ context.Context, st store.OperatingState) error {
+					recorded = append(recorded, st)
+					return c.err
+				}},
+				Zones: fakeZones{setState: func(ch alerts.OperatingChange, persist func(alerts.OperatingChange) error) (alerts.ZoneView, error) {
+					if err := persist(ch); err != nil {
+						return alerts.ZoneView{}, err
+					}
+					applied = true
+					return alerts.ZoneView{ID: ch.Zone, OperatingState: ch.State}, nil
+				}},
+			})
+			status, body := call(t, h, "PUT", "/api/v1/zones/hood/state", "application/json", `{"state":"in-operation","by":"j.marsh","reason":"shift start"}`)
+			if status != c.status {
+				t.Fatalf("status %d, want %d: %v", status, c.status, body)
+			}
+			if len(recorded) != 1 || recorded[0].Zone != "hood" || recorded[0].State != "in-operation" || recorded[0].By != "j.marsh" || !recorded[0].Time.Equal(testNow) {
+				t.Errorf("recorded %+v", recorded)
+			}
+			if applied != (c.err == nil) {
+				t.Errorf("applied %v with store error %v", applied, c.err)
+			}
+		})
+	}
+}
+
+// Acknowledgement refusals of the judge map to their statuses through the
+// table: unknown 404, already acknowledged or cleared 409, bad 400.
+func TestAckAnswers(t *testing.T) {
+	for _, c := range []struct {
+		err    error
+		status int
+	}{
+		{nil, http.StatusOK},
+		{alerts.ErrNoAlarm, http.StatusNotFound},
+		{alerts.ErrAlreadyAcked, http.StatusConflict},
+		{alerts.ErrAlarmCleared, http.StatusConflict},
+		{alerts.ErrAlarmPending, http.StatusConflict},
+		{alerts.ErrAck, http.StatusBadRequest},
+		{errors.New("journal down"), http.StatusServiceUnavailable},
+	} {
+		var gotID, gotBy string
+		h := newTestAPI(t, Options{Alarms: fakeAlarms{ack: func(id, by, _ string) (alerts.Alarm, error) {
+			gotID, gotBy = id, by
+			return alerts.Alarm{ID: id}, c.err
+		}}})
+		status, body := call(t, h, "POST", "/api/v1/alarms/hood%3Aexcursion/ack", "application/json", `{"by":"j.marsh","comment":"checked"}`)
+		if status != c.status {
+			t.Errorf("%v: status %d, want %d: %v", c.err, status, c.status, body)
+		}
+		if gotID != "hood:excursion" || gotBy != "j.marsh" {
+			t.Errorf("%v: ack of %q by %q", c.err, gotID, gotBy)
+		}
+	}
+}
+
+// readyz shows a failing notifier without turning unready; healthz always
+// answers.
+func TestReadyz(t *testing.T) {
+	h := newTestAPI(t, Options{Alarms: fakeAlarms{notifiers: func() []alerts.NotifierHealth {
+		return []alerts.NotifierHealth{{Notifier: "webhook", Up: false, ConsecutiveFailures: 3}}
+	}}})
+	if status, body := call(t, h, "GET", "/healthz", "", ""); status != http.StatusOK || body["status"] != "ok" {
+		t.Errorf("healthz %d %v", status, body)
+	}
+	status, body := call(t, h, "GET", "/readyz", "", "")
+	if status != http.StatusOK || body["status"] != "ready, notifier failing" {
+		t.Errorf("readyz %d %v", status, body)
+	}
+}
+
+// A zone without a class or grade cannot be certified, and the pages get
+// the same answer, byte for byte, as the API route.
+func TestCertifyStoredMatchesRoute(t *testing.T) {
+	for _, zone := range []alerts.ZoneView{{ID: "hood"}} {
+		s := newTestServer(t, Options{Zones: fakeZones{zone: func(string) (alerts.ZoneView, bool) { return zone, true }}})
+		status, body, rep := s.CertifyStored(context.Background(), "hood", "2026-03-01T00:00:00Z", "2026-03-02T00:00:00Z")
+		if status != http.StatusBadRequest || rep != nil || !strings.Contains(string(body), "unclassified") {
+			t.Errorf("CertifyStored: %d %s %v", status, body, rep)
+		}
+		r := chi.NewRouter()
+		s.Register(r)
+		req := httptest.NewRequest("GET", "/api/v1/zones/hood/classification?from=2026-03-01T00:00:00Z&to=2026-03-02T00:00:00Z", nil)
+		rec := httptest.NewRecorder()
+		r.ServeHTTP(rec, req)
+		if rec.Code != status || rec.Body.String() != string(body) {
+			t.Errorf("route answers %d %q, CertifyStored %d %q", rec.Code, rec.Body.String(), status, body)
+		}
+	}
+	s := newTestServer(t, Options{})
+	if status, body, _ := s.CertifyStored(context.Background(), "lab", "2026-03-01T00:00:00Z", "2026-03-02T00:00:00Z"); status != http.StatusNotFound {
+		t.Errorf("unknown zone: %d %s", status, body)
+	}
+	if status, body, _ := s.CertifyStored(context.Background(), "hood", "yesterday", "2026-03-02T00:00:00Z"); status != http.StatusBadRequest || !strings.Contains(string(body), `"field":"from"`) {
+		t.Errorf("bad from: %d %s", status, body)
+	}
+}
+
+// A DP sensor is "ok" only on a fresh value at or above its minimum; a
+// stale or missing value is "unknown", never fine.
+func TestSensorStates(t *testing.T) {
+	for _, c := range []struct {
+		name  string
+		pa    float64
+		age   time.Duration
+		found bool
+		want  string
+	}{
+		{"fresh, above the minimum", 12.5, 5 * time.Second, true, "ok"},
+		{"fresh, at the minimum", 10, 5 * time.Second, true, "ok"},
+		{"fresh, below the minimum", 6, 5 * time.Second, true, "low"},
+		{"fresh, below zero", -1.5, 5 * time.Second, true, "reversed"},
+		// three intervals of 10 s without a sample: the value is shown but
+		// not trusted
+		{"stale", 12.5, 31 * time.Second, true, "unknown"},
+		{"stale and reversed", -3, time.Hour, true, "unknown"},
+		{"never reported", 0, 0, false, "unknown"},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			h := newTestAPI(t, Options{Store: fakeStore{latestDP: func(string) (store.Pressure, bool, error) {
+				return store.Pressure{Sensor: "dp-hood", Time: testNow.Add(-c.age), Pa: c.pa}, c.found, nil
+			}}})
+			req := httptest.NewRequest("GET", "/api/v1/sensors", nil)
+			rec := httptest.NewRecorder()
+			h.ServeHTTP(rec, req)
+			var out []map[string]any
+			if err := json.Unmarshal(rec.Body.Bytes(), &out); err != nil || rec.Code != http.StatusOK || len(out) != 1 {
+				t.Fatalf("%d %s", rec.Code, rec.Body.String())
+			}
+			if out[0]["state"] != c.want || out[0]["id"] != "dp-hood" {
+				t.Errorf("%v, want state %s", out[0], c.want)
+			}
+			if (out[0]["pa"] != nil) != c.found {
+				t.Errorf("pa %v with found %v", out[0]["pa"], c.found)
+			}
+		})
+	}
+	// A store that fails is the daemon's fault: 503, not an empty list.
+	h := newTestAPI(t, Options{Store: fakeStore{latestDP: func(string) (store.Pressure, bool, error) {
+		return store.Pressure{}, false, errors.New("disk read")
+	}}})
+	if status, _ := call(t, h, "GET", "/api/v1/sensors", "", ""); status != http.StatusServiceUnavailable {
+		t.Errorf("failing store: %d", status)
+	}
+}

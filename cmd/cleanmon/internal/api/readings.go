@@ -1,0 +1,338 @@
+package api
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"net/http"
+	"slices"
+	"sort"
+	"strconv"
+	"time"
+
+	"cleanmon/classify"
+	"cleanmon/cmd/cleanmon/internal/httpx"
+	"cleanmon/cmd/cleanmon/internal/site"
+	"cleanmon/store"
+)
+
+// rawChunk is the slice of time read per step of a raw stream: the
+// readings of all the zone's counters in it are merged in memory, so it
+// bounds memory by rate, not by the range asked for.
+const rawChunk = time.Hour
+
+// rollupChunkSteps is the same bound for rolled-up rows, in steps.
+const rollupChunkSteps = 64
+
+// zoneCounters lists the counters of a zone, optionally at one location.
+func (s *Server) zoneCounters(zone, location string) []counterRef {
+	var out []counterRef
+	for _, k := range s.cfg.Counters {
+		if k.Zone == zone && (location == "" || site.CounterLocation(k) == location) {
+			out = append(out, newCounterRef(k.ID, site.CounterLocation(k)))
+		}
+	}
+	return out
+}
+
+// parseStep reads step: empty for raw readings; otherwise whole minutes,
+// served from minute rollups, or whole hours, served from hourly ones.
+func parseStep(v string) (step, source time.Duration, err error) {
+	if v == "" {
+		return 0, 0, nil
+	}
+	d, err := time.ParseDuration(v)
+	if err != nil {
+		return 0, 0, fmt.Errorf("%q is not a duration such as 1m or 1h", v)
+	}
+	switch {
+	case d <= 0 || d%time.Minute != 0:
+		return 0, 0, fmt.Errorf("%s: a step is a whole number of minutes (1m) or hours (1h)", v)
+	case d > 366*24*time.Hour:
+		return 0, 0, fmt.Errorf("%s: longer than a year", v)
+	case d%time.Hour == 0:
+		return d, time.Hour, nil
+	}
+	return d, time.Minute, nil
+}
+
+// The rows of GET .../readings are written by hand rather than through
+// encoding/json: a year of one location is half a million rows, and
+// reflection over per-row maps made that answer several times slower than
+// the store can read it. The shapes are the JSON objects the API documents;
+// api_readings_json_test.go checks them against encoding/json.
+
+// counterRef is a counter of a zone and the location it samples, with both
+// names already JSON-encoded for the row writers.
+type counterRef struct {
+	id, location         string
+	idJSON, locationJSON []byte
+}
+
+func newCounterRef(id, location string) counterRef {
+	a, _ := json.Marshal(id)
+	b, _ := json.Marshal(location)
+	return counterRef{id: id, location: location, idJSON: a, locationJSON: b}
+}
+
+// appendReadingRow writes one raw reading: time, counter, location,
+// volume_l, flow_lpm and sample_seconds when reported, status, mode, the
+// counts as received and the cumulative concentration per size.
+func appendReadingRow(b []byte, rd *store.Reading, c *counterRef, keys [][]byte) []byte {
+	b = append(b, `{"time":`...)
+	b = httpx.AppendTime(b, rd.Time)
+	b = append(b, `,"counter":`...)
+	b = append(b, c.idJSON...)
+	b = append(b, `,"location":`...)
+	b = append(b, c.locationJSON...)
+	b = append(b, `,"volume_l":`...)
+	b = httpx.AppendFloat(b, rd.VolumeL)
+	if rd.FlowLPM != 0 {
+		b = append(b, `,"flow_lpm":`...)
+		b = httpx.AppendFloat(b, rd.FlowLPM)
+	}
+	if rd.SampleSeconds != 0 {
+		b = append(b, `,"sample_seconds":`...)
+		b = httpx.AppendFloat(b, rd.SampleSeconds)
+	}
+	if rd.Status != "" {
+		b = append(b, `,"status":`...)
+		b = strconv.AppendQuote(b, rd.Status) // one of a few ASCII words
+	}
+	if rd.Differential {
+		b = append(b, `,"mode":"differential","counts":{`...)
+	} else {
+		b = append(b, `,"mode":"cumulative","counts":{`...)
+	}
+	for i, k := range keys {
+		if i > 0 {
+			b = append(b, ',')
+		}
+		b = append(b, k...)
+		b = strconv.AppendUint(b, rd.Counts[i], 10)
+	}
+	b = append(b, `},"concentration_per_m3":`...)
+	b = httpx.AppendSizeMap(b, keys, rd.PerM3())
+	return append(b, '}')
+}
+
+// appendRollupRow writes one rolled-up row: time, step, counter, location,
+// samples and the mean and max cumulative concentration per size.
+func appendRollupRow(b []byte, g *rollupAgg, step string) []byte {
+	b = append(b, `{"time":`...)
+	b = httpx.AppendTime(b, g.start)
+	b = append(b, `,"step":`...)
+	b = strconv.AppendQuote(b, step)
+	b = append(b, `,"counter":`...)
+	b = append(b, g.ref.idJSON...)
+	b = append(b, `,"location":`...)
+	b = append(b, g.ref.locationJSON...)
+	b = append(b, `,"samples":`...)
+	b = strconv.AppendInt(b, int64(g.samples), 10)
+	b = append(b, `,"mean_per_m3":{`...)
+	first := true
+	for i, k := range g.keys {
+		if g.n[i] == 0 {
+			continue
+		}
+		if !first {
+			b = append(b, ',')
+		}
+		first = false
+		b = append(b, k...)
+		b = httpx.AppendFloat(b, g.sum[i]/float64(g.n[i]))
+	}
+	b = append(b, `},"max_per_m3":{`...)
+	first = true
+	for i, k := range g.keys {
+		if !g.seen[i] {
+			continue
+		}
+		if !first {
+			b = append(b, ',')
+		}
+		first = false
+		b = append(b, k...)
+		b = httpx.AppendFloat(b, g.max[i])
+	}
+	return append(b, "}}"...)
+}
+
+var errStreamCancelled = errors.New("request cancelled")
+
+// zoneReadings is GET /api/v1/zones/{zone}/readings.
+func (s *Server) zoneReadings(w http.ResponseWriter, r *http.Request) {
+	zone := zoneOf(r).ID
+	location, ok := location(w, r, zoneOf(r))
+	if !ok {
+		return
+	}
+	from, to, ok := s.queryRange(w, r)
+	if !ok {
+		return
+	}
+	step, source, err := parseStep(r.URL.Query().Get("step"))
+	if err != nil {
+		httpx.WriteFieldError(w, "step", err.Error())
+		return
+	}
+	counters := s.zoneCounters(zone, location)
+	rs := httpx.NewRowStream(w, Errors)
+	if step == 0 {
+		err = s.streamRaw(r, rs, counters, from, to)
+	} else {
+		err = s.streamRollups(r, rs, counters, step, source, from, to)
+	}
+	if err != nil {
+		if !errors.Is(err, errStreamCancelled) {
+			s.log.Error("readings stream failed", "zone", zone, "rows", rs.Rows(), "err", err)
+		}
+		rs.Fail(err)
+		return
+	}
+	rs.End()
+}
+
+func (s *Server) streamRaw(r *http.Request, rs *httpx.RowStream, counters []counterRef, from, to time.Time) error {
+	type item struct {
+		rd store.Reading
+		c  int // index into counters
+	}
+	var buf []item
+	keys := make([]httpx.SizeKeys, len(counters))
+	for a := from; a.Before(to); {
+		b := a.Add(rawChunk)
+		if b.After(to) {
+			b = to
+		}
+		buf = buf[:0]
+		for ci := range counters {
+			err := s.store.ScanReadings(counters[ci].id, a, b, func(rd store.Reading) error {
+				buf = append(buf, item{rd, ci})
+				return nil
+			})
+			if err != nil {
+				return err
+			}
+		}
+		if len(counters) > 1 { // one counter's scan is already in time order
+			sort.SliceStable(buf, func(i, j int) bool {
+				if !buf[i].rd.Time.Equal(buf[j].rd.Time) {
+					return buf[i].rd.Time.Before(buf[j].rd.Time)
+				}
+				return buf[i].rd.Counter < buf[j].rd.Counter
+			})
+		}
+		for i := range buf {
+			it := &buf[i]
+			c := &counters[it.c]
+			k := keys[it.c].Get(it.rd.Sizes)
+			if err := rs.Row(func(b []byte) []byte { return appendReadingRow(b, &it.rd, c, k) }); err != nil {
+				return err
+			}
+		}
+		if r.Context().Err() != nil {
+			return errStreamCancelled
+		}
+		a = b
+	}
+	return nil
+}
+
+// rollupAgg gathers the source rollups of one output row, per size.
+type rollupAgg struct {
+	start   time.Time
+	ref     *counterRef
+	samples int
+	sizes   []float64
+	keys    [][]byte
+	sum     []float64 // Σ mean × samples
+	n       []int
+	max     []float64
+	seen    []bool
+}
+
+// add folds one source rollup in; sizes are matched by value, so a counter
+// whose channels changed within the row still adds up per size.
+func (g *rollupAgg) add(ru *store.Rollup) {
+	g.samples += ru.Samples
+	for i, size := range ru.Sizes {
+		j := slices.Index(g.sizes, size)
+		if j < 0 {
+			j = len(g.sizes)
+			g.sizes = append(g.sizes, size)
+			g.keys = append(g.keys, []byte(strconv.Quote(classify.FormatSize(size))+":"))
+			g.sum, g.n, g.max, g.seen = append(g.sum, 0), append(g.n, 0), append(g.max, 0), append(g.seen, false)
+		}
+		n := ru.Samples
+		if i < len(ru.SizeSamples) {
+			n = ru.SizeSamples[i]
+		}
+		g.sum[j] += ru.Mean[i] * float64(n)
+		g.n[j] += n
+		if !g.seen[j] || ru.Max[i] > g.max[j] {
+			g.max[j], g.seen[j] = ru.Max[i], true
+		}
+	}
+}
+
+func (s *Server) streamRollups(r *http.Request, rs *httpx.RowStream, counters []counterRef, step, source time.Duration, from, to time.Time) error {
+	type key struct {
+		start int64
+		c     int
+	}
+	stepName := formatStep(step)
+	for a := from; a.Before(to); {
+		// Chunks end on step boundaries so that no output row straddles two.
+		b := a.Truncate(step).Add(rollupChunkSteps * step)
+		if b.After(to) {
+			b = to
+		}
+		aggs := map[key]*rollupAgg{}
+		var rows []*rollupAgg
+		for ci := range counters {
+			err := s.store.ScanRollups(counters[ci].id, source, a, b, func(ru store.Rollup) error {
+				start := ru.Start.UTC().Truncate(step)
+				k := key{start.UnixNano(), ci}
+				g := aggs[k]
+				if g == nil {
+					g = &rollupAgg{start: start, ref: &counters[ci]}
+					aggs[k] = g
+					rows = append(rows, g)
+				}
+				g.add(&ru)
+				return nil
+			})
+			if err != nil {
+				return err
+			}
+		}
+		sort.SliceStable(rows, func(i, j int) bool {
+			if !rows[i].start.Equal(rows[j].start) {
+				return rows[i].start.Before(rows[j].start)
+			}
+			if rows[i].ref.location != rows[j].ref.location {
+				return rows[i].ref.location < rows[j].ref.location
+			}
+			return rows[i].ref.id < rows[j].ref.id
+		})
+		for _, g := range rows {
+			if err := rs.Row(func(b []byte) []byte { return appendRollupRow(b, g, stepName) }); err != nil {
+				return err
+			}
+		}
+		if r.Context().Err() != nil {
+			return errStreamCancelled
+		}
+		a = b
+	}
+	return nil
+}
+
+// formatStep writes a step the way it is asked for: "15m", "1h", "24h".
+func formatStep(d time.Duration) string {
+	if d%time.Hour == 0 {
+		return fmt.Sprintf("%dh", d/time.Hour)
+	}
+	return fmt.Sprintf("%dm", d/time.Minute)
+}

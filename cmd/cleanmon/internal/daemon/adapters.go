@@ -1,0 +1,198 @@
+package daemon
+
+import (
+	"cleanmon/alerts"
+	"cleanmon/collector"
+	"cleanmon/store"
+	"context"
+	"encoding/json"
+	"fmt"
+	"log/slog"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+)
+
+// storeSink commits the collector's readings to the store: the collector
+// acknowledges a sender only once this returns.
+type storeSink struct {
+	st  *store.Store
+	m   *alerts.IngestMetrics // nil: no metrics
+	log *slog.Logger          // nil: conflicts are not logged
+}
+
+// CommitReadings implements collector.Sink.
+func (s storeSink) CommitReadings(ctx context.Context, rs []collector.Reading) (int, int, error) {
+	stored, err := s.CommitReadingsMarked(ctx, rs)
+	if err != nil {
+		return 0, 0, err
+	}
+	acc := 0
+	for _, ok := range stored {
+		if ok {
+			acc++
+		}
+	}
+	return acc, len(rs) - acc, nil
+}
+
+// CommitReadingsMarked implements collector.MarkingSink, and counts every
+// reading in cleanmon_readings_total as accepted, duplicate or conflict,
+// per counter. A conflict (the time of a stored reading, other values) is
+// answered as a duplicate, as the API promises, but logged: the stored
+// reading stays, and someone must look at the instrument.
+func (s storeSink) CommitReadingsMarked(ctx context.Context, rs []collector.Reading) ([]bool, error) {
+	out := make([]store.Reading, len(rs))
+	for i := range rs {
+		r := &rs[i]
+		out[i] = store.Reading{
+			Counter: r.Counter, Time: r.Time, VolumeL: r.VolumeL, FlowLPM: r.FlowLPM,
+			SampleSeconds: r.SampleSeconds, Status: r.Status, Differential: r.Differential,
+			Sizes: r.Sizes, Counts: r.Counts,
+		}
+	}
+	outcomes, err := s.st.AppendReadingsMarked(ctx, out)
+	if err != nil {
+		return nil, err
+	}
+	stored := make([]bool, len(rs))
+	for i, o := range outcomes {
+		stored[i] = o == store.Stored
+		if o == store.Conflict && s.log != nil {
+			s.log.Warn("reading not stored: a reading of this counter at this time is stored with other values",
+				"counter", rs[i].Counter, "time", rs[i].Time)
+		}
+		if s.m == nil {
+			continue
+		}
+		switch o {
+		case store.Stored:
+			s.m.Count(rs[i].Counter, alerts.IngestAccepted, 1)
+			s.m.Observe(rs[i].Counter, rs[i].Time, rs[i].FlowLPM)
+		case store.Conflict:
+			s.m.Count(rs[i].Counter, alerts.IngestConflict, 1)
+		default:
+			s.m.Count(rs[i].Counter, alerts.IngestDuplicate, 1)
+		}
+	}
+	return stored, nil
+}
+
+// CommitPressure implements collector.Sink.
+func (s storeSink) CommitPressure(ctx context.Context, ps []collector.Pressure) (int, int, error) {
+	out := make([]store.Pressure, len(ps))
+	for i, p := range ps {
+		out[i] = store.Pressure{Sensor: p.Sensor, Time: p.Time, Pa: p.Pa}
+	}
+	return s.st.AppendPressure(ctx, out)
+}
+
+// observation turns a committed reading into what the zone state takes.
+func observation(r *collector.Reading) alerts.Observation {
+	return alerts.Observation{Counter: r.Counter, Time: r.Time, VolumeL: r.VolumeL, Status: r.Status, Sizes: r.Sizes, PerM3: r.PerM3}
+}
+
+// storedObservation does the same for a reading read back from the store.
+func storedObservation(r store.Reading) alerts.Observation {
+	return alerts.Observation{Counter: r.Counter, Time: r.Time, VolumeL: r.VolumeL, Status: r.Status, Sizes: r.Sizes, PerM3: r.PerM3()}
+}
+
+// snapshots travel as JSON, which the store keeps as opaque bytes.
+type alarmStore struct{ st *store.Store }
+
+// RecordTransitions implements alerts.Journal.
+func (a alarmStore) RecordTransitions(ctx context.Context, ts []alerts.Transition, notifiers []string) error {
+	recs := make([]store.AlarmRecord, len(ts))
+	for i := range ts {
+		snap, err := json.Marshal(ts[i].Alarm)
+		if err != nil {
+			return err
+		}
+		entry, err := json.Marshal(ts[i])
+		if err != nil {
+			return err
+		}
+		recs[i] = store.AlarmRecord{AlarmID: ts[i].AlarmID, Time: ts[i].Time, Cleared: ts[i].To == alerts.StateCleared,
+			Snapshot: snap, Entry: entry, By: ts[i].By, Reason: ts[i].Comment}
+	}
+	_, err := a.st.RecordAlarms(ctx, recs, notifiers)
+	return err
+}
+
+// OpenAlarms implements alerts.Journal.
+func (a alarmStore) OpenAlarms(ctx context.Context) ([]alerts.Alarm, error) {
+	var out []alerts.Alarm
+	err := a.st.OpenAlarms(func(id string, snap []byte) error {
+		var al alerts.Alarm
+		if err := json.Unmarshal(snap, &al); err != nil {
+			return fmt.Errorf("alarm %s: %w", id, err)
+		}
+		out = append(out, al)
+		return ctx.Err()
+	})
+	return out, err
+}
+
+// Due implements alerts.Outbox.
+func (a alarmStore) Due(ctx context.Context, notifier string, now time.Time, limit int) ([]alerts.Delivery, error) {
+	items, err := a.st.OutboxDue(notifier, now, limit)
+	if err != nil {
+		return nil, err
+	}
+	out := make([]alerts.Delivery, 0, len(items))
+	for _, it := range items {
+		d := alerts.Delivery{ID: it.ID, Notifier: it.Notifier, Attempts: it.Attempts, NextAttempt: it.NextAttempt, LastError: it.LastError}
+		if err := json.Unmarshal(it.Payload, &d.Transition); err != nil {
+			return nil, fmt.Errorf("outbox item %d: %w", it.ID, err)
+		}
+		out = append(out, d)
+	}
+	return out, nil
+}
+
+// Done implements alerts.Outbox.
+func (a alarmStore) Done(ctx context.Context, id uint64) error { return a.st.OutboxDone(ctx, id) }
+
+// Retry implements alerts.Outbox.
+func (a alarmStore) Retry(ctx context.Context, id uint64, attempts int, next time.Time, lastErr string) error {
+	return a.st.OutboxRetry(ctx, id, attempts, next, lastErr)
+}
+
+// Pending lets the notifier metrics show queue lengths without reading
+// the queue.
+func (a alarmStore) Pending(ctx context.Context, notifier string) (int, error) {
+	return a.st.OutboxLen(notifier)
+}
+
+// auditCollector exports the chain's length, so that a scrape history
+// shows the trail only ever growing.
+type auditCollector struct{ st *store.Store }
+
+var descAuditSeq = prometheus.NewDesc("cleanmon_audit_entries", "Entries in the audit chain (its head's sequence number).", nil, nil)
+
+// Describe implements prometheus.Collector.
+func (c auditCollector) Describe(ch chan<- *prometheus.Desc) { ch <- descAuditSeq }
+
+// Collect implements prometheus.Collector.
+func (c auditCollector) Collect(ch chan<- prometheus.Metric) {
+	if seq, _, err := c.st.AuditHead(); err == nil {
+		ch <- prometheus.MustNewConstMetric(descAuditSeq, prometheus.GaugeValue, float64(seq))
+	}
+}
+
+// Active implements api.Alarms: the alarms not cleared.
+func (s *alarmService) Active() []alerts.Alarm { return s.eng.Alarms(false) }
+
+// Ack implements api.Alarms.
+func (s *alarmService) Ack(ctx context.Context, id, by, comment string) (alerts.Alarm, error) {
+	return s.eng.Ack(ctx, id, by, comment)
+}
+
+// SetOperatingState implements api.Alarms: the rules follow the zone's
+// operating state (maintenance silences excursions).
+func (s *alarmService) SetOperatingState(ctx context.Context, zone, state string) error {
+	return s.eng.SetOperatingState(ctx, zone, state)
+}
+
+// Notifiers implements api.Alarms: the health of every notifier.
+func (s *alarmService) Notifiers() []alerts.NotifierHealth { return s.disp.HealthList() }

@@ -119,7 +119,7 @@ func (v *verifier) run(tx *bolt.Tx) error {
 	known := map[string]bool{}
 	for _, name := range knownBuckets {
 		known[string(name)] = true
-		if tx.Bucket(name) == nil && !bytes.Equal(name, bucketAuditSig) { // older files have no signatures
+		if tx.Bucket(name) == nil && !bytes.Equal(name, bucketAuditSig) && !bytes.Equal(name, bucketEnvironment) { // older files have no signatures
 			v.add("bucket %q is missing", name)
 		}
 	}
@@ -147,6 +147,10 @@ func (v *verifier) run(tx *bolt.Tx) error {
 	})
 	v.walk(tx, bucketPressure, func(name string, k, val []byte) error {
 		_, err := decodePressure(name, k, val)
+		return err
+	})
+	v.walk(tx, bucketEnvironment, func(name string, k, val []byte) error {
+		_, err := decodeEnvSample(name, k, val)
 		return err
 	})
 	v.walk(tx, bucketOpState, func(name string, k, val []byte) error {

@@ -47,6 +47,9 @@ func TestEnvironmentCommitScanReopen(t *testing.T) {
 	if err != nil || !ok || av.VelocityMS != 0.45 || av.HasTemperature || av.HasHumidity {
 		t.Fatalf("latest av-hood = %+v %v %v", av, ok, err)
 	}
+	if err := s.Close(); err != nil {
+		t.Fatal(err)
+	}
 	if problems, err := Verify(filepath.Join(dir, FileName)); err != nil || len(problems) != 0 {
 		t.Fatalf("verify of a good file: %q, %v", problems, err)
 	}

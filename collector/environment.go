@@ -107,8 +107,8 @@ var kindChannels = map[string][]string{
 // EnvironmentBand is one band of a channel: the value is inside while
 // Low ≤ value ≤ High. Either side may be left open (nil).
 type EnvironmentBand struct {
-	Low  *float64 `yaml:"low"`
-	High *float64 `yaml:"high"`
+	Low  *float64 `yaml:"low" json:"low,omitempty"`
+	High *float64 `yaml:"high" json:"high,omitempty"`
 }
 
 // EnvironmentLimits are the bands of one channel, in ISO 14644-2 terms: the

@@ -32,6 +32,10 @@ type Options struct {
 	Metrics *prometheus.Registry
 	Log     *slog.Logger
 	Now     func() time.Time
+	// EnvIngest and EnvStore are the environment side (environment.go);
+	// nil: NoEnvironment.
+	EnvIngest EnvironmentIngest
+	EnvStore  EnvironmentStore
 }
 
 // Server holds the API's collaborators; Register mounts its routes.
@@ -46,6 +50,9 @@ type Server struct {
 	log     *slog.Logger
 	now     func() time.Time
 
+	envIngest EnvironmentIngest
+	envStore  EnvironmentStore
+
 	// ready is set once the store is open and ingest runs, and cleared
 	// when shutdown begins, so a balancer stops sending work first.
 	ready atomic.Bool
@@ -53,8 +60,15 @@ type Server struct {
 
 // New returns the API over o.
 func New(o Options) *Server {
-	return &Server{cfg: o.Site, zones: o.Zones, store: o.Store, ingest: o.Ingest, alarms: o.Alarms,
-		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now}
+	s := &Server{cfg: o.Site, zones: o.Zones, store: o.Store, ingest: o.Ingest, alarms: o.Alarms,
+		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now, envIngest: o.EnvIngest, envStore: o.EnvStore}
+	if s.envIngest == nil {
+		s.envIngest = NoEnvironment{}
+	}
+	if s.envStore == nil {
+		s.envStore = NoEnvironment{}
+	}
+	return s
 }
 
 // SetReady says whether /readyz answers ready.
@@ -88,6 +102,8 @@ func (s *Server) Register(r chi.Router) {
 		r.With(long, read).Get("/audit", s.listAudit)
 		r.With(short, read).Get("/audit/head", s.auditHead)
 		r.With(long, read).Get("/sensors/{sensor}/pressure", s.sensorPressure)
+
+		s.registerEnvironment(r)
 
 		r.With(httpx.Timeout(httpx.BackupTimeout), s.auth.Require(access.PermAdmin)).Get("/backup", s.backup)
 	})

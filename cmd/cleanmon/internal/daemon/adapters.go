@@ -2,6 +2,7 @@ package daemon
 
 import (
 	"cleanmon/alerts"
+	"cleanmon/cmd/cleanmon/internal/api"
 	"cleanmon/collector"
 	"cleanmon/store"
 	"context"
@@ -196,3 +197,57 @@ func (s *alarmService) SetOperatingState(ctx context.Context, zone, state string
 
 // Notifiers implements api.Alarms: the health of every notifier.
 func (s *alarmService) Notifiers() []alerts.NotifierHealth { return s.disp.HealthList() }
+
+// envSink commits the collector's environment samples to the store.
+type envSink struct{ st *store.Store }
+
+// CommitEnvironment implements collector.EnvironmentSink.
+func (s envSink) CommitEnvironment(ctx context.Context, es []collector.Environment) (int, int, error) {
+	return s.st.CommitEnvironment(ctx, envSamples(es))
+}
+
+// envSamples turns validated environment samples into stored ones.
+func envSamples(es []collector.Environment) []store.EnvSample {
+	out := make([]store.EnvSample, len(es))
+	for i, e := range es {
+		out[i] = store.EnvSample{Sensor: e.Sensor, Time: e.Time, TemperatureC: e.TemperatureC, HumidityPct: e.HumidityPct,
+			VelocityMS: e.VelocityMS, HasTemperature: e.HasTemperature, HasHumidity: e.HasHumidity, HasVelocity: e.HasVelocity}
+	}
+	return out
+}
+
+// envObservation turns a committed environment sample into what the
+// judge and the metrics take.
+func envObservation(e *collector.Environment) alerts.EnvironmentObservation {
+	o := alerts.EnvironmentObservation{Sensor: e.Sensor, Time: e.Time, Values: map[string]float64{}}
+	for _, ch := range []string{collector.ChanTemperature, collector.ChanHumidity, collector.ChanVelocity} {
+		if v, ok := e.Value(ch); ok {
+			o.Values[ch] = v
+		}
+	}
+	return o
+}
+
+// storedEnvObservation does the same for a sample read back from the
+// store.
+func storedEnvObservation(e store.EnvSample) alerts.EnvironmentObservation {
+	o := alerts.EnvironmentObservation{Sensor: e.Sensor, Time: e.Time, Values: map[string]float64{}}
+	if e.HasTemperature {
+		o.Values[alerts.ChanTemperature] = e.TemperatureC
+	}
+	if e.HasHumidity {
+		o.Values[alerts.ChanHumidity] = e.HumidityPct
+	}
+	if e.HasVelocity {
+		o.Values[alerts.ChanVelocity] = e.VelocityMS
+	}
+	return o
+}
+
+// Compile-time checks of the environment adapters.
+var (
+	_ collector.EnvironmentSink = envSink{}
+	_ api.EnvironmentStore      = (*store.Store)(nil)
+	_ api.EnvironmentIngest     = (*collector.EnvironmentIngest)(nil)
+	_ collector.MQTTSink        = collector.Ingests{}
+)

@@ -38,6 +38,7 @@ func engineConfig(cfg *site.Config, notifiers []string, zones *alerts.ZoneTracke
 			Delay: time.Duration(p.Delay), Interval: time.Duration(p.Interval),
 		})
 	}
+	ec.Environment = cfg.EnvironmentRules()
 	return ec
 }
 

@@ -77,8 +77,11 @@ type Daemon struct {
 	reg    *collector.Registry
 	zones  *alerts.ZoneTracker
 	ingest *collector.Ingest
-	alarms *alarmService
-	dm     *demoModbus
+	// envIngest and envMetrics are the environment side (environment.go).
+	envIngest  *collector.EnvironmentIngest
+	envMetrics *alerts.EnvironmentMetrics
+	alarms     *alarmService
+	dm         *demoModbus
 	// history and states are what the store held at start, for the rules.
 	history []alerts.Observation
 	states  map[string]string
@@ -228,7 +231,7 @@ func (d *Daemon) startJudge() error {
 		d.push(func() error { d.dm.Stop(); return nil })
 		d.cfg.Counters = d.dm.Counters
 	}
-	if d.reg, err = collector.NewRegistry(d.cfg.Counters, d.cfg.PressureSensors); err != nil {
+	if d.reg, err = d.cfg.Registry(); err != nil {
 		return asUsage(err)
 	}
 	if d.zones, err = alerts.NewZoneTracker(d.cfg.Zones, d.cfg.Bindings(), alerts.ZoneTrackerOptions{Now: d.now}); err != nil {
@@ -267,6 +270,7 @@ func (d *Daemon) startIngest() error {
 			d.log.Error("readings not stored", "kind", rj.Kind, "id", rj.ID, "err", rj.Err)
 		}
 	})
+	d.startEnvironment()
 	var err error
 	if d.auth, err = access.NewAuthorizer(d.cfg.Access, d.o.Demo); err != nil {
 		return asUsage(err)
@@ -281,9 +285,11 @@ func (d *Daemon) startIngest() error {
 		alerts.NewAlarmCollector(d.alarms.eng, zoneIDs(d.cfg)),
 		ingestMetrics,
 		alerts.NewNotifierCollector(d.alarms.disp),
+		d.envMetrics,
 	)
 	d.api = api.New(api.Options{Site: d.cfg, Zones: d.zones, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
-		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now})
+		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now,
+		EnvIngest: d.envIngest, EnvStore: d.st})
 	return nil
 }
 
@@ -302,13 +308,13 @@ func (d *Daemon) startBackground() error {
 	if err := d.alarms.start(bg, &d.wg, d.history, d.states); err != nil {
 		return err
 	}
-	stopModbus, err := startModbus(bg, d.reg, d.ingest, d.log, modbusHooks{Metrics: d.metrics, Now: d.now, Events: d.alarms})
+	stopModbus, err := startModbus(bg, d.reg, d.ingest, d.log, modbusHooks{Metrics: d.metrics, Now: d.now, Events: d.alarms, Environment: d.envIngest})
 	if err != nil {
 		return usage("Modbus: %v", err)
 	}
 	// Before the store closes: a poll in flight commits or fails first.
 	d.push(func() error { stopModbus(); return nil })
-	return nil
+	return d.startMQTT(bg)
 }
 
 // listen opens the socket (TLS when configured) and builds the HTTP
@@ -404,7 +410,7 @@ func (d *Daemon) Run(ctx context.Context) error {
 		if d.dm != nil {
 			live = d.dm.Feed(d.ingest)
 		}
-		if err := startDemo(d.bg, &d.wg, d.reg, d.zones, d.ingest, live, d.now, d.o.Speed, d.log); err != nil {
+		if err := startDemo(d.bg, &d.wg, d.reg, d.zones, collector.Ingests{Ingest: d.ingest, Environment: d.envIngest}, live, d.now, d.o.Speed, d.log); err != nil {
 			return fmt.Errorf("demo simulator: %w", err)
 		}
 	}

@@ -17,6 +17,10 @@ const (
 	// action level latches until acknowledged, and a screen full of them
 	// would hide what the demo is there to show.
 	demoExcursionRate = 1.0 / 1440
+	// demoEnvExcursionRate gives each temperature, humidity or velocity
+	// channel an excursion about every two days: the day of history
+	// holds a few environment alarms, not a screen of them.
+	demoEnvExcursionRate = 1.0 / 2880
 	// demoBackfill is the history the demo starts with.
 	demoBackfill = 24 * time.Hour
 	// demoBatch is the simulated time per backfill commit: an hour of the
@@ -30,7 +34,7 @@ const (
 // 24 h through the same ingest path as HTTP, then goes live. Serving does
 // not wait for it.
 func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry, zones *alerts.ZoneTracker,
-	ingest *collector.Ingest, live collector.Submitter, now func() time.Time, speed float64, log *slog.Logger) error {
+	ingest collector.Ingests, live collector.Submitter, now func() time.Time, speed float64, log *slog.Logger) error {
 	limits := map[string]map[float64]float64{}
 	for _, ci := range reg.Counters() {
 		v, ok := zones.Zone(ci.Zone)
@@ -45,7 +49,8 @@ func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry,
 		}
 		limits[ci.ID] = m
 	}
-	sim, err := collector.NewSimulator(reg, limits, collector.SimOptions{Seed: demoSeed, Now: now, ExcursionRate: demoExcursionRate})
+	sim, err := collector.NewSimulator(reg, limits, collector.SimOptions{Seed: demoSeed, Now: now, ExcursionRate: demoExcursionRate,
+		EnvExcursionRate: demoEnvExcursionRate, Environment: ingest.Environment})
 	if err != nil {
 		return err
 	}
@@ -78,7 +83,7 @@ func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry,
 
 // demoBackfillRange submits the simulated data of [from, to) batch by
 // batch and returns the readings accepted.
-func demoBackfillRange(ctx context.Context, sim *collector.Simulator, ingest *collector.Ingest, from, to time.Time) (int, error) {
+func demoBackfillRange(ctx context.Context, sim *collector.Simulator, ingest collector.Ingests, from, to time.Time) (int, error) {
 	n := 0
 	for b := range sim.Backfill(from, to, demoBatch) {
 		if err := ctx.Err(); err != nil {
@@ -93,6 +98,11 @@ func demoBackfillRange(ctx context.Context, sim *collector.Simulator, ingest *co
 		}
 		if len(b.Pressure) > 0 {
 			if _, err := ingest.SubmitPressure(ctx, b.Pressure); err != nil {
+				return n, err
+			}
+		}
+		if len(b.Environment) > 0 {
+			if _, err := ingest.SubmitEnvironment(ctx, b.Environment); err != nil {
 				return n, err
 			}
 		}

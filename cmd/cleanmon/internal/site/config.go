@@ -45,6 +45,11 @@ type Config struct {
 	Zones           []alerts.ZoneConfig `yaml:"zones"`
 	Counters        []collector.Counter `yaml:"counters"`
 	PressureSensors []collector.Sensor  `yaml:"pressure_sensors"`
+	// Environment are the temperature, humidity and airflow-velocity
+	// sensors; MQTT the broker they, and counters or DP sensors, may
+	// publish to (environment.go).
+	Environment []collector.EnvironmentSensorConfig `yaml:"environment"`
+	MQTT        *collector.MQTTConfig               `yaml:"mqtt"`
 	Alarms          alerts.AlarmsConfig `yaml:"alarms"`
 	Notifications   alerts.NotifyConfig `yaml:"notifications"`
 	TLS             access.TLSConfig    `yaml:"tls"`
@@ -586,7 +591,7 @@ func (d *nodeDecoder) checkSections(c *Config) {
 		}
 		d.add(p, "%s", e.Msg)
 	}
-
+	d.checkEnvironment(c, zoneIDs)
 }
 
 // checkAcross checks what crosses sections: every counter sits at a

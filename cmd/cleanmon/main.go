@@ -35,6 +35,7 @@ func commands() []command {
 		{"verify", "check a store's consistency and integrity", runVerify},
 		{"bench", "measure ingest throughput and latency on loopback", runBench},
 		{"soak", "run ingest and queries together on loopback for a bounded time", runSoak},
+		{"version", "print the version, VCS revision and Go version", runVersion},
 	}
 }
 

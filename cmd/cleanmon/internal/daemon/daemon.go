@@ -98,6 +98,8 @@ type Daemon struct {
 	bg context.Context // background work; cancelled by its stop
 	wg sync.WaitGroup
 
+	notify notifier // the service manager (sdnotify.go)
+
 	stops   []func() error // run in reverse by Close
 	running bool           // Run was called: Close records a clean stop
 	closed  bool
@@ -136,7 +138,7 @@ func New(o Options) (d *Daemon, err error) {
 	if o.Speed == 0 {
 		o.Speed = 1
 	}
-	d = &Daemon{o: o, log: o.Log, now: time.Now}
+	d = &Daemon{o: o, log: o.Log, now: time.Now, notify: newNotifier()}
 	defer func() {
 		if err != nil {
 			d.Close()
@@ -286,6 +288,7 @@ func (d *Daemon) startIngest() error {
 		ingestMetrics,
 		alerts.NewNotifierCollector(d.alarms.disp),
 		d.envMetrics,
+		buildInfoCollector(),
 	)
 	d.api = api.New(api.Options{Site: d.cfg, Zones: d.zones, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
 		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now,
@@ -396,6 +399,10 @@ func (d *Daemon) Run(ctx context.Context) error {
 	// On record before anyone is told where to connect.
 	d.audit.record(ctx, store.AuditActorSystem, store.AuditStart, d.cfg.Site, "cleanmon serve on "+d.url, nil)
 	fmt.Fprintf(d.o.Stdout, "cleanmon: serving on %s\n", d.url)
+	if err := d.notify.send("READY=1\nSTATUS=serving on " + d.url); err != nil {
+		d.log.Warn("telling the service manager that the daemon is ready", "err", err)
+	}
+	d.notify.watch(d.bg, &d.wg, d.alive, func(err error) { d.log.Error("watchdog not fed", "err", err) })
 	d.log.Info("serving", "url", d.url, "site", d.cfg.Site, "data", d.o.DataDir, "zones", len(d.cfg.Zones), "counters", len(d.cfg.Counters), "sensors", len(d.cfg.PressureSensors))
 	if !d.o.Demo && len(d.cfg.Access.Tokens) == 0 {
 		d.log.Warn("no access tokens configured: nothing can post readings or change a zone", "open_reads", d.cfg.Access.OpenReads)
@@ -441,6 +448,11 @@ func (d *Daemon) Close() error {
 		return nil
 	}
 	d.closed = true
+	if d.running {
+		if err := d.notify.send("STOPPING=1"); err != nil {
+			d.log.Warn("telling the service manager that the daemon stops", "err", err)
+		}
+	}
 	var errs []error
 	for i := len(d.stops) - 1; i >= 0; i-- {
 		if err := d.stops[i](); err != nil {

@@ -48,11 +48,11 @@ type Config struct {
 	// Environment are the temperature, humidity and airflow-velocity
 	// sensors; MQTT the broker they, and counters or DP sensors, may
 	// publish to (environment.go).
-	Environment []collector.EnvironmentSensorConfig `yaml:"environment"`
-	MQTT        *collector.MQTTConfig               `yaml:"mqtt"`
-	Alarms          alerts.AlarmsConfig `yaml:"alarms"`
-	Notifications   alerts.NotifyConfig `yaml:"notifications"`
-	TLS             access.TLSConfig    `yaml:"tls"`
+	Environment   []collector.EnvironmentSensorConfig `yaml:"environment"`
+	MQTT          *collector.MQTTConfig               `yaml:"mqtt"`
+	Alarms        alerts.AlarmsConfig                 `yaml:"alarms"`
+	Notifications alerts.NotifyConfig                 `yaml:"notifications"`
+	TLS           access.TLSConfig                    `yaml:"tls"`
 	// AllowPlainHTTP permits serving without TLS on an address other than
 	// loopback (a closed instrument network behind its own protection).
 	AllowPlainHTTP bool `yaml:"allow_plain_http"`

@@ -112,6 +112,21 @@ func BenchmarkScanReadingsYear(b *testing.B) {
 	b.ReportMetric(float64(yearReadings)*float64(b.N)/b.Elapsed().Seconds(), "readings/s")
 }
 
+// BenchmarkStreamReadingsYear is the scan the API's row encoders use.
+func BenchmarkStreamReadingsYear(b *testing.B) {
+	s := openYear(b)
+	for b.Loop() {
+		n := 0
+		if err := s.StreamReadings("pc-asm-1", time.Time{}, time.Time{}, func(*Reading) error { n++; return nil }); err != nil {
+			b.Fatal(err)
+		}
+		if n != yearReadings {
+			b.Fatalf("streamed %d readings", n)
+		}
+	}
+	b.ReportMetric(float64(yearReadings)*float64(b.N)/b.Elapsed().Seconds(), "readings/s")
+}
+
 func BenchmarkScanRollupsHourlyYear(b *testing.B) {
 	s := openYear(b)
 	for b.Loop() {

@@ -4,7 +4,7 @@ import "time"
 
 // schemaVersion is stored under metaSchema. Bump it when the layout or a
 // value encoding changes in a way older binaries cannot read.
-const schemaVersion = 1
+const schemaVersion = 2
 
 // Top-level buckets, one per kind of record. A new kind is added here, to
 // knownBuckets, and to Verify; initSchema creates it in older files.
@@ -12,7 +12,7 @@ var (
 	bucketMeta      = []byte("meta")               // schema version, sweep horizon
 	bucketReadings  = []byte("readings")           // counter → time → reading
 	bucketPressure  = []byte("pressure")           // sensor → time → pressure
-	bucketRollup1m  = []byte("rollups_1m")         // counter → bucket start → rollup
+	bucketRollup1m  = []byte("rollups_1m")         // schema 1 only: dropped by the upgrade
 	bucketRollup1h  = []byte("rollups_1h")         // counter → bucket start → rollup
 	bucketOpState   = []byte("opstate")            // zone → sequence → state change
 	bucketJournal   = []byte("alarm_journal")      // sequence → alarm transition
@@ -23,20 +23,23 @@ var (
 	bucketAudit     = []byte("audit")              // sequence → chained audit entry
 	bucketAuditSig  = []byte("audit_sig")          // sequence → key id ‖ Ed25519 signature (audit_sign.go)
 	knownBuckets    = [][]byte{
-		bucketMeta, bucketReadings, bucketPressure, bucketRollup1m, bucketRollup1h, bucketOpState,
+		bucketMeta, bucketReadings, bucketPressure, bucketRollup1h, bucketOpState,
 		bucketJournal, bucketJournalAt, bucketAlarms, bucketAlarmsAt, bucketOutbox, bucketAudit, bucketRuns, bucketAccounts,
-		bucketAuditSig, bucketEnvironment,
+		bucketAuditSig, bucketChunks, bucketEnvironment, bucketPChunks,
 	}
 	metaSchema      = []byte("schema")       // uvarint schemaVersion
 	metaSweptBefore = []byte("swept_before") // 8-byte key: latest Sweep horizon
 )
 
 // rollupSteps lists the rollup resolutions maintained on every append.
+// Only the hour is kept: at the sample period (a minute) a rollup holds
+// one reading and costs more than it, and steps below the hour are
+// computed from the readings as fast as they can be streamed; days and
+// longer steps add up hours (a year is 8 760 of them).
 var rollupSteps = []struct {
 	step   time.Duration
 	bucket []byte
 }{
-	{time.Minute, bucketRollup1m},
 	{time.Hour, bucketRollup1h},
 }
 

@@ -1,6 +1,7 @@
 // Package store is the embedded database of the daemon: one bbolt file,
-// dir/cleanmon.db, holding particle-counter readings, differential-pressure
-// samples, per-minute and per-hour rollups, the operating-state history
+// dir/cleanmon.db, holding particle-counter readings (head and compressed
+// chunks), differential-pressure and environment samples, hourly rollups,
+// the operating-state history
 // of each zone, the alarm journal with each alarm's latest snapshot, the
 // notification outbox, and the audit chain over all of it.
 //
@@ -34,11 +35,47 @@
 // CRC-32C over key and value: bbolt checksums only its meta pages, and the
 // audit trail must show when a stored value changed.
 //
-// Channel sizes are stored inline in every reading rather than in a
-// per-counter header. They cost about two bytes per channel (whole
-// nanometres as varints), each value stays self-describing, a change of a
-// counter's channels needs no header versioning, and one damaged value
-// cannot take a counter's whole history with it.
+// # Readings: head and chunks
+//
+// A reading is first written to the head (readings/<counter>/<time>, one
+// value each, schema-1 encoding): an append is a put per reading and a
+// duplicate check is one lookup. A background compaction (compact.go)
+// moves head readings into chunks (chunks/<counter>/<time of the last
+// reading>, chunk.go): times as delta-of-delta run-length coded, the
+// constant part of each reading (status, volume, flow, channel sizes)
+// run-length coded, counts as zigzag varint deltas per channel, a one-byte
+// tag per reading. A chunk and the head values it replaces change in one
+// transaction, so a crash leaves each reading in exactly one place. The
+// pass runs every Options.CompactEvery, early once 16 Ki readings arrived
+// (bbolt never shrinks its file, so the head's pages must be reused, not
+// piled up), and at Close, so a cleanly stopped store is all chunks.
+// Scans merge chunks and head from a Seek: an empty stretch of time costs
+// nothing whatever its length (CheckRange bounds what a request may ask).
+//
+// A chunked reading turns back into exactly the bytes the head held for
+// it, so the audit chain's digests, taken at ingest, still cover it:
+// Verify names a reading changed (its tag), removed (the audit entry
+// lists its key) or added (not covered) after compaction as before.
+//
+// Rollups are kept at one hour only (rollups_1h, updated at each append):
+// at the sample period a rollup costs more than the reading; finer steps
+// (1, 5, 15, 30 min) are computed from the readings and longer ones (2 to
+// 24 h) add hours. Rows lie inside the range asked for, edges clipped.
+//
+// Pressure samples take the same path into their own chunks (pchunk.go:
+// values as millipascal deltas when every sample of a chunk is a whole
+// number of them, as XORed float bits otherwise). Environment samples
+// (temperature, humidity, air velocity, any subset; environment.go) are
+// stored one value per sample and are not yet chunked nor covered by the
+// audit chain.
+//
+// # Older files
+//
+// A schema-1 file (one value per reading, minute rollups) is upgraded when
+// first opened, after a backup next to it (cleanmon.db.schema1-*.bak): its
+// readings are read as they are, as head, and move into chunks with the
+// next compaction; the minute rollups are dropped. testdata/v1 holds such
+// a file, written by the schema-1 code, and TestSchema1StoreOpens opens it.
 //
 // # Alarms and notifications
 //

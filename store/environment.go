@@ -10,79 +10,83 @@ import (
 	bolt "go.etcd.io/bbolt"
 )
 
-// bucketEnvironment holds temperature, humidity and airflow-velocity
-// samples: sensor → time → sample, one value per sample.
-var bucketEnvironment = []byte("environment")
+var bucketEnvironment = []byte("environment") // sensor → time → environment sample
 
-// EnvSample is one environment sample. Only the channels its sensor
-// reports are set (the Has flags say which).
-type EnvSample struct {
-	Sensor         string
-	Time           time.Time
-	TemperatureC   float64 // valid when HasTemperature
-	HumidityPct    float64 // relative humidity in %, valid when HasHumidity
-	VelocityMS     float64 // airflow velocity in m/s, valid when HasVelocity
-	HasTemperature bool
-	HasHumidity    bool
-	HasVelocity    bool
-}
+// EnvFields says which quantities an environment sample carries.
+type EnvFields uint8
 
-// Channel bits of an encoded sample, in this order after the bits.
+// The quantities of an environment sample; a sample has any non-empty
+// subset (a T/RH probe sends two, an airflow probe one).
 const (
-	envTemperature = 1 << iota
-	envHumidity
-	envVelocity
-	envAll = envTemperature | envHumidity | envVelocity
+	EnvTemperature EnvFields = 1 << iota // TemperatureC
+	EnvHumidity                          // HumidityPct
+	EnvVelocity                          // VelocityMS
+	envAll         = EnvTemperature | EnvHumidity | EnvVelocity
 )
 
-func checkEnvSample(e *EnvSample) (field, reason string) {
+// EnvSample is one sample of a temperature, humidity or airflow-velocity
+// sensor. Sensor and Time identify it, as for pressure. Only the fields
+// named in Has are meaningful: a zero is a value, not "not sent".
+type EnvSample struct {
+	Sensor       string
+	Time         time.Time
+	Has          EnvFields
+	TemperatureC float64 // °C
+	HumidityPct  float64 // relative humidity, % (0 to 100)
+	VelocityMS   float64 // air velocity, m/s (≥ 0)
+}
+
+// Plausibility bounds: only garbage is refused, the site's bands are the
+// alarm rules' business. No cleanroom runs outside −50 to 100 °C (common
+// practice, no source).
+const (
+	envMinC, envMaxC = -50, 100
+	envMaxVelocity   = 100 // m/s; unidirectional flow is near 0.45 m/s (EU GMP Annex 1 guidance, from memory)
+)
+
+func checkEnv(e *EnvSample) (field, reason string) {
 	if why := checkName(e.Sensor); why != "" {
 		return "Sensor", why
 	}
 	if why := checkTime(e.Time); why != "" {
 		return "Time", why
 	}
-	if !e.HasTemperature && !e.HasHumidity && !e.HasVelocity {
-		return "Has", "no channel: a sample carries at least one value"
+	if e.Has == 0 {
+		return "Has", "no quantity: a sample carries temperature, humidity or velocity"
 	}
-	for _, c := range []struct {
-		has  bool
-		v    float64
-		name string
-	}{{e.HasTemperature, e.TemperatureC, "TemperatureC"}, {e.HasHumidity, e.HumidityPct, "HumidityPct"}, {e.HasVelocity, e.VelocityMS, "VelocityMS"}} {
-		if c.has && !finite(c.v) {
-			return c.name, fmt.Sprintf("%v is not a value", c.v)
-		}
+	if e.Has&^envAll != 0 {
+		return "Has", fmt.Sprintf("unknown quantities %#x", uint8(e.Has&^envAll))
+	}
+	if e.Has&EnvTemperature != 0 && (!finite(e.TemperatureC) || e.TemperatureC < envMinC || e.TemperatureC > envMaxC) {
+		return "TemperatureC", fmt.Sprintf("%v °C is outside %d to %d °C", e.TemperatureC, envMinC, envMaxC)
+	}
+	if e.Has&EnvHumidity != 0 && (!finite(e.HumidityPct) || e.HumidityPct < 0 || e.HumidityPct > 100) {
+		return "HumidityPct", fmt.Sprintf("%v %% is not a relative humidity (0 to 100 %%)", e.HumidityPct)
+	}
+	if e.Has&EnvVelocity != 0 && (!finite(e.VelocityMS) || e.VelocityMS < 0 || e.VelocityMS > envMaxVelocity) {
+		return "VelocityMS", fmt.Sprintf("%v m/s is not an air velocity (0 to %d m/s)", e.VelocityMS, envMaxVelocity)
 	}
 	return "", ""
 }
 
-func encodeEnvSample(key []byte, e *EnvSample) []byte {
-	b := make([]byte, 0, 2+3*8+crcLen)
-	b = append(b, codecV1)
-	var bits byte
-	if e.HasTemperature {
-		bits |= envTemperature
-	}
-	if e.HasHumidity {
-		bits |= envHumidity
-	}
-	if e.HasVelocity {
-		bits |= envVelocity
-	}
-	b = append(b, bits)
-	for _, c := range []struct {
-		has bool
-		v   float64
-	}{{e.HasTemperature, e.TemperatureC}, {e.HasHumidity, e.HumidityPct}, {e.HasVelocity, e.VelocityMS}} {
-		if c.has {
-			b = binary.LittleEndian.AppendUint64(b, math.Float64bits(c.v))
+// values returns the fields in Has order with their flags.
+func (e *EnvSample) values() [3]float64 {
+	return [3]float64{e.TemperatureC, e.HumidityPct, e.VelocityMS}
+}
+
+// encodeEnv: version | Has | float64 per quantity present | CRC.
+func encodeEnv(key []byte, e *EnvSample) []byte {
+	b := make([]byte, 0, 2+24+crcLen)
+	b = append(b, codecV1, byte(e.Has))
+	for i, v := range e.values() {
+		if e.Has&(1<<i) != 0 {
+			b = binary.LittleEndian.AppendUint64(b, math.Float64bits(v))
 		}
 	}
 	return seal(key, b)
 }
 
-func decodeEnvSample(sensor string, key, v []byte) (EnvSample, error) {
+func decodeEnv(sensor string, key, v []byte) (EnvSample, error) {
 	fail := func(err error) (EnvSample, error) {
 		return EnvSample{}, fmt.Errorf("%w: environment sample of sensor %q at %s: %v", ErrCorrupt, sensor, keyString(key), err)
 	}
@@ -95,35 +99,29 @@ func decodeEnvSample(sensor string, key, v []byte) (EnvSample, error) {
 		return fail(err)
 	}
 	d := decoder{b: body}
-	bits := d.byte1("channels")
-	if bits&^envAll != 0 {
-		return fail(fmt.Errorf("unknown channel bits %08b", bits))
-	}
-	e := EnvSample{Sensor: sensor, Time: t}
-	if bits&envTemperature != 0 {
-		e.TemperatureC, e.HasTemperature = d.float("TemperatureC"), true
-	}
-	if bits&envHumidity != 0 {
-		e.HumidityPct, e.HasHumidity = d.float("HumidityPct"), true
-	}
-	if bits&envVelocity != 0 {
-		e.VelocityMS, e.HasVelocity = d.float("VelocityMS"), true
+	e := EnvSample{Sensor: sensor, Time: t, Has: EnvFields(d.byte1("Has"))}
+	var vals [3]float64
+	for i := range vals {
+		if e.Has&(1<<i) != 0 {
+			vals[i] = d.float("value")
+		}
 	}
 	d.end()
 	if d.err != nil {
 		return fail(d.err)
 	}
-	if field, reason := checkEnvSample(&e); field != "" {
+	e.TemperatureC, e.HumidityPct, e.VelocityMS = vals[0], vals[1], vals[2]
+	if field, reason := checkEnv(&e); field != "" {
 		return fail(fmt.Errorf("%s: %s", field, reason))
 	}
 	return e, nil
 }
 
-// CommitEnvironment stores es in one transaction, fsynced before it
-// returns (the sender is acknowledged only after): all or nothing, and a
-// sample with the sensor and time of one stored is a duplicate, counted
-// and not stored again.
-func (s *Store) CommitEnvironment(ctx context.Context, es []EnvSample) (accepted, duplicates int, err error) {
+// AppendEnvironment stores es in one durable transaction with the rules
+// of AppendPressure: all or nothing (a *RecordError names the index and
+// field of the first bad sample), a repeated sensor and time is a
+// duplicate and is not stored again.
+func (s *Store) AppendEnvironment(ctx context.Context, es []EnvSample) (accepted, duplicates int, err error) {
 	if err := s.enter(); err != nil {
 		return 0, 0, err
 	}
@@ -138,11 +136,11 @@ func (s *Store) CommitEnvironment(ctx context.Context, es []EnvSample) (accepted
 	prep := make([]prepared, len(es))
 	for i := range es {
 		e := &es[i]
-		if field, reason := checkEnvSample(e); field != "" {
-			return 0, 0, &RecordError{Kind: "environment", Index: i, Field: field, Reason: reason}
+		if field, reason := checkEnv(e); field != "" {
+			return 0, 0, &RecordError{Kind: "environment sample", Index: i, Field: field, Reason: reason}
 		}
 		key := timeKey(e.Time)
-		prep[i] = prepared{sensor: e.Sensor, key: key, val: encodeEnvSample(key, e)}
+		prep[i] = prepared{sensor: e.Sensor, key: key, val: encodeEnv(key, e)}
 	}
 	var acc, dup int
 	err = s.submit(ctx, len(prep), func(tx *bolt.Tx) error {
@@ -173,11 +171,93 @@ func (s *Store) CommitEnvironment(ctx context.Context, es []EnvSample) (accepted
 // ScanEnvironment calls fn with each sample of sensor in [from, to),
 // oldest first, with the same rules as ScanReadings.
 func (s *Store) ScanEnvironment(sensor string, from, to time.Time, fn func(EnvSample) error) error {
-	return scanSeries(s, bucketEnvironment, sensor, from, to, decodeEnvSample, fn)
+	return scanSeries(s, bucketEnvironment, sensor, from, to, decodeEnv, fn)
 }
 
-// LatestEnvironment returns the newest sample of sensor; false if it has
-// none.
+// LatestEnvironment returns the newest sample of sensor; false if none.
 func (s *Store) LatestEnvironment(sensor string) (EnvSample, bool, error) {
-	return latestSeries(s, bucketEnvironment, sensor, decodeEnvSample)
+	return latestSeries(s, bucketEnvironment, sensor, decodeEnv)
+}
+
+// EnvStat summarises one quantity over a rollup bucket.
+type EnvStat struct {
+	N              int // samples that carried the quantity
+	Mean, Min, Max float64
+}
+
+// EnvRollup summarises the samples of one sensor in [Start, End): a
+// bucket of Step, clipped to the range asked for as for Rollup.
+type EnvRollup struct {
+	Start, End time.Time
+	Step       time.Duration
+	Samples    int
+	// Temperature, Humidity and Velocity are aligned with EnvTemperature,
+	// EnvHumidity and EnvVelocity; a quantity no sample carried has N 0.
+	Temperature, Humidity, Velocity EnvStat
+}
+
+// ScanEnvironmentRollups calls fn with the rollups of sensor at step over
+// [from, to), oldest first; steps and edges as ScanRollups (rows inside
+// the range, buckets aligned on hours and UTC days). They are computed
+// from the samples: a sensor sends far fewer than a counter's readings.
+func (s *Store) ScanEnvironmentRollups(sensor string, step time.Duration, from, to time.Time, fn func(EnvRollup) error) error {
+	if err := checkStep(step); err != nil {
+		return err
+	}
+	var cur *EnvRollup
+	var sums [3]float64
+	lo, hi := from, to
+	flush := func() error {
+		if cur == nil {
+			return nil
+		}
+		stats := []*EnvStat{&cur.Temperature, &cur.Humidity, &cur.Velocity}
+		for i, st := range stats {
+			if st.N > 0 {
+				st.Mean = sums[i] / float64(st.N)
+			}
+		}
+		if !lo.IsZero() && cur.Start.Before(lo) {
+			cur.Start = lo.UTC()
+		}
+		if !hi.IsZero() && cur.End.After(hi) {
+			cur.End = hi.UTC()
+		}
+		r := *cur
+		cur, sums = nil, [3]float64{}
+		return fn(r)
+	}
+	err := s.ScanEnvironment(sensor, from, to, func(e EnvSample) error {
+		ns := e.Time.UnixNano()
+		start := nsTime(ns - ns%int64(step))
+		if cur != nil && !cur.Start.Equal(start) { // not clipped before flush
+			if err := flush(); err != nil {
+				return err
+			}
+		}
+		if cur == nil {
+			cur = &EnvRollup{Start: start, End: start.Add(step), Step: step}
+		}
+		cur.Samples++
+		stats := []*EnvStat{&cur.Temperature, &cur.Humidity, &cur.Velocity}
+		for i, v := range e.values() {
+			if e.Has&(1<<i) == 0 {
+				continue
+			}
+			st := stats[i]
+			if st.N == 0 || v < st.Min {
+				st.Min = v
+			}
+			if st.N == 0 || v > st.Max {
+				st.Max = v
+			}
+			st.N++
+			sums[i] += v
+		}
+		return nil
+	})
+	if err != nil {
+		return err
+	}
+	return flush()
 }

@@ -3,96 +3,75 @@ package store
 import (
 	"context"
 	"errors"
-	"path/filepath"
-	"strings"
+	"math"
+	"reflect"
 	"testing"
 	"time"
 )
 
-func envSample(sensor string, at time.Time, tc, rh float64) EnvSample {
-	return EnvSample{Sensor: sensor, Time: at, TemperatureC: tc, HumidityPct: rh, HasTemperature: true, HasHumidity: true}
-}
-
-// TestEnvironmentCommitScanReopen: samples are stored once (a resent
-// sample is a duplicate), scanned in [from, to) in time order with only
-// their own channels, and are still there after the store is reopened.
-func TestEnvironmentCommitScanReopen(t *testing.T) {
+func TestEnvironmentSamples(t *testing.T) {
 	dir := t.TempDir()
-	s := openTest(t, dir, Options{})
+	s := openTest(t, dir, Options{NoSync: true})
 	ctx := context.Background()
-	batch := []EnvSample{
-		envSample("th-asm", t0.Add(2*time.Minute), 21.3, 44.5),
-		envSample("th-asm", t0, 21.1, 45.0),
-		{Sensor: "av-hood", Time: t0, VelocityMS: 0.45, HasVelocity: true},
-		envSample("th-asm", t0.Add(time.Minute), 21.2, 44.8),
+	var th []EnvSample
+	for i := range 180 { // three hours of a T/RH probe, one sample a minute
+		th = append(th, EnvSample{Sensor: "th-asm", Time: t0.Add(time.Duration(i) * time.Minute), Has: EnvTemperature | EnvHumidity,
+			TemperatureC: 21 + float64(i%7)/10, HumidityPct: 45 - float64(i%5)})
 	}
-	if acc, dup, err := s.CommitEnvironment(ctx, batch); err != nil || acc != 4 || dup != 0 {
-		t.Fatalf("commit: %d accepted, %d duplicates, %v; want 4, 0", acc, dup, err)
+	av := []EnvSample{{Sensor: "av-hood", Time: t0, Has: EnvVelocity, VelocityMS: 0.45}, {Sensor: "av-hood", Time: t0.Add(time.Second), Has: EnvVelocity, VelocityMS: 0}}
+	if acc, dup, err := s.AppendEnvironment(ctx, append(th, av...)); err != nil || acc != 182 || dup != 0 {
+		t.Fatalf("append: %d %d %v", acc, dup, err)
 	}
-	if acc, dup, err := s.CommitEnvironment(ctx, batch[1:2]); err != nil || acc != 0 || dup != 1 {
-		t.Fatalf("resend: %d accepted, %d duplicates, %v; want 0, 1", acc, dup, err)
+	if acc, dup, err := s.AppendEnvironment(ctx, av[:1]); err != nil || acc != 0 || dup != 1 {
+		t.Fatalf("repeat: %d %d %v", acc, dup, err)
 	}
-	if err := s.Close(); err != nil {
-		t.Fatal(err)
+	bad := []struct {
+		e     EnvSample
+		field string
+	}{
+		{EnvSample{Sensor: "th", Time: t0}, "Has"},
+		{EnvSample{Sensor: "th", Time: t0, Has: EnvHumidity, HumidityPct: 101}, "HumidityPct"},
+		{EnvSample{Sensor: "th", Time: t0, Has: EnvTemperature, TemperatureC: math.NaN()}, "TemperatureC"},
+		{EnvSample{Sensor: "av", Time: t0, Has: EnvVelocity, VelocityMS: -0.1}, "VelocityMS"},
+		{EnvSample{Sensor: "", Time: t0, Has: EnvVelocity}, "Sensor"},
 	}
-	s = openTest(t, dir, Options{})
+	for _, b := range bad {
+		_, _, err := s.AppendEnvironment(ctx, []EnvSample{av[0], b.e})
+		var re *RecordError
+		if !errors.As(err, &re) || re.Index != 1 || re.Field != b.field {
+			t.Fatalf("%+v: %v, want a RecordError at index 1 field %s", b.e, err, b.field)
+		}
+	}
 	var got []EnvSample
-	if err := s.ScanEnvironment("th-asm", t0, t0.Add(2*time.Minute), func(e EnvSample) error { got = append(got, e); return nil }); err != nil {
+	if err := s.ScanEnvironment("av-hood", time.Time{}, time.Time{}, func(e EnvSample) error { got = append(got, e); return nil }); err != nil || !reflect.DeepEqual(got, av) {
+		t.Fatalf("scan %+v %v", got, err)
+	}
+	// Hourly rows over [10:30, 12:30): clipped at both edges, three rows.
+	var rows []EnvRollup
+	from, to := t0.Add(30*time.Minute), t0.Add(150*time.Minute)
+	if err := s.ScanEnvironmentRollups("th-asm", time.Hour, from, to, func(r EnvRollup) error { rows = append(rows, r); return nil }); err != nil {
 		t.Fatal(err)
 	}
-	if len(got) != 2 || !got[0].Time.Equal(t0) || got[1].TemperatureC != 21.2 || got[1].HasVelocity {
-		t.Fatalf("scan [t0, t0+2m) = %+v, want the samples at t0 and t0+1m only", got)
+	if len(rows) != 3 || !rows[0].Start.Equal(from) || !rows[2].End.Equal(to) || rows[0].Samples != 30 || rows[1].Samples != 60 || rows[2].Samples != 30 {
+		t.Fatalf("rows %+v", rows)
 	}
-	av, ok, err := s.LatestEnvironment("av-hood")
-	if err != nil || !ok || av.VelocityMS != 0.45 || av.HasTemperature || av.HasHumidity {
-		t.Fatalf("latest av-hood = %+v %v %v", av, ok, err)
+	// Reference: the mean of the samples in the middle hour, summed here.
+	var sum float64
+	for _, e := range th[60:120] {
+		sum += e.TemperatureC
 	}
-	if err := s.Close(); err != nil {
-		t.Fatal(err)
+	if m := rows[1].Temperature; m.N != 60 || !near(m.Mean, sum/60) || m.Min != 21 || m.Max != 21.6 || rows[1].Velocity.N != 0 {
+		t.Fatalf("middle hour %+v", rows[1])
 	}
-	if problems, err := Verify(filepath.Join(dir, FileName)); err != nil || len(problems) != 0 {
-		t.Fatalf("verify of a good file: %q, %v", problems, err)
+	if e, ok, err := s.LatestEnvironment("th-asm"); err != nil || !ok || !e.Time.Equal(th[179].Time) {
+		t.Fatalf("latest %+v %v %v", e, ok, err)
 	}
-}
-
-// TestEnvironmentRefusesWhole: one bad sample refuses the batch, naming
-// it, and stores nothing.
-func TestEnvironmentRefusesWhole(t *testing.T) {
-	s := quick(t)
-	_, _, err := s.CommitEnvironment(context.Background(), []EnvSample{
-		envSample("th-asm", t0, 21, 45),
-		{Sensor: "th-asm", Time: t0.Add(time.Minute)},
-	})
-	var re *RecordError
-	if !errors.As(err, &re) || re.Index != 1 {
-		t.Fatalf("err %v, want a RecordError at index 1", err)
+	res, err := s.Sweep(ctx, t0.Add(time.Hour))
+	if err != nil || res.Environment != 62 {
+		t.Fatalf("sweep %+v %v", res, err)
 	}
-	n := 0
-	_ = s.ScanEnvironment("th-asm", t0, t0.Add(time.Hour), func(EnvSample) error { n++; return nil })
-	if n != 0 {
-		t.Fatalf("%d samples stored from a refused batch", n)
-	}
-}
-
-// TestVerifyFindsChangedEnvironmentSample: a flipped byte in a stored
-// sample is named by verify.
-func TestVerifyFindsChangedEnvironmentSample(t *testing.T) {
-	dir := t.TempDir()
-	s := openTest(t, dir, Options{})
-	if _, _, err := s.CommitEnvironment(context.Background(), []EnvSample{envSample("th-met", t0, 20.1, 41)}); err != nil {
-		t.Fatal(err)
-	}
-	if err := s.Close(); err != nil {
-		t.Fatal(err)
-	}
-	path := filepath.Join(dir, FileName)
-	flipValue(t, path, rawValue(t, path, [][]byte{bucketEnvironment, []byte("th-met")}, timeKey(t0)))
-	problems, err := Verify(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	want := `environment sample of sensor "th-met" at 2026-03-02T10:00:00Z: checksum mismatch`
-	if len(problems) != 1 || !strings.Contains(problems[0], want) {
-		t.Fatalf("problems %q, want one naming %q", problems, want)
+	_ = s.Close()
+	if p, err := Verify(dir); err != nil || len(p) != 0 {
+		t.Fatalf("Verify: %q %v", p, err)
 	}
 }

@@ -58,12 +58,26 @@ func (s *Store) AppendPressure(ctx context.Context, ps []Pressure) (accepted, du
 		acc, dup = 0, 0
 		series := newSeriesBuckets(tx, bucketPressure)
 		cov := newCoverage(coverPressure)
+		chunked := map[string]int64{} // newest chunked time per sensor
 		for i := range prep {
 			b, err := series.get(prep[i].sensor)
 			if err != nil {
 				return err
 			}
-			if b.Get(prep[i].key) != nil {
+			old := b.Get(prep[i].key)
+			if old == nil {
+				last, ok := chunked[prep[i].sensor]
+				if !ok {
+					last = lastPChunkNanos(tx, prep[i].sensor)
+					chunked[prep[i].sensor] = last
+				}
+				if ns, _ := keyNanos(prep[i].key); ns <= last {
+					if old, err = pressureValue(tx, prep[i].sensor, prep[i].key); err != nil {
+						return err
+					}
+				}
+			}
+			if old != nil {
 				dup++
 				continue
 			}
@@ -82,12 +96,69 @@ func (s *Store) AppendPressure(ctx context.Context, ps []Pressure) (accepted, du
 }
 
 // ScanPressure calls fn with each sample of sensor in [from, to), oldest
-// first, with the same rules as ScanReadings.
+// first, with the same rules as ScanReadings (head and chunks merged).
 func (s *Store) ScanPressure(sensor string, from, to time.Time, fn func(Pressure) error) error {
-	return scanSeries(s, bucketPressure, sensor, from, to, decodePressure, fn)
+	if err := s.enter(); err != nil {
+		return err
+	}
+	defer s.exit()
+	if reason := checkName(sensor); reason != "" {
+		return fmt.Errorf("%w: name %q: %s", ErrInvalid, sensor, reason)
+	}
+	lo, hi, ok, err := keyRange(from, to)
+	if err != nil || !ok {
+		return err
+	}
+	loN, _ := keyNanos(lo)
+	hiN, _ := keyNanos(hi)
+	return s.view(func(tx *bolt.Tx, g *guard) error {
+		it := newPressureIter(tx, sensor, loN, hiN)
+		for {
+			p, ok := it.next()
+			if !ok {
+				return it.err
+			}
+			if err := g.call(func() error { return fn(p) }); err != nil {
+				return err
+			}
+		}
+	})
 }
 
 // LatestPressure returns the newest sample of sensor; false if it has none.
 func (s *Store) LatestPressure(sensor string) (Pressure, bool, error) {
-	return latestSeries(s, bucketPressure, sensor, decodePressure)
+	if err := s.enter(); err != nil {
+		return Pressure{}, false, err
+	}
+	defer s.exit()
+	if reason := checkName(sensor); reason != "" {
+		return Pressure{}, false, fmt.Errorf("%w: name %q: %s", ErrInvalid, sensor, reason)
+	}
+	var out Pressure
+	found := false
+	err := s.view(func(tx *bolt.Tx, _ *guard) error {
+		var headNs int64 = -1
+		if b := tx.Bucket(bucketPressure).Bucket([]byte(sensor)); b != nil {
+			if k, v := b.Cursor().Last(); k != nil {
+				p, err := decodePressure(sensor, k, v)
+				if err != nil {
+					return err
+				}
+				out, found, headNs = p, true, p.Time.UnixNano()
+			}
+		}
+		last := lastPChunkNanos(tx, sensor)
+		if last <= headNs {
+			return nil
+		}
+		it := newPressureIter(tx, sensor, last, last+1)
+		if p, ok := it.next(); ok {
+			out, found = p, true
+		}
+		return it.err
+	})
+	if err != nil {
+		return Pressure{}, false, err
+	}
+	return out, found, nil
 }

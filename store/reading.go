@@ -194,6 +194,7 @@ func (s *Store) appendReadings(ctx context.Context, rs []Reading, mark bool) (ac
 	if err != nil {
 		return 0, 0, nil, err
 	}
+	s.noteAppended(acc)
 	return acc, dup, stored, nil
 }
 
@@ -201,13 +202,27 @@ func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int, 
 	series := newSeriesBuckets(tx, bucketReadings)
 	rollups := newRollupSet(tx, s.log)
 	cov := newCoverage(coverReadings)
+	chunked := map[string]int64{} // newest chunked time per counter
 	for i := range prep {
 		p := &prep[i]
 		b, err := series.get(p.counter)
 		if err != nil {
 			return err
 		}
-		if old := b.Get(p.key); old != nil {
+		old := b.Get(p.key)
+		if old == nil {
+			last, ok := chunked[p.counter]
+			if !ok {
+				last = lastChunkNanos(tx, p.counter)
+				chunked[p.counter] = last
+			}
+			if p.ns <= last {
+				if old, err = storedValue(tx, p.counter, p.key); err != nil {
+					return err
+				}
+			}
+		}
+		if old != nil {
 			*dup++
 			if stored != nil {
 				// The encoding is deterministic: equal content, equal bytes.
@@ -242,10 +257,102 @@ func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int, 
 // store (a write may wait on this transaction) nor Close it (Close waits
 // for the scan).
 func (s *Store) ScanReadings(counter string, from, to time.Time, fn func(Reading) error) error {
-	return scanSeries(s, bucketReadings, counter, from, to, decodeReading, fn)
+	return s.scanReadings(counter, from, to, func(it *readingIter, cr *chunkReading) error {
+		r, err := it.reading(cr)
+		if err != nil {
+			return err
+		}
+		return fn(r)
+	})
+}
+
+// StreamReadings is ScanReadings for encoders that write each reading out
+// at once (the API's JSON and CSV rows): fn gets a pointer to a reading
+// that is valid only until it returns, and whose Sizes slice is shared
+// with the other readings of the scan that have the same channels, so it
+// must not be modified or kept; copy what is kept. It saves the copies
+// ScanReadings makes for each reading, which is most of its cost on a
+// year of one location.
+func (s *Store) StreamReadings(counter string, from, to time.Time, fn func(*Reading) error) error {
+	return s.scanReadings(counter, from, to, func(it *readingIter, cr *chunkReading) error {
+		r, err := it.shared(cr)
+		if err != nil {
+			return err
+		}
+		return fn(&r)
+	})
+}
+
+// scanReadings walks counter's readings in [from, to) in one read
+// transaction, head and chunks merged; fn runs under the guard, so its
+// own panics keep their stack.
+func (s *Store) scanReadings(counter string, from, to time.Time, fn func(*readingIter, *chunkReading) error) error {
+	if err := s.enter(); err != nil {
+		return err
+	}
+	defer s.exit()
+	if reason := checkName(counter); reason != "" {
+		return fmt.Errorf("%w: name %q: %s", ErrInvalid, counter, reason)
+	}
+	lo, hi, ok, err := keyRange(from, to)
+	if err != nil || !ok {
+		return err
+	}
+	loN, _ := keyNanos(lo)
+	hiN, _ := keyNanos(hi)
+	return s.view(func(tx *bolt.Tx, g *guard) error {
+		it := newReadingIter(tx, counter, loN, hiN)
+		for {
+			cr, ok := it.next()
+			if !ok {
+				return it.err
+			}
+			if err := g.call(func() error { return fn(it, &cr) }); err != nil {
+				return err
+			}
+		}
+	})
 }
 
 // LatestReading returns the newest reading of counter; false if it has none.
 func (s *Store) LatestReading(counter string) (Reading, bool, error) {
-	return latestSeries(s, bucketReadings, counter, decodeReading)
+	if err := s.enter(); err != nil {
+		return Reading{}, false, err
+	}
+	defer s.exit()
+	if reason := checkName(counter); reason != "" {
+		return Reading{}, false, fmt.Errorf("%w: name %q: %s", ErrInvalid, counter, reason)
+	}
+	var out Reading
+	found := false
+	err := s.view(func(tx *bolt.Tx, _ *guard) error {
+		var headNs int64 = -1
+		if b := tx.Bucket(bucketReadings).Bucket([]byte(counter)); b != nil {
+			if k, v := b.Cursor().Last(); k != nil {
+				r, err := decodeReading(counter, k, v)
+				if err != nil {
+					return err
+				}
+				out, found, headNs = r, true, r.Time.UnixNano()
+			}
+		}
+		last := lastChunkNanos(tx, counter)
+		if last <= headNs {
+			return nil
+		}
+		v, err := storedValue(tx, counter, nanosKey(last))
+		if err != nil || v == nil {
+			return err
+		}
+		r, err := decodeReading(counter, nanosKey(last), v)
+		if err != nil {
+			return err
+		}
+		out, found = r, true
+		return nil
+	})
+	if err != nil {
+		return Reading{}, false, err
+	}
+	return out, found, nil
 }

@@ -13,8 +13,11 @@ import (
 // [Start, Start+Step): how many, and the mean and maximum of the
 // cumulative concentration (particles/m³) at each size.
 type Rollup struct {
-	Start   time.Time
-	Step    time.Duration // time.Minute or time.Hour
+	Start time.Time
+	Step  time.Duration // the step asked for
+	// End is the exclusive end of what the row covers: Start+Step, or
+	// the end of the range when the range cuts the bucket.
+	End     time.Time
 	Samples int
 	Sizes   []float64 // every size seen in the bucket, ascending
 	Mean    []float64 // aligned with Sizes
@@ -95,6 +98,7 @@ func (a *rollupAcc) rollup(step time.Duration) Rollup {
 	r := Rollup{
 		Start:       time.Unix(0, a.start).UTC(),
 		Step:        step,
+		End:         time.Unix(0, a.start).UTC().Add(step),
 		Samples:     int(a.samples),
 		Sizes:       append([]float64(nil), a.sizes...),
 		Mean:        make([]float64, len(a.sizes)),
@@ -112,6 +116,7 @@ func (a *rollupAcc) rollup(step time.Duration) Rollup {
 // bucket hit by sixty readings is decoded and written once.
 type rollupSet struct {
 	log     *slog.Logger
+	tx      *bolt.Tx
 	buckets []*seriesBuckets // aligned with rollupSteps
 	m       map[rollupKey]*rollupEntry
 	order   []*rollupEntry
@@ -130,7 +135,7 @@ type rollupEntry struct {
 }
 
 func newRollupSet(tx *bolt.Tx, log *slog.Logger) *rollupSet {
-	rs := &rollupSet{log: log, m: map[rollupKey]*rollupEntry{}}
+	rs := &rollupSet{log: log, tx: tx, m: map[rollupKey]*rollupEntry{}}
 	for _, st := range rollupSteps {
 		rs.buckets = append(rs.buckets, newSeriesBuckets(tx, st.bucket))
 	}
@@ -167,7 +172,7 @@ func (rs *rollupSet) add(readings *bolt.Bucket, p *preparedReading) error {
 		// A damaged rollup must not stop ingestion: rebuild it from the
 		// raw readings, which already include p.
 		rs.log.Warn("store: rebuilding damaged rollup from raw readings", "counter", p.counter, "step", st.step, "start", time.Unix(0, start).UTC(), "error", err)
-		e.acc = rebuildRollup(rs.log, readings, p.counter, start, st.step)
+		e.acc = rebuildRollup(rs.log, rs.tx, p.counter, start, st.step)
 	}
 	return nil
 }
@@ -183,35 +188,207 @@ func (rs *rollupSet) flush() error {
 
 // rebuildRollup recomputes one bucket from the readings of counter.
 // Readings that do not decode are left out (Verify reports them).
-func rebuildRollup(log *slog.Logger, readings *bolt.Bucket, counter string, start int64, step time.Duration) *rollupAcc {
+func rebuildRollup(log *slog.Logger, tx *bolt.Tx, counter string, start int64, step time.Duration) *rollupAcc {
 	acc := &rollupAcc{start: start}
-	hi := nanosKey(start + int64(step))
-	c := readings.Cursor()
-	for k, v := c.Seek(nanosKey(start)); k != nil && bytes.Compare(k, hi) < 0; k, v = c.Next() {
-		r, err := decodeReading(counter, k, v)
+	it := newReadingIter(tx, counter, start, start+int64(step))
+	for {
+		cr, ok := it.next()
+		if !ok {
+			break
+		}
+		r, err := it.reading(&cr)
 		if err != nil {
 			log.Warn("store: damaged reading left out of rebuilt rollup", "error", err)
 			continue
 		}
 		acc.add(r.Sizes, r.PerM3())
 	}
+	if it.err != nil {
+		log.Warn("store: damaged readings left out of rebuilt rollup", "error", it.err)
+	}
 	return acc
 }
 
-// ScanRollups calls fn with each rollup of counter at step (time.Minute or
-// time.Hour) whose Start lies in [from, to), oldest first, with the same
-// rules as ScanReadings.
+// ScanRollups calls fn with the rollups of counter at step over [from,
+// to), oldest first, inside one read transaction; a zero from or to is
+// unbounded. step is a whole number of minutes that divides an hour (1m,
+// 5m, 15m, 30m: computed from the readings) or a whole number of hours
+// that divides a day (1h: kept; 2h … 24h: added up from the hours), so
+// that buckets align on the hour and on UTC midnight.
+//
+// Every row lies inside [from, to): a bucket cut by from or to covers
+// only its part inside the range, and then Start is from (not the bucket
+// start) and End is to. A bucket with no readings in the range gives no
+// row. Rows computed from readings and rows kept are the same figures;
+// only their cost differs. The range walk seeks, so empty years cost
+// nothing; see CheckRange for the bound the API puts on a query.
 func (s *Store) ScanRollups(counter string, step time.Duration, from, to time.Time, fn func(Rollup) error) error {
-	kind := rollupBucket(step)
-	if kind == nil {
-		return fmt.Errorf("%w: rollup step %s (kept: 1m, 1h)", ErrInvalid, step)
+	if err := checkStep(step); err != nil {
+		return err
 	}
-	decode := func(name string, k, v []byte) (Rollup, error) {
-		acc, err := decodeRollup(name, step, k, v)
-		if err != nil {
-			return Rollup{}, err
+	if err := s.enter(); err != nil {
+		return err
+	}
+	defer s.exit()
+	if reason := checkName(counter); reason != "" {
+		return fmt.Errorf("%w: name %q: %s", ErrInvalid, counter, reason)
+	}
+	lo, hi, ok, err := keyRange(from, to)
+	if err != nil || !ok {
+		return err
+	}
+	loN, _ := keyNanos(lo)
+	hiN, _ := keyNanos(hi)
+	return s.view(func(tx *bolt.Tx, g *guard) error {
+		emit := func(r Rollup) error { return g.call(func() error { return fn(r) }) }
+		if step < time.Hour {
+			return rawRollups(tx, counter, step, loN, hiN, emit)
 		}
-		return acc.rollup(step), nil
+		h := int64(time.Hour)
+		first := ceilTo(loN, h)
+		last := hiN - hiN%h
+		if first >= last {
+			return rawRollups(tx, counter, step, loN, hiN, emit)
+		}
+		// The partial hours at either edge come from the readings; the
+		// whole hours between from the kept rollups. A bucket that spans
+		// an edge gathers both before it is sent; hours go straight out.
+		if step == time.Hour {
+			if err := rawRollups(tx, counter, step, loN, first, emit); err != nil {
+				return err
+			}
+			if err := keptRollups(tx, counter, first, last, emit); err != nil {
+				return err
+			}
+			return rawRollups(tx, counter, step, last, hiN, emit)
+		}
+		agg := &rollupRows{step: step, lo: loN, hi: hiN, emit: emit}
+		if err := rawRollups(tx, counter, time.Hour, loN, first, agg.add); err != nil {
+			return err
+		}
+		if err := keptRollups(tx, counter, first, last, agg.add); err != nil {
+			return err
+		}
+		if err := rawRollups(tx, counter, time.Hour, last, hiN, agg.add); err != nil {
+			return err
+		}
+		return agg.flush()
+	})
+}
+
+// checkStep refuses a step whose buckets would not align on hours and days.
+func checkStep(step time.Duration) error {
+	switch {
+	case step >= time.Minute && step <= time.Hour && step%time.Minute == 0 && time.Hour%step == 0:
+		return nil
+	case step > time.Hour && step%time.Hour == 0 && (24*time.Hour)%step == 0:
+		return nil
 	}
-	return scanSeries(s, kind, counter, from, to, decode, fn)
+	return fmt.Errorf("%w: rollup step %s: want whole minutes dividing an hour (1m, 5m, 15m, 30m) or whole hours dividing a day (1h, 2h, …, 24h)", ErrInvalid, step)
+}
+
+func ceilTo(ns, step int64) int64 {
+	if r := ns % step; r != 0 {
+		return ns - r + step
+	}
+	return ns
+}
+
+// rawRollups computes rollups at step from the readings in [lo, hi).
+func rawRollups(tx *bolt.Tx, counter string, step time.Duration, lo, hi int64, emit func(Rollup) error) error {
+	agg := &rollupRows{step: step, lo: lo, hi: hi, emit: emit}
+	it := newReadingIter(tx, counter, lo, hi)
+	for {
+		cr, ok := it.next()
+		if !ok {
+			if it.err != nil {
+				return it.err
+			}
+			return agg.flush()
+		}
+		r, err := it.reading(&cr)
+		if err != nil {
+			return err
+		}
+		start := cr.ns - cr.ns%int64(step)
+		if err := agg.turn(start); err != nil {
+			return err
+		}
+		agg.cur.add(r.Sizes, r.PerM3())
+	}
+}
+
+// keptRollups sends the kept hourly rollups with Start in [lo, hi).
+func keptRollups(tx *bolt.Tx, counter string, lo, hi int64, emit func(Rollup) error) error {
+	b := tx.Bucket(bucketRollup1h).Bucket([]byte(counter))
+	if b == nil {
+		return nil
+	}
+	end := nanosKey(hi)
+	c := b.Cursor()
+	for k, v := c.Seek(nanosKey(lo)); k != nil && bytes.Compare(k, end) < 0; k, v = c.Next() {
+		acc, err := decodeRollup(counter, time.Hour, k, v)
+		if err != nil {
+			return err
+		}
+		if err := emit(acc.rollup(time.Hour)); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// rollupRows gathers rollups of a finer step (or single readings) into
+// rows at step, clipped to [lo, hi).
+type rollupRows struct {
+	step   time.Duration
+	lo, hi int64
+	emit   func(Rollup) error
+	cur    *rollupAcc
+}
+
+// turn starts the bucket at start unless it is the current one.
+func (a *rollupRows) turn(start int64) error {
+	if a.cur != nil && a.cur.start == start {
+		return nil
+	}
+	if err := a.flush(); err != nil {
+		return err
+	}
+	a.cur = &rollupAcc{start: start}
+	return nil
+}
+
+// add folds in a finer rollup.
+func (a *rollupRows) add(r Rollup) error {
+	ns := r.Start.UnixNano()
+	if err := a.turn(ns - ns%int64(a.step)); err != nil {
+		return err
+	}
+	c := a.cur
+	c.samples += uint64(r.Samples)
+	for i, size := range r.Sizes {
+		j := c.index(i, size)
+		n := uint64(r.SizeSamples[i])
+		if c.n[j] == 0 || r.Max[i] > c.max[j] {
+			c.max[j] = r.Max[i]
+		}
+		c.n[j] += n
+		c.sum[j] += r.Mean[i] * float64(n)
+	}
+	return nil
+}
+
+func (a *rollupRows) flush() error {
+	if a.cur == nil || a.cur.samples == 0 {
+		return nil
+	}
+	r := a.cur.rollup(a.step)
+	a.cur = nil
+	start := r.Start.UnixNano()
+	r.End = nsTime(min(start+int64(a.step), a.hi))
+	if start < a.lo {
+		r.Start = nsTime(a.lo)
+	}
+	return a.emit(r)
 }

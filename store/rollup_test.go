@@ -2,6 +2,7 @@ package store
 
 import (
 	"context"
+	"errors"
 	"math/rand/v2"
 	"reflect"
 	"sort"
@@ -104,14 +105,17 @@ func TestRollupsMatchRecomputation(t *testing.T) {
 		all = all[n:]
 	}
 	for _, c := range counters {
-		for _, step := range []time.Duration{time.Minute, time.Hour} {
+		// 1m and 15m come from the readings, 1h is kept, 2h adds hours.
+		for _, step := range []time.Duration{time.Minute, 15 * time.Minute, time.Hour, 2 * time.Hour} {
 			t.Run(c+"/"+step.String(), func(t *testing.T) {
 				compareRollups(t, rollupsAll(t, s, c, step), recompute(t, s, c, step))
 			})
 		}
 	}
-	if err := s.ScanRollups("pc-met", 5*time.Minute, time.Time{}, time.Time{}, func(Rollup) error { return nil }); err == nil {
-		t.Fatal("a 5m step was accepted")
+	for _, bad := range []time.Duration{7 * time.Minute, 90 * time.Second, 5 * time.Hour, 48 * time.Hour} {
+		if err := s.ScanRollups("pc-met", bad, time.Time{}, time.Time{}, func(Rollup) error { return nil }); !errors.Is(err, ErrInvalid) {
+			t.Fatalf("step %s: %v, want ErrInvalid", bad, err)
+		}
 	}
 }
 
@@ -145,5 +149,53 @@ func TestDamagedRollupIsRebuilt(t *testing.T) {
 	compareRollups(t, rollupsAll(t, s, "pc-asm-1", time.Hour), recompute(t, s, "pc-asm-1", time.Hour))
 	if acc, dup, err := s.AppendReadings(context.Background(), nil); acc != 0 || dup != 0 || err != nil {
 		t.Fatalf("empty append: %d %d %v", acc, dup, err)
+	}
+}
+
+// TestRollupRowsInsideRange: every row of a rolled-up query lies inside
+// [from, to); a bucket cut by an edge covers only its readings inside,
+// and its figures are those of exactly those readings.
+func TestRollupRowsInsideRange(t *testing.T) {
+	s := quick(t)
+	appendOK(t, s, series("pc-gown", t0, 240)) // 10:00 to 14:00
+	compactOK(t, s)
+	from, to := t0.Add(30*time.Minute), t0.Add(150*time.Minute) // 10:30 to 12:30
+	cases := []struct {
+		step    time.Duration
+		samples []int
+		starts  []time.Duration // after t0
+		ends    []time.Duration
+	}{
+		{time.Hour, []int{30, 60, 30}, []time.Duration{30 * time.Minute, time.Hour, 2 * time.Hour}, []time.Duration{time.Hour, 2 * time.Hour, 150 * time.Minute}},
+		{2 * time.Hour, []int{90, 30}, []time.Duration{30 * time.Minute, 2 * time.Hour}, []time.Duration{2 * time.Hour, 150 * time.Minute}},
+		{15 * time.Minute, []int{15, 15, 15, 15, 15, 15, 15, 15}, nil, nil},
+	}
+	for _, c := range cases {
+		t.Run(c.step.String(), func(t *testing.T) {
+			var rows []Rollup
+			if err := s.ScanRollups("pc-gown", c.step, from, to, func(r Rollup) error { rows = append(rows, r); return nil }); err != nil {
+				t.Fatal(err)
+			}
+			if len(rows) != len(c.samples) {
+				t.Fatalf("%d rows, want %d", len(rows), len(c.samples))
+			}
+			for i, r := range rows {
+				if r.Start.Before(from) || r.End.After(to) || !r.End.After(r.Start) || r.Samples != c.samples[i] {
+					t.Fatalf("row %d: [%s, %s) %d samples", i, r.Start, r.End, r.Samples)
+				}
+				if c.starts != nil && (!r.Start.Equal(t0.Add(c.starts[i])) || !r.End.Equal(t0.Add(c.ends[i]))) {
+					t.Fatalf("row %d: [%s, %s), want [%s, %s)", i, r.Start, r.End, t0.Add(c.starts[i]), t0.Add(c.ends[i]))
+				}
+				// The mean at 0.3 µm, summed here from the row's own readings.
+				var sum float64
+				rs := scanAll(t, s, "pc-gown", r.Start, r.End)
+				for _, rd := range rs {
+					sum += rd.PerM3()[0]
+				}
+				if len(rs) != r.Samples || !near(r.Mean[0], sum/float64(len(rs))) {
+					t.Fatalf("row %d: mean %v over %d, recomputed %v over %d", i, r.Mean[0], r.Samples, sum/float64(len(rs)), len(rs))
+				}
+			}
+		})
 	}
 }

@@ -56,7 +56,7 @@ func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
 // when nothing can match.
 func keyRange(from, to time.Time) (lo, hi []byte, ok bool, err error) {
 	if !from.IsZero() && !to.IsZero() && from.After(to) {
-		return nil, nil, false, fmt.Errorf("%w: range from %s is after to %s", ErrInvalid, from.Format(time.RFC3339Nano), to.Format(time.RFC3339Nano))
+		return nil, nil, false, &RangeError{Param: "to", Reason: fmt.Sprintf("%s is before from %s", to.Format(time.RFC3339Nano), from.Format(time.RFC3339Nano))}
 	}
 	loN, hiN := int64(0), int64(math.MaxInt64)
 	if !from.IsZero() && from.After(minTime) {

@@ -2,6 +2,7 @@ package store
 
 import (
 	"bytes"
+	"context"
 	"encoding/binary"
 	"errors"
 	"fmt"
@@ -37,6 +38,11 @@ var initialMmap = func() int {
 	return 64 << 20
 }()
 
+// allocSize is the file growth step (bbolt's default is 16 MB): a store
+// grows a few MB a day at a site, so 1 MB steps cost a handful of extra
+// syncs a day and keep a small store small.
+const allocSize = 1 << 20
+
 // Options tune Open. The zero value is right for the daemon.
 type Options struct {
 	// LockTimeout bounds the wait for the file lock (default
@@ -48,11 +54,16 @@ type Options struct {
 	// MaxBytes caps the data in the file (0: no cap). A commit that
 	// needs more fails with ErrDiskFull, like a full disk.
 	MaxBytes int64 `yaml:"max_bytes"`
+	// CompactEvery is how often a background pass moves head readings
+	// into chunks (0: DefaultCompactEvery; negative: never, Close and
+	// Compact still do).
+	CompactEvery time.Duration `yaml:"compact_every"`
 	// Logger receives the rare events the caller cannot see in a return
 	// value (a damaged rollup rebuilt, a recovered panic). Nil: discarded.
 	Logger *slog.Logger `yaml:"-"`
 
-	commit commitMode // how writes share transactions (tests, benchmarks)
+	commit   commitMode // how writes share transactions (tests, benchmarks)
+	keepHead bool       // tests: Close leaves the head as it is
 }
 
 // Store is an open database. Its methods are safe for concurrent use.
@@ -68,6 +79,10 @@ type Store struct {
 
 	reqs          chan *request
 	committerDone chan struct{}
+	compactStop   chan struct{}
+	compactDone   chan struct{}
+	kick          chan struct{} // wakes the compactor early; nil when it does not run
+	sinceCompact  atomic.Int64  // readings stored since the last pass began
 	commits       atomic.Uint64 // write transactions committed for grouped calls
 	lastBatchTx   atomic.Pointer[bolt.Tx]
 	beforeCommit  func() // test hook: runs before a group is collected; set before the first write
@@ -108,6 +123,10 @@ func Open(dir string, opt Options) (*Store, error) {
 	if err != nil {
 		return nil, err
 	}
+	// bbolt grows the file 16 MB at a time and never gives it back; the
+	// head's churn is reused in place, so smaller steps keep a small
+	// store small at the cost of a few more grow calls.
+	db.AllocSize = allocSize
 	s := &Store{
 		db:            db,
 		path:          path,
@@ -120,10 +139,22 @@ func Open(dir string, opt Options) (*Store, error) {
 		_ = db.Close()
 		return nil, err
 	}
+	if err := s.upgrade(); err != nil {
+		_ = db.Close()
+		return nil, err
+	}
 	if _, err := s.markRunning(); err != nil { // unclean.go; reads stay served on a full disk
 		log.Warn("store: could not mark the store open; an unclean stop of this run will not be recorded", "path", path, "err", err)
 	}
 	go s.committer()
+	every := opt.CompactEvery
+	if every == 0 {
+		every = DefaultCompactEvery
+	}
+	if every > 0 {
+		s.compactStop, s.compactDone, s.kick = make(chan struct{}), make(chan struct{}), make(chan struct{}, 1)
+		go s.compactor(every, s.compactStop, s.compactDone)
+	}
 	return s, nil
 }
 
@@ -144,6 +175,16 @@ func (s *Store) Close() error {
 	s.inflight.Wait()
 	close(s.reqs)
 	<-s.committerDone
+	if s.compactStop != nil {
+		close(s.compactStop)
+		<-s.compactDone
+	}
+	// A clean stop leaves the head empty: the store at rest is all chunks.
+	if !s.opt.keepHead {
+		if _, err := s.compact(context.Background(), 1); err != nil {
+			s.log.Error("store: compaction at close failed; readings stay in the head", "error", err.Error())
+		}
+	}
 	s.closeAudit() // unclean.go
 	return s.db.Close()
 }
@@ -326,7 +367,7 @@ func checkSchema(meta *bolt.Bucket) error {
 // daemon reads first after a restart, checked before it acknowledges
 // anything.
 func probeLatest(tx *bolt.Tx) error {
-	for _, kind := range [][]byte{bucketReadings, bucketPressure, bucketRollup1m, bucketRollup1h, bucketOpState} {
+	for _, kind := range [][]byte{bucketReadings, bucketPressure, bucketRollup1h, bucketOpState} {
 		root := tx.Bucket(kind)
 		if root == nil {
 			continue
@@ -345,8 +386,6 @@ func probeLatest(tx *bolt.Tx) error {
 				_, err = decodePressure(string(name), k, v)
 			case bytes.Equal(kind, bucketOpState):
 				_, err = decodeOpState(string(name), k, v)
-			case bytes.Equal(kind, bucketRollup1m):
-				_, err = decodeRollup(string(name), time.Minute, k, v)
 			default:
 				_, err = decodeRollup(string(name), time.Hour, k, v)
 			}

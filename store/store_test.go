@@ -263,7 +263,9 @@ func killChild(dir string) {
 func damagedFixture(t *testing.T) (dir, path string, dataSize int64) {
 	t.Helper()
 	dir = t.TempDir()
-	s := openTest(t, dir, Options{NoSync: true})
+	// The head keeps one value per reading, so most pages are in use
+	// and a damaged page is one the store reads.
+	s := openTest(t, dir, Options{NoSync: true, keepHead: true})
 	appendOK(t, s, series("pc-asm-1", t0, 3000))
 	path = s.Path()
 	if err := s.Close(); err != nil {

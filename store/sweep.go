@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/binary"
+	"errors"
 	"fmt"
 	"math"
 	"time"
@@ -16,10 +17,15 @@ import (
 // transaction; appends run between chunks.
 const sweepChunk = 20000
 
+// minSweepChunk is the smallest chunk Sweep falls back to on a full file.
+const minSweepChunk = 64
+
 // SweepResult reports what a Sweep deleted.
 type SweepResult struct {
 	Before                      time.Time
 	Readings, Pressure, Rollups int
+	// Environment counts the environment samples deleted.
+	Environment int
 	// Alarms counts the snapshots of cleared alarms removed.
 	Alarms int
 }
@@ -50,14 +56,15 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 	if before.Before(maxTime) {
 		limit = before.UnixNano()
 	}
-	for first := true; ; first = false {
+	size, first := sweepChunk, true
+	for {
 		if err := ctx.Err(); err != nil {
 			return res, err
 		}
-		var readings, pressure, rollups, alarms int
-		budget := sweepChunk
+		var readings, pressure, rollups, alarms, env int
+		budget := size
 		err := s.update(func(tx *bolt.Tx) error {
-			readings, pressure, rollups, alarms, budget = 0, 0, 0, 0, sweepChunk
+			readings, pressure, rollups, alarms, env, budget = 0, 0, 0, 0, 0, size
 			if first {
 				meta := tx.Bucket(bucketMeta)
 				if old, ok := keyNanos(meta.Get(metaSweptBefore)); !ok || old < limit {
@@ -70,7 +77,20 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 			if readings, err = sweepKind(tx.Bucket(bucketReadings), limit, &budget); err != nil {
 				return err
 			}
+			chunked, err := sweepChunks(tx.Bucket(bucketChunks), limit, &budget)
+			if err != nil {
+				return err
+			}
+			readings += chunked
 			if pressure, err = sweepKind(tx.Bucket(bucketPressure), limit, &budget); err != nil {
+				return err
+			}
+			pchunked, err := sweepPChunks(tx.Bucket(bucketPChunks), limit, &budget)
+			if err != nil {
+				return err
+			}
+			pressure += pchunked
+			if env, err = sweepKind(tx.Bucket(bucketEnvironment), limit, &budget); err != nil {
 				return err
 			}
 			for _, st := range rollupSteps {
@@ -87,15 +107,23 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 			if alarms, err = s.sweepAlarms(tx, limit, &budget); err != nil {
 				return err
 			}
-			return auditSweep(tx, limit, readings, pressure, rollups, alarms)
+			return auditSweep(tx, limit, readings, pressure, rollups, alarms, env)
 		})
+		if errors.Is(err, ErrDiskFull) && size > minSweepChunk {
+			// A full file has no room for the pages a large chunk
+			// rewrites; smaller chunks free space step by step.
+			size /= 4
+			continue
+		}
 		if err != nil {
 			return res, err
 		}
+		first = false
 		res.Readings += readings
 		res.Pressure += pressure
 		res.Rollups += rollups
 		res.Alarms += alarms
+		res.Environment += env
 		if budget > 0 {
 			return res, nil
 		}
@@ -183,18 +211,27 @@ func (s *Store) sweepAlarms(tx *bolt.Tx, limit int64, budget *int) (int, error) 
 
 // auditSweep chains the entry of one Sweep chunk. Detail:
 //
-//	8-byte horizon (Unix ns) | uvarint readings, pressure, rollups, alarms
-func auditSweep(tx *bolt.Tx, limit int64, readings, pressure, rollups, alarms int) error {
+//	8-byte horizon (Unix ns) | uvarint readings, pressure, rollups, alarms, environment samples
+func auditSweep(tx *bolt.Tx, limit int64, readings, pressure, rollups, alarms, env int) error {
 	d := binary.BigEndian.AppendUint64(nil, uint64(limit))
-	for _, n := range []int{readings, pressure, rollups, alarms} {
+	for _, n := range []int{readings, pressure, rollups, alarms, env} {
 		d = binary.AppendUvarint(d, uint64(n))
 	}
 	_, _, err := appendAudit(tx, &AuditEntry{
 		Time: time.Now().UTC(), Actor: AuditActorSystem, Action: AuditSweep,
 		Subject: "before " + nsTime(limit).Format(time.RFC3339Nano),
-		Reason: fmt.Sprintf("retention: %d readings, %d pressure samples, %d rollups, %d cleared alarms deleted",
-			readings, pressure, rollups, alarms),
+		Reason: fmt.Sprintf("retention: %d readings, %d pressure samples, %d rollups, %d cleared alarms deleted%s",
+			readings, pressure, rollups, alarms, envNote(env)),
 		Detail: d,
 	})
 	return err
+}
+
+// envNote adds environment samples to a sweep's reason when there were
+// any, so that the wording of older entries stays as it was.
+func envNote(n int) string {
+	if n == 0 {
+		return ""
+	}
+	return fmt.Sprintf(", %d environment samples deleted", n)
 }

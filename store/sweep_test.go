@@ -34,9 +34,9 @@ func TestSweep(t *testing.T) {
 	wantReadings := 2 * 1591
 	// Pressure every 30 s up to and including 26:30:00: 3181 samples.
 	wantPressure := 3181
-	// Rollups wholly older: 1590 minute buckets (the 1590th straddles)
-	// and 26 hour buckets, per counter.
-	wantRollups := 2 * (1590 + 26)
+	// Rollups wholly older: 26 hour buckets per counter (the 27th
+	// straddles; no minute rollups are kept).
+	wantRollups := 2 * 26
 	if res.Readings != wantReadings || res.Pressure != wantPressure || res.Rollups != wantRollups || !res.Before.Equal(before) {
 		t.Fatalf("swept %+v, want readings %d pressure %d rollups %d", res, wantReadings, wantPressure, wantRollups)
 	}

@@ -2,11 +2,13 @@ package store
 
 import (
 	"bytes"
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"os"
 	"path/filepath"
 	"runtime/debug"
+	"slices"
 	"strings"
 	"time"
 
@@ -119,9 +121,18 @@ func (v *verifier) run(tx *bolt.Tx) error {
 	known := map[string]bool{}
 	for _, name := range knownBuckets {
 		known[string(name)] = true
-		if tx.Bucket(name) == nil && !bytes.Equal(name, bucketAuditSig) && !bytes.Equal(name, bucketEnvironment) { // older files have no signatures
+		if tx.Bucket(name) == nil && !v.olderLayout(tx, name) {
 			v.add("bucket %q is missing", name)
 		}
+	}
+	if v.schema(tx) == 1 {
+		// A file of the previous version (an old backup): its minute
+		// rollups are its own; Open upgrades it, Verify reads it as it is.
+		known[string(bucketRollup1m)] = true
+		v.walk(tx, bucketRollup1m, func(name string, k, val []byte) error {
+			_, err := decodeRollup(name, time.Minute, k, val)
+			return err
+		})
 	}
 	_ = tx.ForEach(func(name []byte, _ *bolt.Bucket) error {
 		if !known[string(name)] {
@@ -145,12 +156,14 @@ func (v *verifier) run(tx *bolt.Tx) error {
 		_, err := decodeReading(name, k, val)
 		return err
 	})
-	v.walk(tx, bucketPressure, func(name string, k, val []byte) error {
-		_, err := decodePressure(name, k, val)
+	v.chunks(tx)
+	v.pchunks(tx)
+	v.walk(tx, bucketEnvironment, func(name string, k, val []byte) error {
+		_, err := decodeEnv(name, k, val)
 		return err
 	})
-	v.walk(tx, bucketEnvironment, func(name string, k, val []byte) error {
-		_, err := decodeEnvSample(name, k, val)
+	v.walk(tx, bucketPressure, func(name string, k, val []byte) error {
+		_, err := decodePressure(name, k, val)
 		return err
 	})
 	v.walk(tx, bucketOpState, func(name string, k, val []byte) error {
@@ -168,6 +181,29 @@ func (v *verifier) run(tx *bolt.Tx) error {
 	v.alarms(tx)
 	v.audit(tx)
 	return nil
+}
+
+// schema is the file's schema version, 0 when it cannot be read.
+func (v *verifier) schema(tx *bolt.Tx) uint64 {
+	meta := tx.Bucket(bucketMeta)
+	if meta == nil {
+		return 0
+	}
+	ver, n := binary.Uvarint(meta.Get(metaSchema))
+	if n <= 0 {
+		return 0
+	}
+	return ver
+}
+
+// olderLayout reports whether a missing bucket is one a schema-1 file
+// never had.
+func (v *verifier) olderLayout(tx *bolt.Tx, name []byte) bool {
+	if bytes.Equal(name, bucketAuditSig) { // files written before signing was known have no signatures
+		return true
+	}
+	return v.schema(tx) == 1 && (bytes.Equal(name, bucketChunks) || bytes.Equal(name, bucketEnvironment) || bytes.Equal(name, bucketPChunks) ||
+		bytes.Equal(name, bucketRuns) || bytes.Equal(name, bucketAccounts))
 }
 
 // walk checks the layout of one kind: nested buckets only, each holding
@@ -218,8 +254,8 @@ func (v *verifier) walkSeries(kind, name []byte, b *bolt.Bucket, decode func(nam
 // rollupCounts compares every rollup bucket's sample count with the
 // readings that fall in it, in both directions.
 func (v *verifier) rollupCounts(tx *bolt.Tx, kind []byte, step time.Duration) {
-	readings, rollups := tx.Bucket(bucketReadings), tx.Bucket(kind)
-	if readings == nil || rollups == nil {
+	rollups := tx.Bucket(kind)
+	if tx.Bucket(bucketReadings) == nil || rollups == nil {
 		return
 	}
 	samples := func(b *bolt.Bucket, start int64) (uint64, bool) {
@@ -239,15 +275,21 @@ func (v *verifier) rollupCounts(tx *bolt.Tx, kind []byte, step time.Duration) {
 		n := d.uvarint("Samples")
 		return n, d.err == nil
 	}
-	_ = readings.ForEachBucket(func(name []byte) error {
-		rb := rollups.Bucket(name)
-		c := readings.Bucket(name).Cursor()
-		var start int64 = -1
-		var count uint64
-		report := func() {
-			if start < 0 || start < v.sweptBefore {
-				return
+	names := readingCounters(tx)
+	for _, name := range names {
+		rb := rollups.Bucket([]byte(name))
+		counts := map[int64]uint64{}
+		forEachReadingKey(tx, name, func(ns int64) { counts[ns-ns%int64(step)]++ })
+		starts := make([]int64, 0, len(counts))
+		for start := range counts {
+			starts = append(starts, start)
+		}
+		slices.Sort(starts)
+		for _, start := range starts {
+			if start < v.sweptBefore {
+				continue
 			}
+			count := counts[start]
 			got, ok := samples(rb, start)
 			switch {
 			case !ok && (rb == nil || rb.Get(nanosKey(start)) == nil):
@@ -256,33 +298,23 @@ func (v *verifier) rollupCounts(tx *bolt.Tx, kind []byte, step time.Duration) {
 				v.add("%s rollup of counter %q at %s counts %d samples, the bucket holds %d readings", step, name, keyString(nanosKey(start)), got, count)
 			}
 		}
-		for k, _ := c.First(); k != nil; k, _ = c.Next() {
-			ns, ok := keyNanos(k)
-			if !ok {
-				continue // reported by walk
-			}
-			if b := ns - ns%int64(step); b != start {
-				report()
-				start, count = b, 0
-			}
-			count++
+		if rb == nil {
+			continue
 		}
-		report()
-		return nil
-	})
+		c := rb.Cursor()
+		for k, _ := c.First(); k != nil; k, _ = c.Next() {
+			if start, ok := keyNanos(k); ok && start >= v.sweptBefore && counts[start] == 0 {
+				v.add("%s rollup of counter %q at %s has no readings in its bucket", step, name, keyString(k))
+			}
+		}
+	}
 	_ = rollups.ForEachBucket(func(name []byte) error {
-		rb := readings.Bucket(name)
+		if slices.Contains(names, string(name)) {
+			return nil
+		}
 		c := rollups.Bucket(name).Cursor()
 		for k, _ := c.First(); k != nil; k, _ = c.Next() {
-			start, ok := keyNanos(k)
-			if !ok || start < v.sweptBefore {
-				continue
-			}
-			var rk []byte
-			if rb != nil {
-				rk, _ = rb.Cursor().Seek(k)
-			}
-			if rk == nil || bytes.Compare(rk, nanosKey(start+int64(step))) >= 0 {
+			if start, ok := keyNanos(k); ok && start >= v.sweptBefore {
 				v.add("%s rollup of counter %q at %s has no readings in its bucket", step, name, keyString(k))
 			}
 		}

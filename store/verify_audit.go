@@ -26,6 +26,7 @@ type seriesCover struct {
 type auditCheck struct {
 	*verifier
 	tx      *bolt.Tx
+	chunked *chunkCache // readings moved into chunks
 	series  map[seriesID]*seriesCover
 	horizon int64 // the latest sweep horizon the chain records
 	blind   bool  // an entry could not be read: coverage counts are not trusted
@@ -43,7 +44,7 @@ func (v *verifier) audit(tx *bolt.Tx) {
 	if b == nil {
 		return
 	}
-	a := &auditCheck{verifier: v, tx: tx, series: map[seriesID]*seriesCover{}}
+	a := &auditCheck{verifier: v, tx: tx, chunked: newChunkCache(tx), series: map[seriesID]*seriesCover{}}
 	v.guarded(string(bucketAudit), func() { a.chain(b) })
 	if !a.blind {
 		v.guarded("audit coverage", a.coverage)
@@ -175,13 +176,18 @@ func (a *auditCheck) records(e *AuditEntry, cv *covered) {
 	for _, r := range cv.recs {
 		name := cv.names[r.name]
 		key := seqKey(uint64(r.key))
-		b := root
-		if cv.kind != coverJournal {
-			b = root.Bucket([]byte(name))
-		}
 		var val []byte
-		if b != nil {
-			val = b.Get(key)
+		switch cv.kind {
+		case coverReadings: // head or chunk, without a bucket lookup per record
+			val = a.chunked.value(name, key)
+		case coverPressure:
+			val = a.chunked.pressure(name, key)
+		case coverJournal:
+			val = root.Get(key)
+		default:
+			if b := root.Bucket([]byte(name)); b != nil {
+				val = b.Get(key)
+			}
 		}
 		if val == nil {
 			compare = false
@@ -227,12 +233,26 @@ func (a *auditCheck) coverage() {
 	check := func(kind byte, name string, b *bolt.Bucket) {
 		sc := a.cover(kind, name)
 		var above, before int
-		c := b.Cursor()
-		for k, _ := c.First(); k != nil; k, _ = c.Next() {
-			if n, ok := keyNanos(k); ok && n > sc.base.last {
+		count := func(n int64) {
+			if n > sc.base.last {
 				above++
 			} else {
 				before++
+			}
+		}
+		switch kind {
+		case coverReadings:
+			forEachReadingKey(a.tx, name, count)
+		case coverPressure:
+			forEachKey(a.tx, bucketPressure, bucketPChunks, name, count)
+		default:
+			c := b.Cursor()
+			for k, _ := c.First(); k != nil; k, _ = c.Next() {
+				n, ok := keyNanos(k)
+				if !ok {
+					n = -1 << 63
+				}
+				count(n)
 			}
 		}
 		switch {
@@ -244,7 +264,13 @@ func (a *auditCheck) coverage() {
 			a.add("%d records in %s older than the audit chain, more than the %d it started with", before-sc.before, seriesName(kind, name), sc.base.count)
 		}
 	}
-	for _, kind := range []byte{coverReadings, coverPressure, coverOpState} {
+	for _, name := range readingCounters(a.tx) {
+		check(coverReadings, name, nil)
+	}
+	for _, name := range pressureSensors(a.tx) {
+		check(coverPressure, name, nil)
+	}
+	for _, kind := range []byte{coverOpState} {
 		root := a.tx.Bucket(coverBucket(kind))
 		if root == nil {
 			continue

@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"io"
-	"math"
 	"net/http"
 	"strconv"
 	"time"
@@ -27,6 +26,7 @@ type EnvironmentIngest interface {
 type EnvironmentStore interface {
 	ScanEnvironment(sensor string, from, to time.Time, fn func(store.EnvSample) error) error
 	LatestEnvironment(sensor string) (store.EnvSample, bool, error)
+	ScanEnvironmentRollups(sensor string, step time.Duration, from, to time.Time, fn func(store.EnvRollup) error) error
 }
 
 // NoEnvironment is the environment side of a daemon without environment
@@ -40,6 +40,11 @@ func (NoEnvironment) PostEnvironment(context.Context, string, int64, io.Reader) 
 
 // ScanEnvironment finds nothing.
 func (NoEnvironment) ScanEnvironment(string, time.Time, time.Time, func(store.EnvSample) error) error {
+	return nil
+}
+
+// ScanEnvironmentRollups finds nothing.
+func (NoEnvironment) ScanEnvironmentRollups(string, time.Duration, time.Time, time.Time, func(store.EnvRollup) error) error {
 	return nil
 }
 
@@ -155,11 +160,11 @@ func (s *Server) envObject(e *collector.EnvironmentSensorConfig, now time.Time) 
 func envValue(e store.EnvSample, ch string) (float64, bool) {
 	switch ch {
 	case collector.ChanTemperature:
-		return e.TemperatureC, e.HasTemperature
+		return e.TemperatureC, e.Has&store.EnvTemperature != 0
 	case collector.ChanHumidity:
-		return e.HumidityPct, e.HasHumidity
+		return e.HumidityPct, e.Has&store.EnvHumidity != 0
 	case collector.ChanVelocity:
-		return e.VelocityMS, e.HasVelocity
+		return e.VelocityMS, e.Has&store.EnvVelocity != 0
 	}
 	return 0, false
 }
@@ -186,7 +191,7 @@ func (s *Server) sensorEnvironment(w http.ResponseWriter, r *http.Request) {
 	if v := r.URL.Query().Get("step"); v != "" {
 		d, err := time.ParseDuration(v)
 		if err != nil || d < time.Minute {
-			httpx.WriteFieldError(w, "step", fmt.Sprintf("%q is not a duration of at least 1m, such as 1h", v))
+			httpx.WriteFieldError(w, "step", fmt.Sprintf("%q is not a step such as 1h or 24h", v))
 			return
 		}
 		if to.Sub(from)/d > maxEnvRows {
@@ -227,39 +232,31 @@ func appendEnvRow(b []byte, id string, x store.EnvSample) []byte {
 	return append(b, '}')
 }
 
-// envAgg is one step of a rolled-up answer.
-type envAgg struct {
-	n             int
-	sum, min, max map[string]float64
-	start         time.Time
-	channels      []string
-	sensorJSON    string
-}
-
-// envRollup streams one row per step with at least one sample: rollups
-// are computed from the raw samples while they are read.
+// envRollup streams one row per step with at least one sample: samples,
+// and mean, min and max of each channel, buckets on the clock (whole
+// hours, UTC days) clipped to [from, to).
 func (s *Server) envRollup(rs *httpx.RowStream, id string, chans []string, from, to time.Time, step time.Duration) error {
-	var cur *envAgg
-	flush := func() error {
-		if cur == nil || cur.n == 0 {
+	idJSON := strconv.Quote(id)
+	return s.envStore.ScanEnvironmentRollups(id, step, from, to, func(r store.EnvRollup) error {
+		if r.Samples == 0 {
 			return nil
 		}
-		a := cur
 		return rs.Row(func(b []byte) []byte {
 			b = append(b, `{"time":`...)
-			b = httpx.AppendTime(b, a.start)
+			b = httpx.AppendTime(b, r.Start)
 			b = append(b, `,"sensor":`...)
-			b = append(b, a.sensorJSON...)
+			b = append(b, idJSON...)
 			b = append(b, `,"samples":`...)
-			b = strconv.AppendInt(b, int64(a.n), 10)
-			for _, ch := range a.channels {
-				if _, ok := a.sum[ch]; !ok {
+			b = strconv.AppendInt(b, int64(r.Samples), 10)
+			for _, ch := range chans {
+				st := envStat(r, ch)
+				if st.N == 0 {
 					continue
 				}
 				for _, part := range []struct {
 					name string
 					v    float64
-				}{{"mean", a.sum[ch] / float64(a.n)}, {"min", a.min[ch]}, {"max", a.max[ch]}} {
+				}{{"mean", st.Mean}, {"min", st.Min}, {"max", st.Max}} {
 					b = append(b, `,"`...)
 					b = append(b, ch...)
 					b = append(b, '_')
@@ -270,34 +267,15 @@ func (s *Server) envRollup(rs *httpx.RowStream, id string, chans []string, from,
 			}
 			return append(b, '}')
 		})
-	}
-	idJSON := strconv.Quote(id)
-	err := s.envStore.ScanEnvironment(id, from, to, func(x store.EnvSample) error {
-		start := x.Time.Truncate(step) // steps on the clock (whole hours), whatever from is
-		if cur == nil || !cur.start.Equal(start) {
-			if err := flush(); err != nil {
-				return err
-			}
-			cur = &envAgg{start: start, channels: chans, sensorJSON: idJSON,
-				sum: map[string]float64{}, min: map[string]float64{}, max: map[string]float64{}}
-		}
-		cur.n++
-		for _, ch := range chans {
-			v, ok := envValue(x, ch)
-			if !ok {
-				continue
-			}
-			if _, seen := cur.sum[ch]; !seen {
-				cur.min[ch], cur.max[ch] = math.Inf(1), math.Inf(-1)
-			}
-			cur.sum[ch] += v
-			cur.min[ch] = math.Min(cur.min[ch], v)
-			cur.max[ch] = math.Max(cur.max[ch], v)
-		}
-		return nil
 	})
-	if err != nil {
-		return err
+}
+
+func envStat(r store.EnvRollup, ch string) store.EnvStat {
+	switch ch {
+	case collector.ChanTemperature:
+		return r.Temperature
+	case collector.ChanHumidity:
+		return r.Humidity
 	}
-	return flush()
+	return r.Velocity
 }

@@ -203,15 +203,23 @@ type envSink struct{ st *store.Store }
 
 // CommitEnvironment implements collector.EnvironmentSink.
 func (s envSink) CommitEnvironment(ctx context.Context, es []collector.Environment) (int, int, error) {
-	return s.st.CommitEnvironment(ctx, envSamples(es))
+	return s.st.AppendEnvironment(ctx, envSamples(es))
 }
 
 // envSamples turns validated environment samples into stored ones.
 func envSamples(es []collector.Environment) []store.EnvSample {
 	out := make([]store.EnvSample, len(es))
 	for i, e := range es {
-		out[i] = store.EnvSample{Sensor: e.Sensor, Time: e.Time, TemperatureC: e.TemperatureC, HumidityPct: e.HumidityPct,
-			VelocityMS: e.VelocityMS, HasTemperature: e.HasTemperature, HasHumidity: e.HasHumidity, HasVelocity: e.HasVelocity}
+		out[i] = store.EnvSample{Sensor: e.Sensor, Time: e.Time, TemperatureC: e.TemperatureC, HumidityPct: e.HumidityPct, VelocityMS: e.VelocityMS}
+		if e.HasTemperature {
+			out[i].Has |= store.EnvTemperature
+		}
+		if e.HasHumidity {
+			out[i].Has |= store.EnvHumidity
+		}
+		if e.HasVelocity {
+			out[i].Has |= store.EnvVelocity
+		}
 	}
 	return out
 }
@@ -232,13 +240,13 @@ func envObservation(e *collector.Environment) alerts.EnvironmentObservation {
 // store.
 func storedEnvObservation(e store.EnvSample) alerts.EnvironmentObservation {
 	o := alerts.EnvironmentObservation{Sensor: e.Sensor, Time: e.Time, Values: map[string]float64{}}
-	if e.HasTemperature {
+	if e.Has&store.EnvTemperature != 0 {
 		o.Values[alerts.ChanTemperature] = e.TemperatureC
 	}
-	if e.HasHumidity {
+	if e.Has&store.EnvHumidity != 0 {
 		o.Values[alerts.ChanHumidity] = e.HumidityPct
 	}
-	if e.HasVelocity {
+	if e.Has&store.EnvVelocity != 0 {
 		o.Values[alerts.ChanVelocity] = e.VelocityMS
 	}
 	return o

@@ -1,0 +1,396 @@
+package store
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"fmt"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+)
+
+// Compaction moves readings from the head (one value per reading, cheap
+// to append and to check for duplicates) into chunks (a few bytes per
+// reading). Each pass runs in write transactions of its own, each moving
+// whole counters: the chunks written and the head values they replace
+// change in the same transaction, so a crash at any point leaves every
+// reading exactly once, in the head or in a chunk. A reader that met both
+// (it cannot, but a damaged file might show it) counts the chunk's copy.
+const (
+	// DefaultCompactEvery is how often the daemon's background pass runs
+	// when Options.CompactEvery is zero.
+	DefaultCompactEvery = time.Minute
+	// compactMinHead is how many head readings a counter gathers before a
+	// background pass moves them: fewer would rewrite its last chunk for
+	// little gain. Close moves every reading regardless.
+	compactMinHead = 256
+	// compactTxReadings bounds the readings one compaction transaction
+	// moves, so that appends wait for it a few tens of milliseconds at most.
+	compactTxReadings = 32 << 10
+	// compactKick is how many readings appended since the last pass wake
+	// the compactor early, whatever the timer: the head's pages are freed
+	// and reused rather than growing the file, which bbolt never shrinks.
+	compactKick = 16 << 10
+)
+
+// CompactResult reports what a compaction pass moved.
+type CompactResult struct {
+	Counters int // counters and DP sensors whose head records moved
+	Readings int // readings and pressure samples moved into chunks
+	Chunks   int // chunks written (rewritten ones included)
+}
+
+// Compact moves every reading in the head into chunks. The daemon need
+// not call it: a background pass does this every Options.CompactEvery
+// for counters with enough head readings, and Close moves the rest. Tests,
+// benchmarks and `cleanmon bench` call it to measure the store at rest.
+func (s *Store) Compact(ctx context.Context) (CompactResult, error) {
+	if err := s.enter(); err != nil {
+		return CompactResult{}, err
+	}
+	defer s.exit()
+	return s.compact(ctx, 1)
+}
+
+// compactHook, when set by a test, runs inside each compaction transaction
+// after the chunks are written and before the head values go; an error
+// from it rolls the transaction back.
+var compactHook func(counter string) error
+
+func (s *Store) compact(ctx context.Context, minHead int) (CompactResult, error) {
+	var res CompactResult
+	type item struct {
+		pressure bool
+		name     string
+	}
+	var pending []item
+	err := s.view(func(tx *bolt.Tx, _ *guard) error {
+		for _, kind := range [][]byte{bucketReadings, bucketPressure} {
+			root := tx.Bucket(kind)
+			err := root.ForEachBucket(func(name []byte) error {
+				c := root.Bucket(name).Cursor()
+				n := 0
+				for k, _ := c.First(); k != nil && n < minHead; k, _ = c.Next() {
+					n++
+				}
+				if n >= minHead && n > 0 {
+					pending = append(pending, item{bytes.Equal(kind, bucketPressure), string(name)})
+				}
+				return nil
+			})
+			if err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return res, err
+	}
+	for len(pending) > 0 {
+		if err := ctx.Err(); err != nil {
+			return res, err
+		}
+		var part CompactResult
+		done := 0
+		err := s.update(func(tx *bolt.Tx) error {
+			part, done = CompactResult{}, 0
+			for _, it := range pending {
+				if part.Readings >= compactTxReadings {
+					break
+				}
+				counter := it.name
+				move := compactCounter
+				if it.pressure {
+					move = compactSensor
+				}
+				moved, chunks, err := move(tx, counter)
+				if errors.Is(err, ErrCorrupt) || errors.Is(err, errChunkOverlap) {
+					// Found before anything of this counter changed: its
+					// readings stay in the head (Verify names the damage),
+					// and the other counters go on.
+					s.log.Error("store: compaction passes over a damaged counter", "counter", counter, "error", err.Error())
+					done++
+					continue
+				}
+				if err != nil {
+					return err
+				}
+				done++
+				if moved > 0 {
+					part.Counters++
+					part.Readings += moved
+					part.Chunks += chunks
+				}
+			}
+			return nil
+		})
+		if err != nil {
+			return res, err
+		}
+		pending = pending[done:]
+		res.Counters += part.Counters
+		res.Readings += part.Readings
+		res.Chunks += part.Chunks
+	}
+	return res, nil
+}
+
+// compactCounter merges the head readings of counter with its last chunk
+// (when not full) and with any chunk they overlap, writes the result as
+// full chunks, and deletes the head values and the chunks replaced.
+func compactCounter(tx *bolt.Tx, counter string) (moved, chunks int, err error) {
+	head := tx.Bucket(bucketReadings).Bucket([]byte(counter))
+	if head == nil {
+		return 0, 0, nil
+	}
+	var fresh []chunkReading
+	var headKeys [][]byte
+	c := head.Cursor()
+	for k, v := c.First(); k != nil; k, v = c.Next() {
+		ns, ok := keyNanos(k)
+		if !ok {
+			return 0, 0, fmt.Errorf("%w: readings of counter %q: key %x is not an 8-byte time", ErrCorrupt, counter, k)
+		}
+		shape, counts, err := splitV1(k, v)
+		if err != nil {
+			if _, derr := decodeReading(counter, k, v); derr != nil {
+				return 0, 0, derr
+			}
+			return 0, 0, fmt.Errorf("%w: reading of counter %q at %s: %v", ErrCorrupt, counter, keyString(k), err)
+		}
+		// Copies: the values live in pages this transaction rewrites.
+		fresh = append(fresh, chunkReading{ns: ns, shape: append([]byte(nil), shape...), counts: counts, tag: tagOf(v), hasTag: true})
+		headKeys = append(headKeys, append([]byte(nil), k...))
+	}
+	if len(fresh) == 0 {
+		return 0, 0, nil
+	}
+	cb, err := tx.Bucket(bucketChunks).CreateBucketIfNotExists([]byte(counter))
+	if err != nil {
+		return 0, 0, fmt.Errorf("store: chunks of %q: %w", counter, err)
+	}
+	cb.FillPercent = fillPercent
+	old, oldKeys, err := chunksFrom(cb, counter, fresh[0].ns)
+	if err != nil {
+		return 0, 0, err
+	}
+	merged, err := mergeChunkReadings(counter, old, fresh)
+	if err != nil {
+		return 0, 0, err
+	}
+	for _, k := range oldKeys {
+		if err := cb.Delete(k); err != nil {
+			return 0, 0, err
+		}
+	}
+	for i := 0; i < len(merged); i += maxChunkReadings {
+		part := merged[i:min(i+maxChunkReadings, len(merged))]
+		key := nanosKey(part[len(part)-1].ns)
+		if err := cb.Put(key, encodeChunk(key, part)); err != nil {
+			return 0, 0, fmt.Errorf("store: put chunk of %q: %w", counter, err)
+		}
+		chunks++
+	}
+	if compactHook != nil {
+		if err := compactHook(counter); err != nil {
+			return 0, 0, err
+		}
+	}
+	for _, k := range headKeys {
+		if err := head.Delete(k); err != nil {
+			return 0, 0, err
+		}
+	}
+	if k, _ := head.Cursor().First(); k == nil {
+		// An empty nested bucket still takes a page; the next append
+		// creates it again.
+		if err := tx.Bucket(bucketReadings).DeleteBucket([]byte(counter)); err != nil {
+			return 0, 0, err
+		}
+	}
+	return len(fresh), chunks, nil
+}
+
+// chunksFrom decodes the chunks a compaction from time ns rewrites: every
+// chunk ending at or after ns, and the last chunk when it is not full.
+func chunksFrom(cb *bolt.Bucket, counter string, ns int64) ([]chunkReading, [][]byte, error) {
+	c := cb.Cursor()
+	k, v := c.Seek(nanosKey(ns))
+	if k == nil {
+		k, v = c.Last()
+		if k == nil {
+			return nil, nil, nil
+		}
+		if n, _, ok := chunkHeader(v); ok && n >= maxChunkReadings {
+			return nil, nil, nil
+		}
+	}
+	var out []chunkReading
+	var keys [][]byte
+	for ; k != nil; k, v = c.Next() {
+		rs, tags, err := decodeChunk(counter, k, v)
+		if err != nil {
+			return nil, nil, err
+		}
+		// The checksum held, so the stored tags are the readings' own.
+		for i := range rs {
+			rs[i].shape = append([]byte(nil), rs[i].shape...)
+			rs[i].tag, rs[i].hasTag = tags[i], true
+		}
+		out = append(out, rs...)
+		keys = append(keys, append([]byte(nil), k...))
+	}
+	return out, keys, nil
+}
+
+// errChunkOverlap: a head reading has the time of a chunked one. Appends
+// check both, so only a damaged or hand-edited file gets here; the
+// counter is left as it is for Verify to report.
+var errChunkOverlap = errors.New("store: a head reading repeats a chunked one")
+
+func mergeChunkReadings(counter string, a, b []chunkReading) ([]chunkReading, error) {
+	out := make([]chunkReading, 0, len(a)+len(b))
+	i, j := 0, 0
+	for i < len(a) || j < len(b) {
+		switch {
+		case j == len(b) || (i < len(a) && a[i].ns < b[j].ns):
+			out = append(out, a[i])
+			i++
+		case i == len(a) || b[j].ns < a[i].ns:
+			out = append(out, b[j])
+			j++
+		default:
+			return nil, fmt.Errorf("%w: counter %q at %s", errChunkOverlap, counter, keyString(nanosKey(a[i].ns)))
+		}
+	}
+	return out, nil
+}
+
+// compactor runs background passes until stop is closed.
+func (s *Store) compactor(every time.Duration, stop <-chan struct{}, done chan<- struct{}) {
+	defer close(done)
+	t := time.NewTicker(every)
+	defer t.Stop()
+	for {
+		minHead := compactMinHead
+		select {
+		case <-stop:
+			return
+		case <-t.C:
+		case <-s.kick:
+			minHead = 1
+		}
+		s.sinceCompact.Store(0)
+		if _, err := s.compact(context.Background(), minHead); err != nil {
+			s.log.Error("store: background compaction failed; readings stay in the head", "error", err.Error())
+		}
+	}
+}
+
+// noteAppended counts stored readings towards the next early pass.
+func (s *Store) noteAppended(n int) {
+	if s.kick == nil || n == 0 {
+		return
+	}
+	if s.sinceCompact.Add(int64(n)) >= compactKick {
+		select {
+		case s.kick <- struct{}{}:
+		default:
+		}
+	}
+}
+
+// sweepChunks deletes the chunked readings with time before limit: whole
+// chunks that end before it, and the older part of the one that straddles
+// it (rewritten). Each chunk touched takes one from *budget.
+func sweepChunks(root *bolt.Bucket, limit int64, budget *int) (int, error) {
+	return sweepChunked(root, limit, budget, func(name string, k, v []byte, limit int64) ([]byte, int, error) {
+		rs, _, err := decodeChunk(name, k, v)
+		if err != nil {
+			return nil, 0, err
+		}
+		i := 0
+		for i < len(rs) && rs[i].ns < limit {
+			i++
+		}
+		for j := range rs {
+			rs[j].shape = append([]byte(nil), rs[j].shape...)
+		}
+		return encodeChunk(k, rs[i:]), i, nil
+	})
+}
+
+// sweepPChunks is sweepChunks for pressure chunks.
+func sweepPChunks(root *bolt.Bucket, limit int64, budget *int) (int, error) {
+	return sweepChunked(root, limit, budget, func(name string, k, v []byte, limit int64) ([]byte, int, error) {
+		ps, _, err := decodePChunk(name, k, v)
+		if err != nil {
+			return nil, 0, err
+		}
+		i := 0
+		for i < len(ps) && ps[i].ns < limit {
+			i++
+		}
+		return encodePChunk(k, ps[i:]), i, nil
+	})
+}
+
+// sweepChunked deletes whole chunks before limit and has cut rewrite the
+// one that straddles it, returning its new value and how many it dropped.
+func sweepChunked(root *bolt.Bucket, limit int64, budget *int, cut func(name string, k, v []byte, limit int64) ([]byte, int, error)) (int, error) {
+	var names [][]byte
+	if err := root.ForEachBucket(func(name []byte) error {
+		names = append(names, append([]byte(nil), name...))
+		return nil
+	}); err != nil {
+		return 0, err
+	}
+	deleted := 0
+	for _, name := range names {
+		b := root.Bucket(name)
+		c := b.Cursor()
+		var gone [][]byte
+		var straddle []byte
+		for k, v := c.First(); k != nil && *budget > 0; k, v = c.Next() {
+			_, first, ok := chunkHeader(v)
+			if !ok || first >= limit {
+				break
+			}
+			*budget--
+			if last, _ := keyNanos(k); last < limit {
+				n, _, _ := chunkHeader(v)
+				deleted += n
+				gone = append(gone, append([]byte(nil), k...))
+				continue
+			}
+			straddle = append([]byte(nil), k...)
+			break
+		}
+		for _, k := range gone {
+			if err := b.Delete(k); err != nil {
+				return deleted, err
+			}
+		}
+		if straddle != nil {
+			nv, n, err := cut(string(name), straddle, b.Get(straddle), limit)
+			if err != nil {
+				return deleted, err
+			}
+			if err := b.Put(straddle, nv); err != nil {
+				return deleted, err
+			}
+			deleted += n
+		}
+		if k, _ := b.Cursor().First(); k == nil {
+			if err := root.DeleteBucket(name); err != nil {
+				return deleted, err
+			}
+		}
+		if *budget <= 0 {
+			break
+		}
+	}
+	return deleted, nil
+}

@@ -1,0 +1,405 @@
+package store
+
+import (
+	"encoding/binary"
+	"fmt"
+	"hash/crc32"
+	"math"
+
+	bolt "go.etcd.io/bbolt"
+)
+
+// Pressure chunks hold the samples of one DP sensor behind the head,
+// under pchunks/<sensor>/<time of the last sample>, like reading chunks:
+//
+//	codecChunk | uvarint n | times as in a reading chunk |
+//	  values: per sample, varint (v − previous v) where v is Pa in whole
+//	  millipascals when every sample of the chunk is one (flag 1), or the
+//	  float64 bits XOR the previous sample's otherwise (flag 0) |
+//	  tags: n bytes | CRC-32C of key ‖ the above
+//
+// Sensors report a few decimals, so the millipascal form is the usual
+// one: a steady room costs a byte or two per sample. Every sample turns
+// back into the bytes its head value had, which the audit chain covers.
+var bucketPChunks = []byte("pchunks") // sensor → time of last sample → chunk
+
+type pchunkSample struct {
+	ns     int64
+	pa     float64
+	tag    byte
+	hasTag bool
+}
+
+func (p *pchunkSample) v1Value(key []byte) []byte {
+	return encodePressure(key, &Pressure{Pa: p.pa})
+}
+
+func milli(pa float64) (int64, bool) {
+	if pa == 0 && math.Signbit(pa) {
+		return 0, false // −0 must come back as −0
+	}
+	m := math.Round(pa * 1000)
+	if math.Abs(m) > 1<<53 || m/1000 != pa || math.Signbit(pa) != math.Signbit(m/1000) {
+		return 0, false
+	}
+	return int64(m), true
+}
+
+func encodePChunk(key []byte, ps []pchunkSample) []byte {
+	b := make([]byte, 0, 32+len(ps)*4)
+	b = append(b, codecChunk)
+	b = binary.AppendUvarint(b, uint64(len(ps)))
+	b = binary.AppendVarint(b, ps[0].ns)
+	var dods []int64
+	var prev, delta int64 = ps[0].ns, 0
+	for _, p := range ps[1:] {
+		d := p.ns - prev
+		dods = append(dods, d-delta)
+		prev, delta = p.ns, d
+	}
+	b = appendRuns(b, len(dods), func(i, j int) bool { return dods[i] == dods[j] }, func(b []byte, i, run int) []byte {
+		b = binary.AppendVarint(b, dods[i])
+		return binary.AppendUvarint(b, uint64(run))
+	})
+	asMilli := true
+	for _, p := range ps {
+		if _, ok := milli(p.pa); !ok {
+			asMilli = false
+			break
+		}
+	}
+	if asMilli {
+		b = append(b, 1)
+		var last int64
+		for _, p := range ps {
+			m, _ := milli(p.pa)
+			b = binary.AppendVarint(b, m-last)
+			last = m
+		}
+	} else {
+		b = append(b, 0)
+		var last uint64
+		for _, p := range ps {
+			bits := math.Float64bits(p.pa)
+			b = binary.AppendUvarint(b, bits^last)
+			last = bits
+		}
+	}
+	for _, p := range ps {
+		if p.hasTag {
+			b = append(b, p.tag)
+		} else {
+			b = append(b, tagOf(p.v1Value(nanosKey(p.ns))))
+		}
+	}
+	return seal(key, b)
+}
+
+// decodePChunk checks and decodes a pressure chunk; on a checksum
+// mismatch it still returns what decoded, for Verify to name samples by
+// their tags.
+func decodePChunk(sensor string, key, v []byte) ([]pchunkSample, []byte, error) {
+	fail := func(err error) ([]pchunkSample, []byte, error) {
+		return nil, nil, fmt.Errorf("%w: pressure chunk of sensor %q ending %s: %v", ErrCorrupt, sensor, keyString(key), err)
+	}
+	times := chunkTimes(key, v)
+	if times == nil {
+		return fail(fmt.Errorf("times do not decode"))
+	}
+	body, tail := v[:len(v)-crcLen], v[len(v)-crcLen:]
+	sumOK := crc32.Update(crc32.Checksum(key, crcTable), crcTable, body) == binary.LittleEndian.Uint32(tail)
+	d := decoder{b: body[1:]}
+	d.uvarint("n")
+	d.varint("first")
+	runs := d.uvarint("time runs")
+	for r := uint64(0); r < runs && d.err == nil; r++ {
+		d.varint("time")
+		d.uvarint("time run")
+	}
+	form := d.byte1("value form")
+	ps := make([]pchunkSample, len(times))
+	var lastM int64
+	var lastBits uint64
+	for i := range ps {
+		ps[i].ns = times[i]
+		switch form {
+		case 1:
+			lastM += d.varint("Pa")
+			ps[i].pa = float64(lastM) / 1000
+		case 0:
+			lastBits ^= d.uvarint("Pa")
+			ps[i].pa = math.Float64frombits(lastBits)
+		default:
+			d.fail("value form %d", form)
+		}
+		if d.err == nil && !finite(ps[i].pa) {
+			d.fail("sample %d: %v is not a pressure", i, ps[i].pa)
+		}
+	}
+	if d.err == nil && len(d.b) != len(ps) {
+		d.fail("%d tag bytes for %d samples", len(d.b), len(ps))
+	}
+	if d.err != nil {
+		return fail(d.err)
+	}
+	if !sumOK {
+		return ps, d.b, fmt.Errorf("%w: pressure chunk of sensor %q ending %s: checksum mismatch: the chunk was changed after it was written", ErrCorrupt, sensor, keyString(key))
+	}
+	return ps, d.b, nil
+}
+
+// pressureIter merges the chunks and head of one sensor over [lo, hi).
+type pressureIter struct {
+	sensor string
+	lo, hi int64
+	chunks *bolt.Cursor
+	ck     []pchunkSample
+	ci     int
+	cdone  bool
+	head   *bolt.Cursor
+	hk, hv []byte
+	hdone  bool
+	err    error
+}
+
+func newPressureIter(tx *bolt.Tx, sensor string, lo, hi int64) *pressureIter {
+	it := &pressureIter{sensor: sensor, lo: lo, hi: hi, cdone: true, hdone: true}
+	if b := tx.Bucket(bucketPressure).Bucket([]byte(sensor)); b != nil {
+		it.head = b.Cursor()
+		it.hk, it.hv = it.head.Seek(nanosKey(lo))
+		it.hdone = false
+		it.headCheck()
+	}
+	if root := tx.Bucket(bucketPChunks); root != nil {
+		if b := root.Bucket([]byte(sensor)); b != nil {
+			it.chunks = b.Cursor()
+			it.cdone = false
+			k, v := it.chunks.Seek(nanosKey(lo))
+			it.load(k, v)
+		}
+	}
+	return it
+}
+
+func (it *pressureIter) headCheck() {
+	if it.hk == nil {
+		it.hdone = true
+		return
+	}
+	if ns, ok := keyNanos(it.hk); !ok || ns >= it.hi {
+		it.hdone = true
+	}
+}
+
+func (it *pressureIter) load(k, v []byte) {
+	for {
+		if k == nil {
+			it.cdone = true
+			return
+		}
+		if _, first, ok := chunkHeader(v); ok && first >= it.hi {
+			it.cdone = true
+			return
+		}
+		ps, _, err := decodePChunk(it.sensor, k, v)
+		if err != nil {
+			it.err, it.cdone = err, true
+			return
+		}
+		it.ck, it.ci = ps, 0
+		for it.ci < len(ps) && ps[it.ci].ns < it.lo {
+			it.ci++
+		}
+		if it.ci < len(ps) {
+			it.cdone = ps[it.ci].ns >= it.hi
+			return
+		}
+		k, v = it.chunks.Next()
+	}
+}
+
+// next returns the next sample in time order.
+func (it *pressureIter) next() (Pressure, bool) {
+	if it.err != nil || (it.cdone && it.hdone) {
+		return Pressure{}, false
+	}
+	var hns int64 = math.MaxInt64
+	if !it.hdone {
+		hns, _ = keyNanos(it.hk)
+	}
+	if !it.cdone && it.ck[it.ci].ns <= hns {
+		p := it.ck[it.ci]
+		if p.ns == hns {
+			it.advanceHead()
+		}
+		it.ci++
+		if it.ci == len(it.ck) {
+			k, v := it.chunks.Next()
+			it.load(k, v)
+		} else if it.ck[it.ci].ns >= it.hi {
+			it.cdone = true
+		}
+		if it.err != nil {
+			return Pressure{}, false
+		}
+		return Pressure{Sensor: it.sensor, Time: nsTime(p.ns), Pa: p.pa}, true
+	}
+	p, err := decodePressure(it.sensor, it.hk, it.hv)
+	if err != nil {
+		it.err = err
+		return Pressure{}, false
+	}
+	it.advanceHead()
+	return p, true
+}
+
+func (it *pressureIter) advanceHead() {
+	it.hk, it.hv = it.head.Next()
+	it.headCheck()
+}
+
+// compactSensor moves the head samples of sensor into pressure chunks, as
+// compactCounter does for readings.
+func compactSensor(tx *bolt.Tx, sensor string) (moved, chunks int, err error) {
+	head := tx.Bucket(bucketPressure).Bucket([]byte(sensor))
+	if head == nil {
+		return 0, 0, nil
+	}
+	var fresh []pchunkSample
+	var headKeys [][]byte
+	c := head.Cursor()
+	for k, v := c.First(); k != nil; k, v = c.Next() {
+		p, err := decodePressure(sensor, k, v)
+		if err != nil {
+			return 0, 0, err
+		}
+		fresh = append(fresh, pchunkSample{ns: p.Time.UnixNano(), pa: p.Pa, tag: tagOf(v), hasTag: true})
+		headKeys = append(headKeys, append([]byte(nil), k...))
+	}
+	if len(fresh) == 0 {
+		return 0, 0, nil
+	}
+	cb, err := tx.Bucket(bucketPChunks).CreateBucketIfNotExists([]byte(sensor))
+	if err != nil {
+		return 0, 0, fmt.Errorf("store: pressure chunks of %q: %w", sensor, err)
+	}
+	cb.FillPercent = fillPercent
+	var old []pchunkSample
+	var oldKeys [][]byte
+	cur := cb.Cursor()
+	k, v := cur.Seek(nanosKey(fresh[0].ns))
+	if k == nil {
+		if k, v = cur.Last(); k != nil {
+			if n, _, ok := chunkHeader(v); ok && n >= maxChunkReadings {
+				k = nil
+			}
+		}
+	}
+	for ; k != nil; k, v = cur.Next() {
+		ps, tags, err := decodePChunk(sensor, k, v)
+		if err != nil {
+			return 0, 0, err
+		}
+		for i := range ps {
+			ps[i].tag, ps[i].hasTag = tags[i], true
+		}
+		old = append(old, ps...)
+		oldKeys = append(oldKeys, append([]byte(nil), k...))
+	}
+	merged := make([]pchunkSample, 0, len(old)+len(fresh))
+	i, j := 0, 0
+	for i < len(old) || j < len(fresh) {
+		switch {
+		case j == len(fresh) || (i < len(old) && old[i].ns < fresh[j].ns):
+			merged = append(merged, old[i])
+			i++
+		case i == len(old) || fresh[j].ns < old[i].ns:
+			merged = append(merged, fresh[j])
+			j++
+		default:
+			return 0, 0, fmt.Errorf("%w: sensor %q at %s", errChunkOverlap, sensor, keyString(nanosKey(old[i].ns)))
+		}
+	}
+	for _, k := range oldKeys {
+		if err := cb.Delete(k); err != nil {
+			return 0, 0, err
+		}
+	}
+	for i := 0; i < len(merged); i += maxChunkReadings {
+		part := merged[i:min(i+maxChunkReadings, len(merged))]
+		key := nanosKey(part[len(part)-1].ns)
+		if err := cb.Put(key, encodePChunk(key, part)); err != nil {
+			return 0, 0, fmt.Errorf("store: put pressure chunk of %q: %w", sensor, err)
+		}
+		chunks++
+	}
+	if compactHook != nil {
+		if err := compactHook(sensor); err != nil {
+			return 0, 0, err
+		}
+	}
+	for _, k := range headKeys {
+		if err := head.Delete(k); err != nil {
+			return 0, 0, err
+		}
+	}
+	if k, _ := head.Cursor().First(); k == nil {
+		if err := tx.Bucket(bucketPressure).DeleteBucket([]byte(sensor)); err != nil {
+			return 0, 0, err
+		}
+	}
+	return len(fresh), chunks, nil
+}
+
+// pressureValue returns the schema-1 value of sensor's sample at key,
+// head or chunk, or nil.
+func pressureValue(tx *bolt.Tx, sensor string, key []byte) ([]byte, error) {
+	if b := tx.Bucket(bucketPressure).Bucket([]byte(sensor)); b != nil {
+		if v := b.Get(key); v != nil {
+			return v, nil
+		}
+	}
+	root := tx.Bucket(bucketPChunks)
+	if root == nil {
+		return nil, nil
+	}
+	b := root.Bucket([]byte(sensor))
+	if b == nil {
+		return nil, nil
+	}
+	k, v := b.Cursor().Seek(key)
+	if k == nil {
+		return nil, nil
+	}
+	ns, _ := keyNanos(key)
+	if _, first, ok := chunkHeader(v); ok && first > ns {
+		return nil, nil
+	}
+	ps, _, err := decodePChunk(sensor, k, v)
+	if err != nil {
+		return nil, err
+	}
+	for i := range ps {
+		if ps[i].ns == ns {
+			return ps[i].v1Value(key), nil
+		}
+	}
+	return nil, nil
+}
+
+// lastPChunkNanos is the time of sensor's newest chunked sample, −1 if none.
+func lastPChunkNanos(tx *bolt.Tx, sensor string) int64 {
+	root := tx.Bucket(bucketPChunks)
+	if root == nil {
+		return -1
+	}
+	b := root.Bucket([]byte(sensor))
+	if b == nil {
+		return -1
+	}
+	k, _ := b.Cursor().Last()
+	if ns, ok := keyNanos(k); ok {
+		return ns
+	}
+	return -1
+}

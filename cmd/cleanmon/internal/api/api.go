@@ -104,6 +104,7 @@ func (s *Server) Register(r chi.Router) {
 		r.With(long, read).Get("/sensors/{sensor}/pressure", s.sensorPressure)
 
 		s.registerEnvironment(r)
+		s.registerOpenAPI(r)
 
 		r.With(httpx.Timeout(httpx.BackupTimeout), s.auth.Require(access.PermAdmin)).Get("/backup", s.backup)
 	})

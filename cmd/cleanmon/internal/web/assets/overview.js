@@ -6,6 +6,7 @@ import {
   init, get, poll, banner, el, svgEl, stateBadge, dpBadge, levelBadge, pa, pct,
   targetText, OP_STATES, sizeKeys, ago, timeText,
 } from "./common.js";
+import { mountEnvironment } from "./environment.js";
 
 const EVERY = 2000;
 
@@ -134,4 +135,5 @@ init().then(() => {
     render(zones, site, sensors, alarms);
     banner(null);
   }, EVERY);
+  mountEnvironment("env-table");
 });

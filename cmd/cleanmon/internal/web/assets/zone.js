@@ -8,6 +8,7 @@ import {
   targetText, OP_STATES, sizeKeys, timeEl, ago,
 } from "./common.js";
 import { timeChart } from "./chart.js";
+import { mountEnvironment } from "./environment.js";
 
 const HOUR = 3600e3;
 const DAY = 24 * HOUR;
@@ -286,6 +287,7 @@ function wireControls() {
 init().then(() => {
   wireControls();
   poll(refreshHead, 5000);
+  mountEnvironment("env-table", zoneID);
   setInterval(() => {
     if (range === "1h" || range === "6h") drawCharts();
   }, 30000);

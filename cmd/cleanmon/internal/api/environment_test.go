@@ -48,7 +48,9 @@ func f64(v float64) *float64 { return &v }
 // number but is unknown, a sensor with no sample is unknown, and a value
 // outside the action band is action.
 func TestEnvironmentStateFailSafe(t *testing.T) {
-	band := func(lo, hi float64) *collector.EnvironmentBand { return &collector.EnvironmentBand{Low: f64(lo), High: f64(hi)} }
+	band := func(lo, hi float64) *collector.EnvironmentBand {
+		return &collector.EnvironmentBand{Low: f64(lo), High: f64(hi)}
+	}
 	env := &fakeEnv{latest: map[string]store.EnvSample{
 		// th-fresh: 30 s old; 22.4 °C is beyond the action band's 22.
 		"th-fresh": {Sensor: "th-fresh", Time: testNow.Add(-30 * time.Second), Has: store.EnvTemperature | store.EnvHumidity, TemperatureC: 22.4, HumidityPct: 45},

@@ -12,7 +12,8 @@ import (
 // a real browser: the zone page lists th-asm's temperature and humidity,
 // the overview every environment sensor of the site (av-hood, th-asm,
 // th-met: four quantities); a temperature posted outside the action band
-// shows as such within a poll.
+// shows as such within a poll, and the demo's day holds an environment
+// alarm.
 func TestPagesShowEnvironment(t *testing.T) {
 	b := newBrowser(t)
 	d := startDaemon(t, "--demo", "--data", t.TempDir())
@@ -22,6 +23,21 @@ func TestPagesShowEnvironment(t *testing.T) {
 		}
 		getJSON(t, d, "/api/v1/environment", &env)
 		return len(env) == 3 && env[0].Time != nil && env[1].Time != nil && env[2].Time != nil
+	})
+
+	// The demo's simulated day crosses a band for longer than its delay.
+	waitUntil(t, "an environment alarm of the demo", 90*time.Second, func() bool {
+		var alarms []struct {
+			Kind   string `json:"kind"`
+			Sensor string `json:"sensor"`
+		}
+		getJSON(t, d, "/api/v1/alarms?state=all", &alarms)
+		for _, a := range alarms {
+			if a.Kind == "environment" && (a.Sensor == "av-hood" || a.Sensor == "th-asm" || a.Sensor == "th-met") {
+				return true
+			}
+		}
+		return false
 	})
 
 	b.open(d.url+"/", "")

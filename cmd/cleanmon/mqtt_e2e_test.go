@@ -71,6 +71,7 @@ func mqttSite(t *testing.T, broker string) string {
   - id: th-asm
     zone: assembly
     kind: temperature-humidity
+    source: mqtt
     temperature_c: {action: {low: 20, high: 22}}
     humidity_pct: {action: {low: 40, high: 50}}
 mqtt:

@@ -1,6 +1,7 @@
 package site
 
 import (
+	"fmt"
 	"time"
 
 	"cleanmon/alerts"
@@ -18,6 +19,7 @@ func (d *nodeDecoder) checkEnvironment(c *Config, zoneIDs map[string]bool) {
 	for _, e := range collector.ValidateEnvironmentSensors(c.Environment, zoneIDs, dp, collector.EnvironmentBounds{}) {
 		d.add(e.Path, "%s", e.Msg)
 	}
+	d.checkMQTTSources(c)
 	if c.MQTT == nil {
 		return
 	}
@@ -76,4 +78,43 @@ func (c *Config) EnvironmentSensor(id string) (*collector.EnvironmentSensorConfi
 		}
 	}
 	return nil, false
+}
+
+// checkMQTTSources: an instrument whose source is mqtt needs the mqtt
+// section and a topic that can carry it (one naming it, or one of its
+// kind naming no instrument), or nothing would ever arrive from it.
+func (d *nodeDecoder) checkMQTTSources(c *Config) {
+	carried := func(kind, id string) bool {
+		if c.MQTT == nil {
+			return false
+		}
+		for _, t := range c.MQTT.Topics {
+			named := t.Counter
+			if named == "" {
+				named = t.Sensor
+			}
+			if named == id || (named == "" && t.Kind == kind) {
+				return true
+			}
+		}
+		return false
+	}
+	check := func(path, kind, id, source string) {
+		switch {
+		case source != collector.SourceMQTT:
+		case c.MQTT == nil:
+			d.add(path, "%q needs the mqtt section: the broker and the topic %s publishes to", source, id)
+		case !carried(kind, id):
+			d.add(path, "%q, but no topic of the mqtt section carries %s: add one naming it, or one of kind %s", source, id, kind)
+		}
+	}
+	for i, k := range c.Counters {
+		check(fmt.Sprintf("counters[%d].source", i), collector.MQTTReadings, k.ID, k.Source)
+	}
+	for i, s := range c.PressureSensors {
+		check(fmt.Sprintf("pressure_sensors[%d].source", i), collector.MQTTPressure, s.ID, s.Source)
+	}
+	for i, e := range c.Environment {
+		check(fmt.Sprintf("environment[%d].source", i), collector.MQTTEnvironment, e.ID, e.Source)
+	}
 }

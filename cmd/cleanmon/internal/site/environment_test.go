@@ -45,6 +45,7 @@ func TestEnvironmentAndMQTTSections(t *testing.T) {
 		{"unknown kind", `    kind: temperature-humidity`, `    kind: thermo`, "site.yaml:19:11: environment[0].kind"},
 		{"topic of an unknown sensor", `sensor: th-h, fields`, `sensor: th-x, fields`, "site.yaml:26:"},
 		{"unknown mqtt key", `  client_id: cleanmon-test`, `  clientid: cleanmon-test`, "site.yaml:24:3: mqtt.clientid: unknown key"},
+		{"counter on mqtt no topic carries", `location: h-1, sizes`, `location: h-1, source: mqtt, sizes`, "site.yaml:10:"},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -57,5 +58,10 @@ func TestEnvironmentAndMQTTSections(t *testing.T) {
 				t.Fatalf("err %v, want a problem at %s", err, c.want)
 			}
 		})
+	}
+	// th-h on mqtt is carried by its topic: accepted.
+	ok := strings.Replace(good, "    kind: temperature-humidity", "    kind: temperature-humidity\n    source: mqtt", 1)
+	if _, err := Load("site.yaml", []byte(ok)); err != nil {
+		t.Fatalf("an environment sensor on mqtt with its topic refused: %v", err)
 	}
 }

@@ -403,7 +403,8 @@ func (d *Daemon) Run(ctx context.Context) error {
 		d.log.Warn("telling the service manager that the daemon is ready", "err", err)
 	}
 	d.notify.watch(d.bg, &d.wg, d.alive, func(err error) { d.log.Error("watchdog not fed", "err", err) })
-	d.log.Info("serving", "url", d.url, "site", d.cfg.Site, "data", d.o.DataDir, "zones", len(d.cfg.Zones), "counters", len(d.cfg.Counters), "sensors", len(d.cfg.PressureSensors))
+	d.log.Info("serving", "url", d.url, "site", d.cfg.Site, "data", d.o.DataDir, "zones", len(d.cfg.Zones), "counters", len(d.cfg.Counters), "sensors", len(d.cfg.PressureSensors),
+		"environment_sensors", len(d.cfg.Environment), "version", BuildInfo().Version, "revision", BuildInfo().Revision)
 	if !d.o.Demo && len(d.cfg.Access.Tokens) == 0 {
 		d.log.Warn("no access tokens configured: nothing can post readings or change a zone", "open_reads", d.cfg.Access.OpenReads)
 	}

@@ -33,6 +33,8 @@ func commands() []command {
 		{"certify", "evaluate planned samples against a class and print the verdict", runCertify},
 		{"backup", "write a consistent copy of a store to a file", runBackup},
 		{"verify", "check a store's consistency and integrity", runVerify},
+		{"report", "print a zone's month on one page: report trend --zone Z --month YYYY-MM", runReport},
+		{"runs", "import production runs from a CSV file into a running daemon", runRuns},
 		{"bench", "measure ingest throughput and latency on loopback", runBench},
 		{"soak", "run ingest and queries together on loopback for a bounded time", runSoak},
 		{"version", "print the version, VCS revision and Go version", runVersion},

@@ -90,6 +90,8 @@ func TestOpenAPIValidatesRealAnswers(t *testing.T) {
 		{"GET", "/api/v1/sensors/th-nowhere/environment", "", "", 404},
 		{"GET", "/api/v1/audit?from=" + ago(time.Hour), "", "", 200},
 		{"GET", "/api/v1/audit/head", "", "", 200},
+		{"GET", "/api/v1/runs", "", "", 200},
+		{"GET", "/api/v1/zones/assembly/trend", "", "", 200},
 		{"POST", "/api/v1/environment", "", `{"sensor":"th-asm","time":"` + stamp + `","temperature_c":21.2,"humidity_pct":44.0}`, 200},
 		{"POST", "/api/v1/environment", "application/json", `{"sensor":"av-hood","time":"` + stamp + `","velocity_m_s":0.45,"velocity_m_s":0.5}`, 400},
 		{"POST", "/api/v1/pressure", "application/json", `{"sensor":"dp-asm","time":"` + stamp + `","pa":12.4}`, 200},

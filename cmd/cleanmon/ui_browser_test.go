@@ -194,6 +194,30 @@ func TestPagesOnDemoSite(t *testing.T) {
 	}
 	b.waitJS(10*time.Second, "the DP charts", `document.querySelectorAll("#dp-charts svg.chart").length > 0`)
 	b.screenshot("zone-assembly")
+	cet, err := time.LoadLocation("CET") // the demo site's time_zone
+	if err != nil {
+		t.Fatal(err)
+	}
+	uiTimesOnSiteClock(t, b, "zone page", cet)
+
+	// The excursion raised an action alarm; while it is open the zone's
+	// headline is not clear, on any screen.
+	waitFor(t, 20*time.Second, "the action alarm of "+target, func() bool {
+		var as []uiAlarm
+		uiGet(t, d.url+"/api/v1/alarms", "", &as)
+		for _, a := range as {
+			if a.Zone == target && a.Level == "action" && a.State == "active" {
+				return true
+			}
+		}
+		return false
+	})
+	uiWallScreen(t, b, d.url, zones)
+	b.waitJS(10*time.Second, "the open alarm on "+target+"'s card", fmt.Sprintf(`!!document.querySelector('.zone-card[data-zone=%q] .zc-alarm')`, target))
+	uiHeadlineNotClear(t, b, target)
+	uiClearRule(t, b)
+	uiSmallScreen(t, b, d.url, "assembly")
+	uiTimesOnSiteClock(t, b, "alarms page", cet)
 	b.checkConsole()
 }
 
@@ -212,6 +236,8 @@ func uiTokenSite(t *testing.T) string {
 	t.Helper()
 	cfg := fmt.Sprintf(`site: "Veldmark Photonics, building C (page tests)"
 retention: "87600h"
+time_zone: "Etc/GMT-3"
+shifts: ["07:00", "19:00"]
 access:
   tokens:
     - {name: shift-lead, sha256: %q, role: operator}
@@ -314,9 +340,9 @@ func (b *browser) signOut() {
 }
 
 type uiAlarm struct {
-	ID, Zone, Kind, State string
-	AcknowledgedBy        string `json:"acknowledged_by"`
-	Comment               string
+	ID, Zone, Kind, State, Level string
+	AcknowledgedBy               string `json:"acknowledged_by"`
+	Comment                      string
 }
 
 func uiAlarmByID(t *testing.T, url, id string) uiAlarm {
@@ -425,8 +451,11 @@ func TestPagesOnTokenSite(t *testing.T) {
 	b.waitJS(10*time.Second, "the acknowledged alarm among the recent ones",
 		fmt.Sprintf(`(() => { const r = document.querySelector('%s'); return r && r.querySelector(".acked").textContent.includes("door held for a delivery"); })()`, row))
 	b.screenshot("alarms")
+	// Etc/GMT-3 is UTC+3 all year (the IANA database's sign is inverted).
+	uiTimesOnSiteClock(t, b, "alarms page", time.FixedZone("Etc/GMT-3", 3*3600))
 
 	uiCertification(t, b, d, now)
+	uiNotCurrent(t, b, d.url)
 	uiYearChart(t, b, d, now)
 	b.checkConsole("status of 401", "status of 403")
 }

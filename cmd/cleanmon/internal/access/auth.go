@@ -36,6 +36,10 @@ const (
 	PermIngest                    // POST readings and pressure
 	PermOperate                   // operating-state changes and alarm acknowledgements
 	PermAdmin                     // backup and everything else
+	// PermRecordRuns records and closes production runs: an operator at
+	// the room, or the ingest token of an execution system that books
+	// batches and lots.
+	PermRecordRuns
 )
 
 // String is the verb of the permission, as the 403 answer words it.
@@ -47,6 +51,8 @@ func (p Permission) String() string {
 		return "ingest"
 	case PermOperate:
 		return "operate"
+	case PermRecordRuns:
+		return "record runs"
 	}
 	return "administer"
 }
@@ -58,11 +64,11 @@ func Grants(role string, p Permission) bool {
 	case RoleAdmin:
 		return true
 	case RoleOperator:
-		return p == PermRead || p == PermOperate
+		return p == PermRead || p == PermOperate || p == PermRecordRuns
 	case RoleViewer:
 		return p == PermRead
 	case RoleIngest:
-		return p == PermIngest
+		return p == PermIngest || p == PermRecordRuns
 	}
 	return false
 }

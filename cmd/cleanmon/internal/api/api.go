@@ -105,6 +105,7 @@ func (s *Server) Register(r chi.Router) {
 
 		s.registerEnvironment(r)
 		s.registerOpenAPI(r)
+		s.registerRecords(r, read, short, long)
 
 		r.With(httpx.Timeout(httpx.BackupTimeout), s.auth.Require(access.PermAdmin)).Get("/backup", s.backup)
 	})

@@ -4,6 +4,7 @@ import (
 	"net/http"
 
 	"cleanmon/alerts"
+	"cleanmon/alerts/investigate"
 	"cleanmon/cmd/cleanmon/internal/httpx"
 	"cleanmon/collector"
 	"cleanmon/store"
@@ -13,6 +14,9 @@ import (
 // to HTTP statuses; an error no rule names is the daemon's side failing
 // (503), or 504 for a request out of time. The pages use it too.
 var Errors = httpx.Table{
+	{Err: store.ErrRunExists, Status: http.StatusConflict},
+	{Err: store.ErrNotFound, Status: http.StatusNotFound},
+	{Err: investigate.ErrInput, Status: http.StatusBadRequest},
 	{Err: store.ErrInvalid, Status: http.StatusBadRequest},
 	{Err: collector.ErrInput, Status: http.StatusBadRequest},
 	{Err: collector.ErrContentType, Status: http.StatusUnsupportedMediaType},

@@ -26,6 +26,8 @@ type Store interface {
 	PressureStore
 	AuditTrail
 	AlarmJournal
+	RunStore
+	StateHistory
 	SetOperatingState(ctx context.Context, st store.OperatingState) error
 	Backup(w io.Writer) (int64, error)
 }

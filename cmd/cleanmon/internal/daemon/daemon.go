@@ -317,6 +317,7 @@ func (d *Daemon) startBackground() error {
 	}
 	// Before the store closes: a poll in flight commits or fails first.
 	d.push(func() error { stopModbus(); return nil })
+	d.startTrendFiles()
 	return d.startMQTT(bg)
 }
 
@@ -361,7 +362,7 @@ func (d *Daemon) routes() http.Handler {
 		httpx.WriteError(w, http.StatusMethodNotAllowed, r.Method+" is not allowed on "+r.URL.Path)
 	})
 	d.api.Register(r)
-	web.New(web.Options{Site: d.cfg, Store: d.st, Certify: d.api, Access: d.auth, Errors: api.Errors, Log: d.log, Now: d.now}).Register(r)
+	web.New(web.Options{Site: d.cfg, Store: d.st, Certify: d.api, Records: d.api, Access: d.auth, Errors: api.Errors, Log: d.log, Now: d.now}).Register(r)
 	return r
 }
 
@@ -417,6 +418,9 @@ func (d *Daemon) Run(ctx context.Context) error {
 		var live collector.Submitter = d.ingest
 		if d.dm != nil {
 			live = d.dm.Feed(d.ingest)
+		}
+		if err := demoRuns(d.bg, d.st, d.now()); err != nil {
+			d.log.Warn("demo: production runs not recorded", "err", err)
 		}
 		if err := startDemo(d.bg, &d.wg, d.reg, d.zones, collector.Ingests{Ingest: d.ingest, Environment: d.envIngest}, live, d.now, d.o.Speed, d.log); err != nil {
 			return fmt.Errorf("demo simulator: %w", err)

@@ -35,6 +35,7 @@ const (
 // not wait for it.
 func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry, zones *alerts.ZoneTracker,
 	ingest collector.Ingests, live collector.Submitter, now func() time.Time, speed float64, log *slog.Logger) error {
+	feed := newIncidentFeed(ingest.Ingest, reg, log)
 	limits := map[string]map[float64]float64{}
 	for _, ci := range reg.Counters() {
 		v, ok := zones.Zone(ci.Zone)
@@ -59,12 +60,12 @@ func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry,
 		defer wg.Done()
 		start := time.Now()
 		end := now()
-		n, err := demoBackfillRange(ctx, sim, ingest, end.Add(-demoBackfill), end)
+		n, err := demoBackfillRange(ctx, sim, feed, ingest.Environment, end.Add(-demoBackfill), end)
 		// Backfilling took time, more of it at a higher speed: catch up with
 		// the clock before going live, so that live data is fresh.
 		for i := 0; err == nil && i < 5 && now().Sub(sim.Cursor()) > time.Second; i++ {
 			var m int
-			m, err = demoBackfillRange(ctx, sim, ingest, sim.Cursor(), now())
+			m, err = demoBackfillRange(ctx, sim, feed, ingest.Environment, sim.Cursor(), now())
 			n += m
 		}
 		if err != nil {
@@ -74,7 +75,10 @@ func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry,
 			return
 		}
 		log.Info("demo backfill done", "readings", n, "took", time.Since(start).Round(time.Millisecond))
-		if err := sim.Run(ctx, speed, live); err != nil && ctx.Err() == nil {
+		feed.mu.Lock()
+		feed.next = live
+		feed.mu.Unlock()
+		if err := sim.Run(ctx, speed, feed); err != nil && ctx.Err() == nil {
 			log.Error("demo simulator stopped", "err", err)
 		}
 	}()
@@ -83,7 +87,7 @@ func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry,
 
 // demoBackfillRange submits the simulated data of [from, to) batch by
 // batch and returns the readings accepted.
-func demoBackfillRange(ctx context.Context, sim *collector.Simulator, ingest collector.Ingests, from, to time.Time) (int, error) {
+func demoBackfillRange(ctx context.Context, sim *collector.Simulator, ingest collector.Submitter, env collector.EnvironmentSubmitter, from, to time.Time) (int, error) {
 	n := 0
 	for b := range sim.Backfill(from, to, demoBatch) {
 		if err := ctx.Err(); err != nil {
@@ -102,7 +106,7 @@ func demoBackfillRange(ctx context.Context, sim *collector.Simulator, ingest col
 			}
 		}
 		if len(b.Environment) > 0 {
-			if _, err := ingest.SubmitEnvironment(ctx, b.Environment); err != nil {
+			if _, err := env.SubmitEnvironment(ctx, b.Environment); err != nil {
 				return n, err
 			}
 		}

@@ -56,10 +56,25 @@ type Config struct {
 	// AllowPlainHTTP permits serving without TLS on an address other than
 	// loopback (a closed instrument network behind its own protection).
 	AllowPlainHTTP bool `yaml:"allow_plain_http"`
+	// TimeZone is the site's IANA time zone (UTC when empty): the pages
+	// show times and cut shifts in it. Shifts are the start times of the
+	// site's shifts ("06:00"), each running until the next.
+	TimeZone string   `yaml:"time_zone"`
+	Shifts   []string `yaml:"shifts"`
+	// Reports are the files the daemon writes by itself.
+	Reports Reports `yaml:"reports"`
 
 	// source and digest name the file the configuration was read from and
 	// the SHA-256 of its bytes, for the audit trail.
 	source, digest string
+}
+
+// Reports configures the reports the daemon writes by itself.
+type Reports struct {
+	// TrendDir, when set, receives each zone's month on one page (HTML and
+	// PDF) on the first day of the next month, and at start for the last
+	// month when its files are missing.
+	TrendDir string `yaml:"trend_dir"`
 }
 
 // Source is the file the configuration was read from.
@@ -523,6 +538,7 @@ func (d *nodeDecoder) check(c *Config) {
 		d.add("retention", "%s: must be positive", time.Duration(c.Retention))
 	}
 
+	d.checkClock(c)
 	d.checkTokens(c.Access.Tokens)
 	d.checkSections(c)
 	d.checkAcross(c)

@@ -50,11 +50,37 @@ type uiAreaJSON struct {
 type uiSiteJSON struct {
 	Site  string       `json:"site"`
 	Areas []uiAreaJSON `json:"areas"`
+	// TimeZone is the site's IANA zone, in which the pages show every time;
+	// Shifts the configured start times; Shift and LastShift the shift
+	// running at Now and the one before, cut on the site's clock.
+	TimeZone  string      `json:"time_zone"`
+	Shifts    []string    `json:"shifts"`
+	Now       time.Time   `json:"now"`
+	Shift     uiShiftJSON `json:"shift"`
+	LastShift uiShiftJSON `json:"last_shift"`
 }
 
-// uiSite is GET /ui/site: the zones and areas with their cascade levels.
+// uiShiftJSON is one shift, [start, end).
+type uiShiftJSON struct {
+	Start time.Time `json:"start"`
+	End   time.Time `json:"end"`
+}
+
+// uiSite is GET /ui/site: the zones and areas with their cascade levels,
+// and the site's clock.
 func (s *Server) uiSite(w http.ResponseWriter, r *http.Request) {
-	httpx.WriteJSON(w, http.StatusOK, uiSiteJSON{Site: s.cfg.Site, Areas: siteAreas(s.cfg.Zones, s.cfg.PressureSensors)})
+	now := s.now()
+	cur, prev := s.cfg.ShiftAt(now)
+	shifts := s.cfg.Shifts
+	if shifts == nil {
+		shifts = []string{}
+	}
+	httpx.WriteJSON(w, http.StatusOK, uiSiteJSON{
+		Site: s.cfg.Site, Areas: siteAreas(s.cfg.Zones, s.cfg.PressureSensors),
+		TimeZone: s.cfg.TimeZoneName(), Shifts: shifts, Now: now.UTC(),
+		Shift:     uiShiftJSON{Start: cur.Start.UTC(), End: cur.End.UTC()},
+		LastShift: uiShiftJSON{Start: prev.Start.UTC(), End: prev.End.UTC()},
+	})
 }
 
 // siteAreas lists the zones in configuration order, then the low-side

@@ -128,6 +128,7 @@ func (s *Server) Register(r chi.Router) {
 		static("/certify", servePage("certify.html"))
 		static("/zones/{zone}", s.zonePage)
 		static("/assets/*", serveAsset)
+		s.registerRecords(r, static, long, read)
 
 		r.With(short, read).Get("/ui/session", s.uiSession)
 		r.With(short, read).Get("/ui/site", s.uiSite)

@@ -33,15 +33,16 @@ func TestPageRoutes(t *testing.T) {
 		body        []byte
 	}
 	var cases []want
-	for name, page := range map[string]string{"/": "overview.html", "/alarms": "alarms.html", "/certify": "certify.html", "/zones/hood": "zone.html"} {
+	for name, page := range map[string]string{"/": "overview.html", "/alarms": "alarms.html", "/certify": "certify.html", "/zones/hood": "zone.html",
+		"/alarms/a1/investigation": "investigation.html", "/runs/LOT-1": "run.html", "/zones/hood/trend": "trend.html"} {
 		cases = append(cases, want{name, "text/html; charset=utf-8", webPages[page].body})
 	}
 	for name, f := range webAssets {
 		cases = append(cases, want{"/assets/" + name, contentTypes[path.Ext(name)], f.body})
 	}
 	sort.Slice(cases, func(i, j int) bool { return cases[i].path < cases[j].path })
-	if len(webAssets) < 7 || len(webPages) != 4 {
-		t.Fatalf("embedded %d assets and %d pages; want the 4 pages and their scripts, style sheet and icon", len(webAssets), len(webPages))
+	if len(webAssets) < 7 || len(webPages) != 7 {
+		t.Fatalf("embedded %d assets and %d pages; want the 7 pages and their scripts, style sheet and icon", len(webAssets), len(webPages))
 	}
 	for _, c := range cases {
 		t.Run(c.path, func(t *testing.T) {
@@ -253,7 +254,7 @@ func newPageServer(t *testing.T) *pageServer {
 		t.Fatal(err)
 	}
 	r := chi.NewRouter()
-	New(Options{Site: cfg, Store: fakePressure{}, Certify: fakeCertifier{}, Access: auth, Log: slog.New(slog.NewTextHandler(io.Discard, nil)),
+	New(Options{Site: cfg, Store: fakePressure{}, Certify: fakeCertifier{}, Records: fakeRecords{}, Access: auth, Log: slog.New(slog.NewTextHandler(io.Discard, nil)),
 		Now: func() time.Time { return time.Date(2026, 3, 2, 12, 0, 0, 0, time.UTC) }}).Register(r)
 	return &pageServer{t: t, h: r}
 }

@@ -34,6 +34,7 @@ type Options struct {
 	Site    *site.Config
 	Store   PressureStore
 	Certify Certifier
+	Records Records
 	Access  *access.Authorizer
 	// Errors is the daemon's table from errors to statuses (api.Errors).
 	Errors httpx.Table
@@ -46,6 +47,7 @@ type Server struct {
 	cfg     *site.Config
 	store   PressureStore
 	certify Certifier
+	records Records
 	auth    *access.Authorizer
 	errs    httpx.Table
 	log     *slog.Logger
@@ -54,5 +56,5 @@ type Server struct {
 
 // New returns the pages over o.
 func New(o Options) *Server {
-	return &Server{cfg: o.Site, store: o.Store, certify: o.Certify, auth: o.Access, errs: o.Errors, log: o.Log, now: o.Now}
+	return &Server{cfg: o.Site, store: o.Store, certify: o.Certify, records: o.Records, auth: o.Access, errs: o.Errors, log: o.Log, now: o.Now}
 }

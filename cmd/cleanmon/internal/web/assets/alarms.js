@@ -1,4 +1,4 @@
-// Alarms: the open ones (pending, active, acknowledged) or the last 7
+// Alarms: the open ones (active, acknowledged) or the last 7
 // days, refreshed every 2 s; an active alarm is acknowledged with a
 // comment (operator role). The acknowledgement form sits outside the
 // refreshed list, so a refresh never eats what the operator is typing.
@@ -34,6 +34,11 @@ function value(a) {
   return fmt(a.value) + " " + a.unit + " (threshold " + fmt(a.threshold) + ")";
 }
 
+function peak(a) {
+  const fmt = a.unit === "Pa" ? (v) => v.toFixed(1) : num;
+  return fmt(a.peak) + (a.unit ? " " + a.unit : "");
+}
+
 function openAck(a) {
   acking = a;
   document.getElementById("ack-what").replaceChildren(
@@ -64,21 +69,23 @@ function render() {
     box.replaceChildren(el("p", { class: "muted" }, view === "active" ? "No alarm open." : "No alarm in the last 7 days."));
     return;
   }
+  const td = (label, cls, ...c) => el("td", { class: cls, dataset: { label } }, ...c);
   box.replaceChildren(el("table", { class: "alarm-table" },
-    el("thead", {}, el("tr", {}, ["State", "Level", "Zone", "Kind", "Where", "Since", "Value", "Message", "Acknowledged", ""].map((h) => el("th", {}, h)))),
+    el("thead", {}, el("tr", {}, ["State", "Level", "Zone", "Kind", "Where", "Since", "Value", "Peak", "Message", "Acknowledged", ""].map((h) => el("th", {}, h)))),
     el("tbody", {}, list.map((a) => el("tr", { class: acking && acking.id === a.id ? "ack-open" : "", dataset: { alarmId: a.id, state: a.state } },
-      el("td", {}, alarmStateBadge(a.state), a.latched && a.condition_gone && a.state !== "cleared" ? el("div", { class: "muted" }, "condition gone, latched") : ""),
-      el("td", {}, levelBadge(a.level)),
-      el("td", {}, el("a", { href: "/zones/" + encodeURIComponent(a.zone) }, a.zone)),
-      el("td", {}, a.kind),
-      el("td", {}, where(a)),
-      el("td", {}, timeEl(a.since, true)),
-      el("td", {}, value(a)),
-      el("td", {}, a.message),
-      el("td", { class: "acked" }, a.acknowledged_by ? [a.acknowledged_by, a.acknowledged_at ? [" ", timeEl(a.acknowledged_at, true)] : "", a.comment ? [el("br"), "“" + a.comment + "”"] : ""] : "—"),
-      el("td", {}, a.state === "active"
+      td("State", "", alarmStateBadge(a.state), a.latched && a.condition_gone && a.state !== "cleared" ? el("div", { class: "muted" }, "condition gone, latched") : ""),
+      td("Level", "", levelBadge(a.level)),
+      td("Zone", "", el("a", { href: "/zones/" + encodeURIComponent(a.zone) }, a.zone)),
+      td("Kind", "", a.kind),
+      td("Where", "", where(a)),
+      td("Since", "", timeEl(a.since, true)),
+      td("Value", "", value(a)),
+      td("Peak", "", typeof a.peak === "number" && a.peak_time ? [peak(a), " at ", timeEl(a.peak_time, true)] : "—"),
+      td("Message", "wide", a.message),
+      td("Acknowledged", "acked", a.acknowledged_by ? [a.acknowledged_by, a.acknowledged_at ? [" ", timeEl(a.acknowledged_at, true)] : "", a.comment ? [el("br"), "“" + a.comment + "”"] : ""] : "—"),
+      td("", "act", a.state === "active"
         ? el("button", { type: "button", class: "ack-btn", onclick: () => openAck(a) }, "Acknowledge")
-        : ""),
+        : "", " ", el("a", { class: "investigate", href: "/alarms/" + pathSegment(a.id) + "/investigation" }, "Investigate")),
     )))));
 }
 

@@ -3,7 +3,7 @@
 // download the HTML report and the JSON. The address keeps zone, from and
 // to, so a result can be bookmarked or sent.
 
-import { init, get, request, download, explain, el, icon, num, targetText, timeEl } from "./common.js";
+import { init, get, request, download, explain, el, icon, num, targetText, timeEl, wallParts, fromWall, tzLabel } from "./common.js";
 
 const HOUR = 3600e3;
 const PRESETS = { "24h": 24 * HOUR, "7d": 7 * 24 * HOUR, "30d": 30 * 24 * HOUR };
@@ -16,11 +16,12 @@ function setMsg(id, text, kind) {
   m.className = "msg" + (kind ? " " + kind : "");
 }
 
-// localValue writes a time for a datetime-local input (local time).
+// localValue writes a time for a datetime-local input, on the site's
+// clock (the input has no zone of its own; the note beside it names it).
 function localValue(ms) {
-  const d = new Date(ms);
+  const w = wallParts(ms);
   const p = (n) => String(n).padStart(2, "0");
-  return d.getFullYear() + "-" + p(d.getMonth() + 1) + "-" + p(d.getDate()) + "T" + p(d.getHours()) + ":" + p(d.getMinutes()) + ":" + p(d.getSeconds());
+  return w.y + "-" + p(w.mo) + "-" + p(w.d) + "T" + p(w.h) + ":" + p(w.mi) + ":" + p(w.s);
 }
 
 function preset(span) {
@@ -29,19 +30,20 @@ function preset(span) {
   document.getElementById("cert-to").value = localValue(to);
 }
 
+// isoOf reads an input's site-clock time as an instant.
 function isoOf(id) {
-  const v = document.getElementById(id).value;
-  const d = new Date(v);
-  if (!v || Number.isNaN(d.getTime())) return "";
-  return d.toISOString().replace(".000Z", "Z");
+  const m = /^(\d{4})-(\d{2})-(\d{2})T(\d{2}):(\d{2})(?::(\d{2}))?/.exec(document.getElementById(id).value);
+  if (!m) return "";
+  const t = fromWall(+m[1], +m[2], +m[3], +m[4], +m[5], +(m[6] || 0));
+  return new Date(t).toISOString().replace(".000Z", "Z");
 }
 
 function result(l, size) {
   const p = l.pass_by_size ? l.pass_by_size[size] : null;
   if (p === null || p === undefined) return el("span", {}, "not judged");
   return p
-    ? el("span", { class: "badge st-in-class" }, icon("check"), el("span", { class: "word" }, "WITHIN"))
-    : el("span", { class: "badge st-out-of-class" }, icon("cross"), el("span", { class: "word" }, "OVER LIMIT"));
+    ? el("span", { class: "badge st-in-class" }, icon("gauge-0"), el("span", { class: "word" }, "WITHIN"))
+    : el("span", { class: "badge st-out-of-class" }, icon("gauge-4"), el("span", { class: "word" }, "OVER LIMIT"));
 }
 
 function show(rep) {
@@ -49,7 +51,7 @@ function show(rep) {
   const v = document.getElementById("verdict");
   v.className = "verdict " + (pass ? "pass" : "fail");
   v.dataset.verdict = rep.verdict;
-  v.replaceChildren(icon(pass ? "check" : "cross"), el("span", { class: "word" }, pass ? "PASS" : "FAIL"));
+  v.replaceChildren(icon(pass ? "gauge-0" : "gauge-4"), el("span", { class: "word" }, pass ? "PASS" : "FAIL"));
 
   const dd = (k, ...v) => [el("dt", {}, k), el("dd", {}, ...v)];
   const locs = rep.locations || [];
@@ -148,9 +150,7 @@ function wire() {
 
 init().then(async () => {
   wire();
-  const off = -new Date().getTimezoneOffset();
-  document.getElementById("tz-note").textContent = "Times are this browser's local time (UTC" + (off >= 0 ? "+" : "−") +
-    String(Math.floor(Math.abs(off) / 60)).padStart(2, "0") + ":" + String(Math.abs(off) % 60).padStart(2, "0") + ").";
+  document.getElementById("tz-note").textContent = "Times are on the site's clock (" + tzLabel() + ").";
   try {
     await loadZones();
   } catch (e) {

@@ -1,11 +1,11 @@
 // Time charts drawn as SVG by hand: a log or linear value axis, a time
-// axis in local time, lines that break across gaps in the data, a min–max
+// axis on the site's clock, lines that break across gaps in the data, a min–max
 // band, threshold lines with their names, and a readout under the pointer.
 // Each series differs in dash pattern and marker shape as well as colour,
 // so that a chart reads in monochrome. A year of hourly points (8 760 per
 // series) is one path element per series.
 
-import { el, svgEl, num } from "./common.js";
+import { el, svgEl, num, wallParts, fromWall, offsetMinutes, timeText } from "./common.js";
 
 const W = 1000;
 const H = 330;
@@ -72,40 +72,45 @@ function linearAxis(lo, hi) {
   return { ticks, y: (v) => M.top + (H - M.top - M.bottom) * (1 - (v - a) / (b - a)) };
 }
 
+// timeTicks places ticks on the site's clock: months on the 1st, days at
+// midnight, hours and minutes on round wall-clock values.
 function timeTicks(from, to) {
   const span = to - from;
   const step = TIME_STEPS.find((s) => span / s <= 8) || TIME_STEPS[TIME_STEPS.length - 1];
   const out = [];
-  let t;
+  const w = wallParts(from);
   if (step >= 30 * DAY) {
-    const d = new Date(from);
-    d.setHours(0, 0, 0, 0);
-    d.setDate(1);
     const months = Math.round(step / (30 * DAY));
-    for (let m = new Date(d); m.getTime() <= to; m.setMonth(m.getMonth() + months)) {
-      if (m.getTime() >= from) out.push(m.getTime());
+    for (let i = 0; i < 40; i++) {
+      const t = fromWall(w.y, w.mo + i * months, 1, 0, 0, 0);
+      if (t > to) break;
+      if (t >= from) out.push(t);
     }
     return { step, ticks: out };
   }
   if (step >= DAY) {
-    const d = new Date(from);
-    d.setHours(0, 0, 0, 0);
-    t = d.getTime();
-  } else {
-    // Align to the local clock: offset in ms from UTC at `from`.
-    const off = new Date(from).getTimezoneOffset() * MINUTE;
-    t = Math.floor((from - off) / step) * step + off;
+    const days = Math.round(step / DAY);
+    for (let i = 0; i < 400; i++) {
+      const t = fromWall(w.y, w.mo, w.d + i * days, 0, 0, 0);
+      if (t > to) break;
+      if (t >= from) out.push(t);
+    }
+    return { step, ticks: out };
   }
-  for (; t <= to; t += step) if (t >= from) out.push(t);
+  // Align to the site's clock: its offset from UTC at `from`.
+  const off = -offsetMinutes(from) * MINUTE;
+  for (let t = Math.floor((from - off) / step) * step + off; t <= to; t += step) if (t >= from) out.push(t);
   return { step, ticks: out };
 }
 
+// timeLabel is ISO-ordered: "2026-12" for months, "12-02" for days,
+// "14:00" for times, the date at midnight.
 function timeLabel(t, step) {
-  const d = new Date(t);
-  if (step >= DAY) return d.toLocaleDateString(undefined, { day: "2-digit", month: "short" });
-  const hm = d.toLocaleTimeString(undefined, { hour: "2-digit", minute: "2-digit", hour12: false });
-  if (d.getHours() === 0 && d.getMinutes() === 0) return d.toLocaleDateString(undefined, { day: "2-digit", month: "short" });
-  return hm;
+  const w = wallParts(t);
+  const p = (n) => String(n).padStart(2, "0");
+  if (step >= 30 * DAY) return w.y + "-" + p(w.mo);
+  if (step >= DAY || (w.h === 0 && w.mi === 0)) return p(w.mo) + "-" + p(w.d);
+  return p(w.h) + ":" + p(w.mi);
 }
 
 function marker(shape, x, y, color) {
@@ -285,7 +290,7 @@ export function timeChart({ title, unit, log, from, to, series, thresholds = [],
     cursor.setAttribute("x1", x);
     cursor.setAttribute("x2", x);
     cursor.setAttribute("visibility", "visible");
-    const bits = [new Date(at).toLocaleString(undefined, { hour12: false })];
+    const bits = [timeText(at, true)];
     for (const s of series) {
       if (!s.t.length) continue;
       const i = nearest(s.t, at);

@@ -200,38 +200,58 @@ function wireSignIn() {
 
 // --- state vocabulary ---------------------------------------------------
 
-// Every state has a word, a shape and a colour, so that it reads without
-// colour (colour-blind operators, monochrome print) and from across a room.
+// Marks of two families that never look alike. A zone's state (and its
+// attention, and a DP sensor's state) is a round gauge that fills as it
+// gets worse, in a rounded pill: an open ring with a dot (nothing to do),
+// a quarter, a half, a full disc. Unknown is a dashed, hatched ring with a
+// "?", in a hatched pill, so that it cannot pass for any filled amount,
+// in colour or in monochrome. An alarm is a pennant on a pole in a
+// square-cornered tag with a heavy left edge. Every mark carries its word.
+
+// ATTENTION is the headline of a zone: what needs a person.
+export const ATTENTION = {
+  none: { word: "CLEAR", icon: "gauge-0", cls: "in-class" },
+  alert: { word: "ALERT", icon: "gauge-1", cls: "alert" },
+  action: { word: "ACTION", icon: "gauge-2", cls: "action" },
+  "out-of-class": { word: "OUT OF CLASS", icon: "gauge-4", cls: "out-of-class" },
+  unknown: { word: "UNKNOWN", icon: "unknown", cls: "unknown" },
+};
+
+// STATES is the particle judgement of a zone or location.
 export const STATES = {
-  "in-class": { word: "IN CLASS", icon: "check" },
-  alert: { word: "ALERT", icon: "triangle" },
-  action: { word: "ACTION", icon: "diamond" },
-  "out-of-class": { word: "OUT OF CLASS", icon: "cross" },
-  unknown: { word: "UNKNOWN", icon: "question" },
+  "in-class": { word: "IN CLASS", icon: "gauge-0", cls: "in-class" },
+  alert: { word: "ALERT", icon: "gauge-1", cls: "alert" },
+  action: { word: "ACTION", icon: "gauge-2", cls: "action" },
+  "out-of-class": { word: "OUT OF CLASS", icon: "gauge-4", cls: "out-of-class" },
+  unknown: { word: "UNKNOWN", icon: "unknown", cls: "unknown" },
 };
 
-// DP sensor states, drawn with the same shapes by severity.
+// DP sensor states, on the same gauge by severity. "unknown" is what the
+// sensors list said before it named silence.
 export const DP_STATES = {
-  ok: { word: "OK", icon: "check", cls: "in-class" },
-  low: { word: "BELOW MIN", icon: "triangle", cls: "alert" },
-  high: { word: "ABOVE MAX", icon: "triangle", cls: "alert" },
-  reversed: { word: "REVERSED", icon: "cross", cls: "out-of-class" },
-  unknown: { word: "NO DATA", icon: "question", cls: "unknown" },
+  ok: { word: "OK", icon: "gauge-0", cls: "in-class" },
+  low: { word: "BELOW MIN", icon: "gauge-1", cls: "alert" },
+  high: { word: "ABOVE MAX", icon: "gauge-1", cls: "alert" },
+  reversed: { word: "REVERSED", icon: "gauge-4", cls: "out-of-class" },
+  silent: { word: "SILENT", icon: "unknown", cls: "unknown" },
+  unknown: { word: "NO DATA", icon: "unknown", cls: "unknown" },
 };
 
+// Alarm states: the pennant is raised, held, acknowledged or lowered.
 export const ALARM_STATES = {
-  pending: { word: "PENDING", icon: "question", cls: "unknown" },
-  active: { word: "ACTIVE", icon: "cross", cls: "out-of-class" },
-  acknowledged: { word: "ACKNOWLEDGED", icon: "triangle", cls: "alert" },
-  cleared: { word: "CLEARED", icon: "check", cls: "in-class" },
+  delayed: { word: "DELAYED", icon: "hourglass", cls: "al-delayed" },
+  active: { word: "ACTIVE", icon: "pennant-up", cls: "al-active" },
+  acknowledged: { word: "ACKNOWLEDGED", icon: "pennant-ack", cls: "al-acked" },
+  cleared: { word: "CLEARED", icon: "pennant-down", cls: "al-cleared" },
 };
 
+// Alarm levels, in the alarm family too.
 export const LEVELS = {
-  alert: { word: "ALERT", icon: "triangle", cls: "alert" },
-  action: { word: "ACTION", icon: "diamond", cls: "action" },
+  alert: { word: "ALERT LEVEL", icon: "pennant", cls: "al-alert" },
+  action: { word: "ACTION LEVEL", icon: "pennant-up", cls: "al-action" },
 };
 
-// icon draws one of the state shapes as SVG in the current text colour.
+// icon draws one mark as SVG in the current text colour.
 export function icon(kind) {
   const svg = document.createElementNS(SVG_NS, "svg");
   svg.setAttribute("viewBox", "0 0 20 20");
@@ -244,61 +264,116 @@ export function icon(kind) {
     svg.append(n);
     return n;
   };
+  const ring = (dash) => add("circle", { cx: 10, cy: 10, r: 8.3, fill: "none", stroke: "currentColor", "stroke-width": 2.2, "stroke-dasharray": dash || "none" });
+  const pole = () => add("path", { d: "M4 1.5V19", stroke: "currentColor", "stroke-width": 2.2, "stroke-linecap": "round", fill: "none" });
   switch (kind) {
-    case "check":
-      add("circle", { cx: 10, cy: 10, r: 9, fill: "currentColor" });
-      add("path", { d: "M5.5 10.5l3 3 6-7", class: "mk-s", "stroke-width": 2.4, "stroke-linecap": "round", "stroke-linejoin": "round" });
+    case "gauge-0":
+      ring();
+      add("circle", { cx: 10, cy: 10, r: 2.6, fill: "currentColor" });
       break;
-    case "triangle":
-      add("path", { d: "M10 1.5L19 18H1z", fill: "currentColor" });
-      add("path", { d: "M10 7v5.5", class: "mk-s", "stroke-width": 2.2, "stroke-linecap": "round" });
-      add("circle", { cx: 10, cy: 15.2, r: 1.2, class: "mk-f" });
+    case "gauge-1":
+      ring();
+      add("path", { d: "M10 10V2.6A7.4 7.4 0 0 1 17.4 10z", fill: "currentColor" });
       break;
-    case "diamond":
-      add("path", { d: "M10 0.8L19.2 10 10 19.2 0.8 10z", fill: "currentColor" });
-      add("path", { d: "M10 5.5v5.5", class: "mk-s", "stroke-width": 2.2, "stroke-linecap": "round" });
-      add("circle", { cx: 10, cy: 14, r: 1.2, class: "mk-f" });
+    case "gauge-2":
+      ring();
+      add("path", { d: "M10 2.6A7.4 7.4 0 0 1 10 17.4z", fill: "currentColor" });
       break;
-    case "cross":
-      add("rect", { x: 1, y: 1, width: 18, height: 18, rx: 2, fill: "currentColor" });
-      add("path", { d: "M6 6l8 8M14 6l-8 8", class: "mk-s", "stroke-width": 2.6, "stroke-linecap": "round" });
+    case "gauge-4":
+      add("circle", { cx: 10, cy: 10, r: 9.4, fill: "currentColor" });
       break;
-    default:
-      add("circle", { cx: 10, cy: 10, r: 8.2, fill: "none", stroke: "currentColor", "stroke-width": 2, "stroke-dasharray": "3 2" });
-      add("text", { x: 10, y: 14.5, "text-anchor": "middle", "font-size": 12, "font-weight": 700, fill: "currentColor" }).textContent = "?";
+    case "hourglass":
+      add("path", { d: "M4 2h12M4 18h12M5.5 2.5c0 5 9 5 9 15M14.5 2.5c0 5-9 5-9 15", stroke: "currentColor", "stroke-width": 2, fill: "none", "stroke-linecap": "round" });
+      break;
+    case "pennant":
+      pole();
+      add("path", { d: "M5 2.5L17.5 6.5 5 10.5z", fill: "none", stroke: "currentColor", "stroke-width": 1.8, "stroke-linejoin": "round" });
+      break;
+    case "pennant-up":
+      pole();
+      add("path", { d: "M5 2L18.5 6.5 5 11z", fill: "currentColor" });
+      break;
+    case "pennant-ack":
+      pole();
+      add("path", { d: "M5 2L18.5 6.5 5 11z", fill: "currentColor" });
+      add("path", { d: "M9 15.5l2.5 2.5 5-5.5", stroke: "currentColor", "stroke-width": 2.2, fill: "none", "stroke-linecap": "round", "stroke-linejoin": "round" });
+      break;
+    case "pennant-down":
+      pole();
+      add("path", { d: "M5 11.5L17.5 15 5 18.5z", fill: "none", stroke: "currentColor", "stroke-width": 1.8, "stroke-linejoin": "round" });
+      break;
+    default: {
+      // unknown: a dashed ring, hatched inside, with a question mark
+      ring("3 2.4");
+      add("path", { d: "M5 13L13 5M7 15L15 7", stroke: "currentColor", "stroke-width": 1, opacity: 0.45 });
+      add("text", { x: 10, y: 14.6, "text-anchor": "middle", "font-size": 13, "font-weight": 800, fill: "currentColor" }).textContent = "?";
+    }
   }
   return svg;
 }
 
-// badge is the state as icon and word; cls picks the colour and border.
-function badgeOf(def, cls, extra) {
-  return el("span", { class: "badge st-" + cls + (extra ? " " + extra : "") }, icon(def.icon), el("span", { class: "word" }, def.word));
+// clearContradicted lists what the page itself sees in a zone object that
+// forbids the clear headline: the particle state not in class, an open
+// alarm, a location that is not fresh and trusted, a DP sensor on its
+// boundary that is not ok. Empty: nothing contradicts the daemon.
+export function clearContradicted(z) {
+  const out = [];
+  if (z.state !== "in-class") out.push("the particle state is " + (STATES[z.state] ? STATES[z.state].word.toLowerCase() : "unknown"));
+  const open = (Array.isArray(z.active_alarms) ? z.active_alarms : []).filter((a) => a.state !== "cleared" && a.state !== "delayed");
+  if (open.length) out.push(open.length + (open.length === 1 ? " alarm is open" : " alarms are open"));
+  const stale = (z.locations || []).filter((l) => l.fresh === false || l.trusted === false).map((l) => l.id);
+  if (stale.length) out.push("not current: " + stale.join(", "));
+  const dp = (Array.isArray(z.sensors) ? z.sensors : []).filter((s) => dpStatus(s) !== "ok").map((s) => (s.id || s.sensor) + " " + dpStatus(s));
+  if (dp.length) out.push("DP " + dp.join(", "));
+  return out;
 }
 
-export function stateBadge(state, extra) {
-  const def = STATES[state] || STATES.unknown;
-  const b = badgeOf(def, STATES[state] ? state : "unknown", extra);
-  b.dataset.state = STATES[state] ? state : "unknown";
+// badgeOf is a mark with its word; cls picks the colours, family the
+// shape of the pill (zone states) or tag (alarms).
+function badgeOf(def, family, extra) {
+  return el("span", { class: family + " st-" + def.cls + (extra ? " " + extra : "") }, icon(def.icon), el("span", { class: "word" }, def.word));
+}
+
+// attentionBadge is a zone's headline. An absent or unrecognised
+// attention is UNKNOWN: never the clear mark by default.
+export function attentionBadge(attention, extra) {
+  const known = Object.hasOwn(ATTENTION, attention || "");
+  const b = badgeOf(known ? ATTENTION[attention] : ATTENTION.unknown, "badge", extra);
+  b.dataset.attention = known ? attention : "unknown";
   return b;
 }
 
+export function stateBadge(state, extra) {
+  const known = Object.hasOwn(STATES, state || "");
+  const b = badgeOf(known ? STATES[state] : STATES.unknown, "badge", extra);
+  b.dataset.state = known ? state : "unknown";
+  return b;
+}
+
+// dpStatus is a sensor's status, whichever of the two names the API uses.
+export function dpStatus(s) {
+  return s.status || s.state || "unknown";
+}
+
 export function dpBadge(state, extra) {
-  const def = DP_STATES[state] || DP_STATES.unknown;
-  const b = badgeOf(def, def.cls, extra);
+  const def = Object.hasOwn(DP_STATES, state || "") ? DP_STATES[state] : DP_STATES.unknown;
+  const b = badgeOf(def, "badge", extra);
   b.dataset.state = state;
   return b;
 }
 
 export function alarmStateBadge(state) {
-  const def = ALARM_STATES[state] || { word: String(state).toUpperCase(), icon: "question", cls: "unknown" };
-  const b = badgeOf(def, def.cls);
+  const def = Object.hasOwn(ALARM_STATES, state || "") ? ALARM_STATES[state] : { word: String(state).toUpperCase(), icon: "hourglass", cls: "al-delayed" };
+  const b = badgeOf(def, "tag");
   b.dataset.state = state;
   return b;
 }
 
 export function levelBadge(level) {
-  const def = LEVELS[level] || { word: String(level).toUpperCase(), icon: "question", cls: "unknown" };
-  return badgeOf(def, def.cls);
+  const def = Object.hasOwn(LEVELS, level || "") ? LEVELS[level] : { word: String(level).toUpperCase(), icon: "pennant", cls: "al-alert" };
+  const b = badgeOf(def, "tag");
+  b.dataset.level = level;
+  return b;
 }
 
 // fillLegendIcons puts the shapes into a static legend's <i data-icon>.
@@ -362,18 +437,98 @@ export function pct(v) {
   return (v >= 10 ? Math.round(v * 100).toString() : (v * 100).toFixed(v < 0.1 ? 1 : 0)) + " %";
 }
 
-// Times are shown in the browser's local time, with the full UTC time as
-// a tooltip: the wall screen shows the clock the room runs on.
+// --- the site's clock -----------------------------------------------------
+
+// Every time is shown in the site's time zone (from GET /ui/site), in
+// 24-hour ISO form, never in the browser's locale or zone: a wall screen,
+// a laptop abroad and the printed report must agree. Until the site's zone
+// is known, times are shown in UTC and say so.
+let siteTZ = "UTC";
+let tzFormat = null;
+
+function setTimeZone(name) {
+  try {
+    tzFormat = new Intl.DateTimeFormat("en-GB", {
+      timeZone: name, hourCycle: "h23",
+      year: "numeric", month: "2-digit", day: "2-digit", hour: "2-digit", minute: "2-digit", second: "2-digit",
+    });
+    siteTZ = name;
+  } catch {
+    // a zone this browser does not know: UTC, and the label says so
+    tzFormat = null;
+    siteTZ = "UTC";
+  }
+  const n = document.getElementById("tz");
+  if (n) {
+    n.textContent = "Times: " + tzLabel();
+    n.dataset.tz = siteTZ;
+  }
+}
+
+// wallParts is the site's wall clock at ms: numbers y, mo, d, h, mi, s.
+export function wallParts(ms) {
+  if (!tzFormat) {
+    const d = new Date(ms);
+    return { y: d.getUTCFullYear(), mo: d.getUTCMonth() + 1, d: d.getUTCDate(), h: d.getUTCHours(), mi: d.getUTCMinutes(), s: d.getUTCSeconds() };
+  }
+  const p = {};
+  for (const x of tzFormat.formatToParts(new Date(ms))) p[x.type] = x.value;
+  return { y: +p.year, mo: +p.month, d: +p.day, h: +p.hour % 24, mi: +p.minute, s: +p.second };
+}
+
+// offsetMinutes is the site's offset from UTC at ms.
+export function offsetMinutes(ms) {
+  const w = wallParts(ms);
+  const asUTC = Date.UTC(w.y, w.mo - 1, w.d, w.h, w.mi, w.s);
+  return Math.round((asUTC - Math.floor(ms / 1000) * 1000) / 60000);
+}
+
+// fromWall is the instant at which the site's clock reads the given wall
+// time (month 1–12); in a gap or an overlap of summer time, the earlier.
+export function fromWall(y, mo, d, h, mi, s) {
+  const guess = Date.UTC(y, mo - 1, d, h || 0, mi || 0, s || 0);
+  let t = guess - offsetMinutes(guess) * 60000;
+  t = guess - offsetMinutes(t) * 60000;
+  return t;
+}
+
+const p2 = (n) => String(n).padStart(2, "0");
+
+function offsetText(min) {
+  return (min < 0 ? "−" : "+") + p2(Math.floor(Math.abs(min) / 60)) + ":" + p2(Math.abs(min) % 60);
+}
+
+// tzLabel names the site's zone and its offset now: "CET, UTC+01:00".
+export function tzLabel() {
+  return siteTZ + (siteTZ === "UTC" ? "" : ", UTC" + offsetText(offsetMinutes(Date.now())));
+}
+
+export function siteTimeZone() {
+  return siteTZ;
+}
+
+// timeText is "HH:MM:SS", or with the date "YYYY-MM-DD HH:MM:SS", on the
+// site's clock.
 export function timeText(iso, withDate) {
   if (!iso) return "—";
-  const d = new Date(iso);
-  const opts = { hour: "2-digit", minute: "2-digit", second: "2-digit", hour12: false };
-  if (withDate) Object.assign(opts, { year: "numeric", month: "2-digit", day: "2-digit" });
-  return d.toLocaleString(undefined, opts);
+  const ms = typeof iso === "number" ? iso : Date.parse(iso);
+  if (!Number.isFinite(ms)) return "—";
+  const w = wallParts(ms);
+  const hms = p2(w.h) + ":" + p2(w.mi) + ":" + p2(w.s);
+  return withDate ? w.y + "-" + p2(w.mo) + "-" + p2(w.d) + " " + hms : hms;
+}
+
+// isoText is the full ISO 8601 form with the site's offset, for tooltips
+// and machine-readable attributes.
+export function isoText(ms) {
+  const w = wallParts(ms);
+  return w.y + "-" + p2(w.mo) + "-" + p2(w.d) + "T" + p2(w.h) + ":" + p2(w.mi) + ":" + p2(w.s) + offsetText(offsetMinutes(ms)).replace("−", "-");
 }
 
 export function timeEl(iso, withDate) {
-  return el("time", { datetime: iso || "", title: iso ? new Date(iso).toISOString() : "" }, timeText(iso, withDate));
+  const ms = iso ? Date.parse(iso) : NaN;
+  const ok = Number.isFinite(ms);
+  return el("time", { datetime: ok ? new Date(ms).toISOString() : "", title: ok ? isoText(ms) + " (" + siteTZ + ")" : "" }, timeText(iso, withDate));
 }
 
 export function ago(iso, now) {
@@ -437,12 +592,30 @@ export function poll(fn, every) {
   };
 }
 
-export function init() {
+// siteInfo is GET /ui/site, fetched again at most every 30 s: the
+// layout, the site's zone and its shifts (the current shift moves).
+let siteCache = null;
+let siteAt = 0;
+
+export async function siteInfo(fresh) {
+  if (!siteCache || fresh || Date.now() - siteAt > 30000) {
+    siteCache = await get("/ui/site");
+    siteAt = Date.now();
+    setTimeZone(siteCache.time_zone || "UTC");
+  }
+  return siteCache;
+}
+
+export async function init() {
   const page = document.body.dataset.page;
   for (const a of document.querySelectorAll("[data-nav]")) {
     if (a.dataset.nav === page) a.setAttribute("aria-current", "page");
   }
+  setTimeZone("UTC");
   fillLegendIcons();
   wireSignIn();
-  return refreshSession();
+  await refreshSession();
+  // The clock needs read access; without it times stay in UTC, labelled.
+  await siteInfo(true).catch(() => null);
+  sessionListeners.push(() => siteInfo(true).catch(() => null));
 }

@@ -12,10 +12,10 @@ const CHANNELS = [
 ];
 
 const ENV_STATES = {
-  ok: { word: "IN BAND", icon: "check", cls: "in-class" },
-  alert: { word: "OUTSIDE ALERT BAND", icon: "triangle", cls: "alert" },
-  action: { word: "OUTSIDE ACTION BAND", icon: "diamond", cls: "action" },
-  unknown: { word: "NO DATA", icon: "question", cls: "unknown" },
+  ok: { word: "IN BAND", icon: "gauge-0", cls: "in-class" },
+  alert: { word: "OUTSIDE ALERT BAND", icon: "gauge-1", cls: "alert" },
+  action: { word: "OUTSIDE ACTION BAND", icon: "gauge-2", cls: "action" },
+  unknown: { word: "NO DATA", icon: "unknown", cls: "unknown" },
 };
 
 function envBadge(state) {

@@ -70,6 +70,12 @@ type Counter struct {
 	Source   string         `yaml:"source"`     // "push" (default), or "modbus" (the default when a modbus section is given)
 	// Modbus is where and how to poll the counter when its source is modbus.
 	Modbus *ModbusSource `yaml:"modbus"`
+	// Model, Serial and CalibrationDue (a date, 2006-01-02: the last day
+	// the calibration is valid) identify the instrument in certification
+	// reports; the site configuration checks the date.
+	Model          string `yaml:"model"`
+	Serial         string `yaml:"serial"`
+	CalibrationDue string `yaml:"calibration_due"`
 }
 
 // Sensor is the configuration of one differential-pressure sensor between

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"encoding/json"
 	"errors"
 	"flag"
 	"fmt"
@@ -78,4 +79,14 @@ func writeOutput(name string, stdout io.Writer, write func(io.Writer) error) err
 		return err
 	}
 	return os.Rename(tmp, name)
+}
+
+// printJSON writes v as indented JSON, the form of every --json output.
+func printJSON(w io.Writer, v any) int {
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	if err := enc.Encode(v); err != nil {
+		return exitFail
+	}
+	return exitOK
 }

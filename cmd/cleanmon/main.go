@@ -31,6 +31,7 @@ func commands() []command {
 		{"limits", "print ISO 14644-1 class limits or EU GMP grade limits", runLimits},
 		{"plan", "print the sampling plan for a zone: locations, volume, time", runPlan},
 		{"certify", "evaluate planned samples against a class and print the verdict", runCertify},
+		{"recovery", "fit the recovery rate and 100:1 time after a particle challenge (ISO 14644-3)", runRecovery},
 		{"backup", "write a consistent copy of a store to a file", runBackup},
 		{"verify", "check a store's consistency and integrity", runVerify},
 		{"report", "print a zone's month on one page: report trend --zone Z --month YYYY-MM", runReport},

@@ -4,8 +4,11 @@ import (
 	"bytes"
 	"encoding/json"
 	"flag"
+	"fmt"
 	"os"
+	"os/exec"
 	"path/filepath"
+	"regexp"
 	"strings"
 	"testing"
 )
@@ -43,25 +46,39 @@ func golden(t *testing.T, name, got string) {
 func TestCertifyGolden(t *testing.T) {
 	hood := filepath.Join(repo, "testdata", "samples-coating-hood.csv")
 	asm := filepath.Join(repo, "testdata", "samples-assembly.csv")
-	meta := []string{"--site", "Veldmark Photonics, building C", "--date", "2026-03-03", "--by", "Q. Example"}
+	seq := filepath.Join(repo, "testdata", "samples-sequential.csv")
+	rec := filepath.Join(repo, "testdata", "samples-recovery.csv")
+	instr := filepath.Join(repo, "testdata", "instruments.csv")
+	meta := []string{"--site", "Veldmark Photonics, building C", "--date", "2026-03-03", "--by", "Q. Example",
+		"--organisation", "Veldmark Photonics, quality assurance", "--operator", "R. Sample"}
+	hoodArgs := []string{"certify", "--class", "5", "--area", "3", "--sizes", "0.3,0.5", "--state", "in-operation", "--zone", "coating-hood",
+		"--instruments", instr, "--length", "2", "--width", "1.5", "--macro", "M(2000; >5 µm); microscopic sizing on a membrane filter", hood}
+	asmArgs := []string{"certify", "--class", "7", "--area", "60", "--sizes", "0.5,5", "--state", "in-operation", "--zone", "assembly", "--length", "10", "--width", "6", asm}
+	with := func(a []string, more ...string) []string { return append(append([]string{}, a...), more...) }
 	for _, tc := range []struct {
 		golden string
 		args   []string
 		code   int
 	}{
-		{"certify-coating-hood.txt", []string{"certify", "--class", "5", "--area", "3", "--sizes", "0.3,0.5", "--state", "in-operation", "--zone", "coating-hood", hood}, 0},
-		{"certify-coating-hood.json", []string{"certify", "--class", "5", "--area", "3", "--sizes", "0.3,0.5", "--state", "in-operation", "--zone", "coating-hood", "--format", "json", hood}, 0},
-		{"certify-assembly.txt", []string{"certify", "--class", "7", "--area", "60", "--sizes", "0.5,5", "--state", "in-operation", "--zone", "assembly", asm}, 1},
-		{"certify-assembly.json", []string{"certify", "--class", "7", "--area", "60", "--sizes", "0.5,5", "--state", "in-operation", "--zone", "assembly", "--format", "json", asm}, 1},
-		{"certify-assembly.html", []string{"certify", "--class", "7", "--area", "60", "--sizes", "0.5,5", "--state", "in-operation", "--zone", "assembly", "--format", "html", asm}, 1},
-		{"certify-assembly-1999.txt", []string{"certify", "--class", "7", "--area", "60", "--sizes", "0.5,5", "--state", "in-operation", "--edition", "1999", "--zone", "assembly", asm}, 1},
+		{"certify-coating-hood.txt", hoodArgs, 0},
+		{"certify-coating-hood.json", with(hoodArgs, "--format", "json"), 0},
+		{"certify-coating-hood.html", with(hoodArgs, "--format", "html"), 0},
+		{"certify-assembly.txt", asmArgs, 1},
+		{"certify-assembly.json", with(asmArgs, "--format", "json"), 1},
+		{"certify-assembly.html", with(asmArgs, "--format", "html"), 1},
+		{"certify-assembly-1999.txt", with(asmArgs, "--edition", "1999"), 1},
+		{"certify-sequential.txt", []string{"certify", "--class", "4", "--area", "4", "--sizes", "0.3,1", "--sequential", "--instruments", instr, "--zone", "metrology-bench", seq}, 0},
 		{"limits-iso5.txt", []string{"limits", "--class", "5"}, 0},
+		{"limits-fed-std.txt", []string{"limits", "--fed-std"}, 0},
 		{"plan-iso5-80m2.json", []string{"plan", "--class", "5", "--area", "80", "--sizes", "0.3,0.5", "--json"}, 0},
+		{"plan-iso4-layout.txt", []string{"plan", "--class", "4", "--length", "5", "--width", "2", "--sizes", "0.3,1"}, 0},
+		{"recovery.txt", []string{"recovery", "--size", "0.5", "--target-class", "5", rec}, 0},
+		{"recovery.json", []string{"recovery", "--size", "0.5", "--target-class", "5", "--format", "json", rec}, 0},
 	} {
 		t.Run(tc.golden, func(t *testing.T) {
 			args := tc.args
 			if args[0] == "certify" {
-				args = append(append([]string{}, args...), meta...)
+				args = with(args, meta...)
 			}
 			code, out, errs := runCLI(t, args...)
 			if code != tc.code {
@@ -70,6 +87,39 @@ func TestCertifyGolden(t *testing.T) {
 			golden(t, tc.golden, out)
 		})
 	}
+}
+
+// TestCertifyPDFGolden checks the PDF by its text, read back by poppler's
+// pdftotext, and its page count by pdfinfo: every page names the report
+// and its number.
+func TestCertifyPDFGolden(t *testing.T) {
+	totext, info := outsideTool(t, "pdftotext", "poppler-utils"), outsideTool(t, "pdfinfo", "poppler-utils")
+	out := filepath.Join(t.TempDir(), "r.pdf")
+	code, _, errs := runCLI(t, "certify", "--class", "7", "--area", "60", "--sizes", "0.5,5", "--state", "in-operation", "--zone", "assembly",
+		"--length", "10", "--width", "6", "--site", "Veldmark Photonics, building C", "--date", "2026-03-03",
+		"--organisation", "Veldmark Photonics, quality assurance", "--operator", "R. Sample", "--format", "pdf", "--out", out,
+		filepath.Join(repo, "testdata", "samples-assembly.csv"))
+	if code != 1 {
+		t.Fatalf("exit %d, want 1 (A07 fails); stderr %s", code, errs)
+	}
+	txt, err := exec.Command(totext, out, "-").Output()
+	if err != nil {
+		t.Fatal(err)
+	}
+	meta, err := exec.Command(info, out).Output()
+	if err != nil {
+		t.Fatal(err)
+	}
+	pages := strings.Count(strings.TrimRight(string(txt), "\f\n"), "\f") + 1
+	if !strings.Contains(string(meta), fmt.Sprintf("Pages:          %d", pages)) && !regexp.MustCompile(fmt.Sprintf(`(?m)^Pages:\s+%d$`, pages)).Match(meta) {
+		t.Errorf("pdfinfo and pdftotext disagree on %d pages:\n%s", pages, meta)
+	}
+	for i := 1; i <= pages; i++ {
+		if !strings.Contains(string(txt), fmt.Sprintf("page %d/%d", i, pages)) {
+			t.Errorf("no \"page %d/%d\" in the PDF", i, pages)
+		}
+	}
+	golden(t, "certify-assembly.pdf.txt", string(txt))
 }
 
 // The JSON shapes marked MUST by the project and in the certification
@@ -158,7 +208,10 @@ func TestCertifyBadInput(t *testing.T) {
 		{"class off step", good, []string{"--class", "4.55"}, "not in steps of 0.1"},
 		{"class 0.5", good, []string{"--class", "0.5"}, "outside 1–9"},
 		{"blank cell", good, []string{"--class", "5"}, "ISO 5 at 5 µm: no limit"},
-		{"bad format", good, []string{"--format", "pdf"}, "--format"},
+		{"bad format", good, []string{"--format", "docx"}, "--format"},
+		{"bad macro", good, []string{"--macro", "M(1,000; >5 µm); x"}, "--macro"},
+		{"missing instruments file", good, []string{"--instruments", "/nonexistent/instruments.csv"}, "instruments.csv"},
+		{"length without width", good, []string{"--length", "10"}, "--length and --width"},
 		{"bad edition", good, []string{"--edition", "2007"}, "--edition"},
 		{"no area", good, []string{"--area", "0"}, "--area"},
 	} {
@@ -190,7 +243,7 @@ func TestCertifyBadInput(t *testing.T) {
 func TestCertifyAllowBlankCells(t *testing.T) {
 	p := writeFile(t, t.TempDir(), "f.csv", "location,volume_l,0.5um,5um\nA,28.3,50,2\nB,28.3,40,1\n")
 	code, out, stderr := runCLI(t, "certify", "--class", "5", "--area", "3", "--sizes", "0.5,5", "--allow-blank-cells", p)
-	if code != 0 || !strings.Contains(out, "warning: 5 µm not judged") || !strings.Contains(out, "not judged") {
+	if code != 0 || !strings.Contains(out, "5 µm not judged") || !strings.Contains(out, "not judged") {
 		t.Errorf("exit %d stderr %q out:\n%s", code, stderr, out)
 	}
 }

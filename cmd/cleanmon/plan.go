@@ -1,18 +1,20 @@
 package main
 
 import (
-	"encoding/json"
 	"fmt"
 	"io"
+	"math"
 
 	"cleanmon/classify"
 	"cleanmon/cmd/cleanmon/internal/report"
 )
 
 func runPlan(args []string, stdout, stderr io.Writer) int {
-	fs := newFlags("plan", "--class N --area M2 --sizes LIST [--edition 2015|1999] [--flow LPM] [--json]   (or --grade A|B|C|D --state …)", stderr)
+	fs := newFlags("plan", "--class N (--area M2 | --length L --width W) --sizes LIST [--edition 2015|1999] [--flow LPM] [--json]   (or --grade A|B|C|D --state …)", stderr)
 	var tf targetFlags
 	tf.register(fs, "", true)
+	length := fs.Float64("length", 0, "zone length in m: with --width, gives the area and each location's coordinates")
+	width := fs.Float64("width", 0, "zone width in m (with --length)")
 	asJSON := fs.Bool("json", false, "print JSON")
 	pos, err := parseArgs(fs, args)
 	if err != nil {
@@ -21,39 +23,38 @@ func runPlan(args []string, stdout, stderr io.Writer) int {
 	if len(pos) > 0 {
 		return fail(stderr, "plan", fmt.Errorf("unexpected argument %q", pos[0]))
 	}
-	t, err := tf.target(true)
-	if err != nil {
-		return fail(stderr, "plan", err)
-	}
-	p, err := classify.MakePlan(t)
+	out, t, err := makePlan(&tf, *length, *width)
 	if err != nil {
 		return fail(stderr, "plan", err)
 	}
 	if *asJSON {
-		enc := json.NewEncoder(stdout)
-		enc.SetIndent("", "  ")
-		if err := enc.Encode(p); err != nil {
-			return exitFail
-		}
-		return exitOK
+		return printJSON(stdout, out)
 	}
-	printPlan(stdout, t, p)
+	report.WritePlan(stdout, t, out)
 	return exitOK
 }
 
-func printPlan(w io.Writer, t classify.Target, p classify.Plan) {
-	fmt.Fprintf(w, "Sampling plan: %s, %s, %s m², ISO 14644-1:%s\n", t.Name(), p.State, classify.FormatSize(p.AreaM2), p.Edition)
-	fmt.Fprintf(w, "  sampling locations (minimum)  %d\n", p.Locations)
-	fmt.Fprintf(w, "  largest considered size       %s µm (limit %s /m³)\n", classify.FormatSize(p.LargestSizeUM), report.GroupDigits(p.LimitAtLargestPerM3))
-	fmt.Fprintf(w, "  single sample volume (min)    %.2f L\n", p.SampleVolumeL)
-	fmt.Fprintf(w, "  sample time at %s L/min     %.2f min (%.2f L drawn)\n", classify.FormatSize(p.FlowLPM), p.SampleMinutes, p.VolumeAtFlowL)
-	if p.MinSamplesPerLocation > 1 {
-		fmt.Fprintf(w, "  samples per location (min)    %d\n", p.MinSamplesPerLocation)
+// makePlan checks the flags and makes the plan, its sequential-sampling
+// advice and, with a length and width, its layout.
+func makePlan(tf *targetFlags, length, width float64) (report.PlanSheet, classify.Target, error) {
+	var out report.PlanSheet
+	if (length > 0) != (width > 0) || length < 0 || width < 0 {
+		return out, classify.Target{}, fmt.Errorf("--length and --width: give both, in metres, or neither")
 	}
-	if p.MinVolumePerLocationL > 0 {
-		fmt.Fprintf(w, "  air per location (min)        %s L\n", report.GroupDigits(p.MinVolumePerLocationL))
+	if length > 0 {
+		a := length * width
+		if tf.area > 0 && math.Abs(tf.area-a) > 1e-9*a {
+			return out, classify.Target{}, fmt.Errorf("--area %s m² differs from --length × --width = %s m²; give one or the other", classify.FormatSize(tf.area), classify.FormatSize(a))
+		}
+		tf.area = a
 	}
-	for _, n := range p.Notes {
-		fmt.Fprintf(w, "note: %s\n", n)
+	t, err := tf.target(true)
+	if err != nil {
+		return out, t, err
 	}
+	p, err := classify.MakePlan(t)
+	if err == nil {
+		out, err = report.NewPlanSheet(p, length, width)
+	}
+	return out, t, err
 }

@@ -32,7 +32,7 @@ func TestREADMEExamples(t *testing.T) {
 		if i+2 >= len(lines) || lines[i+1] != "```console" || !strings.HasPrefix(lines[i+2], "$ go run ./cmd/cleanmon ") {
 			t.Fatalf("README line %d: an example marker must be followed by a console block starting with $ go run ./cmd/cleanmon", i+1)
 		}
-		args := strings.Fields(strings.TrimPrefix(lines[i+2], "$ go run ./cmd/cleanmon "))
+		args := shellWords(strings.TrimPrefix(lines[i+2], "$ go run ./cmd/cleanmon "))
 		var want strings.Builder
 		j := i + 3
 		for ; j < len(lines) && lines[j] != "```"; j++ {
@@ -49,7 +49,42 @@ func TestREADMEExamples(t *testing.T) {
 		}
 		i = j
 	}
-	if found < 3 {
-		t.Errorf("found %d README examples, want the limits, plan and certify ones", found)
+	if found < 7 {
+		t.Errorf("found %d README examples, want limits, limits --fed-std, plan, plan with a layout, certify, sequential and recovery", found)
+	}
+}
+
+// shellWords splits a command line as a shell would for the README's
+// examples: on spaces, with "double-quoted" words kept whole.
+func shellWords(s string) []string {
+	var out []string
+	var w strings.Builder
+	inWord, quoted := false, false
+	for _, r := range s {
+		switch {
+		case r == '"':
+			quoted, inWord = !quoted, true
+		case r == ' ' && !quoted:
+			if inWord {
+				out = append(out, w.String())
+				w.Reset()
+			}
+			inWord = false
+		default:
+			w.WriteRune(r)
+			inWord = true
+		}
+	}
+	if inWord {
+		out = append(out, w.String())
+	}
+	return out
+}
+
+func TestShellWords(t *testing.T) {
+	got := shellWords(`limits --class 5 --macro "M(2000; >5 µm); microscopy"  x`)
+	want := []string{"limits", "--class", "5", "--macro", "M(2000; >5 µm); microscopy", "x"}
+	if strings.Join(got, "|") != strings.Join(want, "|") {
+		t.Errorf("%q, want %q", got, want)
 	}
 }

@@ -25,7 +25,7 @@ func (f *targetFlags) register(fs *flag.FlagSet, defSizes string, withArea bool)
 	fs.BoolVar(&f.allowBlank, "allow-blank-cells", false, "accept sizes the class table leaves blank (reported, not judged)")
 	if withArea {
 		fs.Float64Var(&f.area, "area", 0, "floor area of the zone in m²")
-		fs.Float64Var(&f.flow, "flow", classify.DefaultFlowLPM, "counter sample flow in L/min")
+		fs.Float64Var(&f.flow, "flow", classify.DefaultFlowLPM, "counter sample flow in L/min: the plan's sample time, and the sampling time of a sample without duration_s (its volume over this flow), checked against the 1-minute minimum")
 	}
 }
 
@@ -38,12 +38,9 @@ func (f *targetFlags) target(needArea bool) (classify.Target, error) {
 	case f.class != "" && f.grade != "":
 		return t, fmt.Errorf("give --class or --grade, not both")
 	case f.class != "":
-		n, err := strconv.ParseFloat(f.class, 64)
+		n, err := parseClass("--class", f.class)
 		if err != nil {
-			return t, fmt.Errorf("--class: %q is not a number", f.class)
-		}
-		if err := classify.ValidateClass(n); err != nil {
-			return t, fmt.Errorf("--class: %w", err)
+			return t, err
 		}
 		t.Class = n
 	default:
@@ -77,4 +74,16 @@ func (f *targetFlags) target(needArea bool) (classify.Target, error) {
 	t.FlowLPM = f.flow
 	t.AllowBlank = f.allowBlank
 	return t, nil
+}
+
+// parseClass reads an ISO class flag.
+func parseClass(flag, v string) (float64, error) {
+	n, err := strconv.ParseFloat(v, 64)
+	if err != nil {
+		return 0, fmt.Errorf("%s: %q is not a number", flag, v)
+	}
+	if err := classify.ValidateClass(n); err != nil {
+		return 0, fmt.Errorf("%s: %w", flag, err)
+	}
+	return n, nil
 }

@@ -609,9 +609,10 @@ func uiDownloaded(t *testing.T, dir, name string) []byte {
 	return b
 }
 
-// uiReportBody is a certification report from its result on: what the
-// samples say, without the header that names where they came from.
-var reportBodyRE = regexp.MustCompile(`(?s)<h2>Result</h2>.*<p class="caution">`)
+// uiReportBody is a certification report's result and summary: what the
+// samples say, without the header and the appendix that name where they
+// came from.
+var reportBodyRE = regexp.MustCompile(`(?s)<h2>Result</h2>.*<h2>Location map</h2>`)
 
 func uiReportBody(t *testing.T, html []byte) string {
 	t.Helper()

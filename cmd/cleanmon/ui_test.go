@@ -214,6 +214,10 @@ func TestCertifyReport(t *testing.T) {
 	if bytes.Contains(html, []byte("<script")) {
 		t.Error("the report holds a script")
 	}
+	code, h, pdf := d.do("GET", "/certify/report?"+q+"&format=pdf", secretViewer, "", nil)
+	if code != 200 || h.Get("Content-Type") != "application/pdf" || !bytes.HasPrefix(pdf, []byte("%PDF-")) || !strings.HasSuffix(h.Get("Content-Disposition"), `.pdf"`) {
+		t.Errorf("format=pdf: %d %q %q", code, h.Get("Content-Type"), h.Get("Content-Disposition"))
+	}
 	jsum := sha256.Sum256(api)
 	if !bytes.Contains(html, []byte(hex.EncodeToString(jsum[:]))) {
 		t.Error("the report does not name the SHA-256 of the classification JSON")
@@ -244,7 +248,7 @@ func TestCertifyReport(t *testing.T) {
 		{"zone=hood&to=" + to, secretViewer, 400, "from"},
 		{"zone=hood&from=" + from, secretViewer, 400, "to"},
 		{"zone=hood&from=yesterday&to=" + to, secretViewer, 400, "from"},
-		{q + "&format=pdf", secretViewer, 400, "format"},
+		{q + "&format=docx", secretViewer, 400, "format"},
 		{"zone=nope&from=" + from + "&to=" + to, secretViewer, 404, ""},
 		{"zone=corridor&from=" + from + "&to=" + to, secretViewer, 400, ""},
 		{"zone=assembly&from=" + from + "&to=" + to, secretViewer, 422, ""}, // no readings there

@@ -93,6 +93,7 @@ func (s *Server) Register(r chi.Router) {
 		r.With(short, read, s.zone).Get("/zones/{zone}", s.getZone)
 		r.With(long, read, s.zone).Get("/zones/{zone}/readings", s.zoneReadings)
 		r.With(long, read, s.zone).Get("/zones/{zone}/classification", s.zoneClassification)
+		r.With(long, read, s.zone).Get("/zones/{zone}/recovery", s.zoneRecovery)
 		r.With(short, operate, s.zone).Put("/zones/{zone}/state", s.putZoneState)
 
 		r.With(short, read).Get("/alarms", s.listAlarms)

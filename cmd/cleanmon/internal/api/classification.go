@@ -117,7 +117,7 @@ func (s *Server) certifyStored(ctx context.Context, zone string, from, to time.T
 	if len(pooled.samples) == 0 {
 		return classify.Report{}, &problem{status: http.StatusUnprocessableEntity, msg: fmt.Sprintf("zone %q has no usable readings in [%s, %s)", zone, from.Format("2006-01-02T15:04:05Z"), to.Format("2006-01-02T15:04:05Z"))}
 	}
-	rep, err := classify.Certify(target, pooled.samples)
+	rep, err := classify.CertifyWith(target, pooled.samples, classify.Options{Instruments: s.cfg.Instruments(zone)})
 	if err != nil {
 		return classify.Report{}, &problem{status: http.StatusUnprocessableEntity, msg: "stored readings cannot be certified: " + err.Error()}
 	}

@@ -155,7 +155,13 @@ func newTestAPI(t *testing.T, o Options) http.Handler {
 // newTestServer is the Server newTestAPI mounts.
 func newTestServer(t *testing.T, o Options) *Server {
 	t.Helper()
-	cfg, err := site.Load("site.yaml", []byte(testSite))
+	return newTestServerSite(t, testSite, o)
+}
+
+// newTestServerSite is newTestServer over another site configuration.
+func newTestServerSite(t *testing.T, siteYAML string, o Options) *Server {
+	t.Helper()
+	cfg, err := site.Load("site.yaml", []byte(siteYAML))
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -14,46 +14,64 @@ import (
 //go:embed report.html.tmpl
 var reportTemplate string
 
-var reportTmpl = template.Must(template.New("report").Funcs(template.FuncMap{
-	"num":   func(v float64) string { return GroupDigits(round1(v)) },
-	"fsize": classify.FormatSize,
-	"class": classify.FormatClass,
-	"limit": func(m map[string]*float64, k string) string {
-		if v := m[k]; v != nil {
-			return GroupDigits(*v)
-		}
-		return "no limit"
-	},
-	"verdict": verdictWord,
-	"deref":   func(p *float64) float64 { return *p },
-	"result": func(l classify.LocationResult, k string) string {
-		p := l.PassBySize[k]
-		switch {
-		case p == nil:
-			return "not judged"
-		case *p:
-			return "within"
-		}
-		return "over limit"
-	},
-}).Parse(reportTemplate))
+var reportTmpl = template.Must(template.New("report").Parse(reportTemplate))
 
 // reportView is what the template sees.
 type reportView struct {
 	Certification
-	Target  string
-	Caution string
-	Charts  []template.HTML
+	V      view
+	Map    template.HTML
+	Charts []template.HTML
 }
 
-// WriteHTML renders the HTML report of o, certified against t.
+// WriteHTML renders the HTML report of o, certified against t: one file
+// with no external assets that prints on A4 with page numbers.
 func WriteHTML(w io.Writer, t classify.Target, o Certification) error {
-	v := reportView{Certification: o, Target: t.Name(), Caution: Caution}
-	for _, key := range o.Sizes {
-		v.Charts = append(v.Charts, sizeChart(o.Report, key))
+	v, err := newView(t, o)
+	if err != nil {
+		return err
 	}
-	return reportTmpl.Execute(w, v)
+	rv := reportView{Certification: o, V: v}
+	if v.Map != nil {
+		rv.Map = mapSVG(*v.Map)
+	}
+	for _, key := range o.Sizes {
+		rv.Charts = append(rv.Charts, sizeChart(o.Report, key))
+	}
+	return reportTmpl.Execute(w, rv)
 }
+
+// mapSVG draws the zone as a rectangle to scale with each location at its
+// coordinates. Marks differ in shape as well as tone so the map reads in
+// monochrome.
+func mapSVG(m mapView) template.HTML {
+	const maxW, maxH, pad = 640.0, 360.0, 34.0
+	scale := math.Min((maxW-2*pad)/m.LengthM, (maxH-2*pad)/m.WidthM)
+	w, h := m.LengthM*scale+2*pad, m.WidthM*scale+2*pad
+	esc := template.HTMLEscapeString
+	var b strings.Builder
+	fmt.Fprintf(&b, `<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 %.1f %.1f" width="%.0f" height="%.0f" role="img" aria-label="map of the sampling locations">`, w, h, w, h)
+	fmt.Fprintf(&b, `<rect x="%g" y="%g" width="%.1f" height="%.1f" class="room"/>`, pad, pad, m.LengthM*scale, m.WidthM*scale)
+	fmt.Fprintf(&b, `<text x="%g" y="%g" class="ax">0</text><text x="%.1f" y="%g" class="ax" text-anchor="end">x %s m</text><text x="%g" y="%.1f" class="ax" text-anchor="end">y %s m</text>`,
+		pad-8, pad-6, pad+m.LengthM*scale, pad-6, fmtM(m.LengthM), pad-4, pad+m.WidthM*scale, fmtM(m.WidthM))
+	for _, p := range m.Points {
+		cx, cy := pad+p.XM*scale, pad+p.YM*scale
+		title := fmt.Sprintf("%s (%.1f, %.1f) m: %s", p.ID, p.XM, p.YM, p.Status)
+		switch p.Status {
+		case "over":
+			fmt.Fprintf(&b, `<rect x="%.1f" y="%.1f" width="11" height="11" class="over"><title>%s</title></rect>`, cx-5.5, cy-5.5, esc(title))
+		case "within":
+			fmt.Fprintf(&b, `<circle cx="%.1f" cy="%.1f" r="5.5" class="ok"><title>%s</title></circle>`, cx, cy, esc(title))
+		default:
+			fmt.Fprintf(&b, `<circle cx="%.1f" cy="%.1f" r="5.5" class="nj"><title>%s</title></circle>`, cx, cy, esc(title))
+		}
+		fmt.Fprintf(&b, `<text x="%.1f" y="%.1f" class="ax" text-anchor="middle">%s</text>`, cx, cy-9, esc(p.ID))
+	}
+	b.WriteString(`</svg>`)
+	return template.HTML(b.String())
+}
+
+func fmtM(v float64) string { return classify.FormatSize(math.Round(v*10) / 10) }
 
 // sizeChart draws, for one size, every location mean as a mark on a log
 // axis against the limit line (and the UCL where the edition uses it).
@@ -130,5 +148,3 @@ func sizeChart(r classify.Report, key string) template.HTML {
 	b.WriteString(`</svg>`)
 	return template.HTML(b.String())
 }
-
-func num(v float64) string { return GroupDigits(round1(v)) }

@@ -14,47 +14,47 @@ import (
 // fonts: nothing is embedded, and a PDF reader shows the same text as the
 // HTML form.
 
-// pdfDoc wraps an fpdf document with the text translation the core fonts
+// recordPDF wraps an fpdf document with the text translation the core fonts
 // need (they are Windows-1252: "µ", "³" and "·" exist, "≥" and "→" do not).
-type pdfDoc struct {
+type recordPDF struct {
 	*fpdf.Fpdf
 	tr func(string) string
 }
 
 var pdfReplacer = strings.NewReplacer("≥", ">=", "→", "->", "\u2009", " ", "—", "-", "…", "...")
 
-func newPDF(title string) *pdfDoc {
+func newRecordPDF(title string) *recordPDF {
 	f := fpdf.New("P", "mm", "A4", "")
 	f.SetTitle(title, true)
 	f.SetCreator("cleanmon", true)
 	f.SetMargins(15, 15, 15)
 	f.SetAutoPageBreak(true, 15)
 	f.AddPage()
-	d := &pdfDoc{Fpdf: f, tr: f.UnicodeTranslatorFromDescriptor("")}
+	d := &recordPDF{Fpdf: f, tr: f.UnicodeTranslatorFromDescriptor("")}
 	d.SetFont("Helvetica", "B", 15)
 	d.line(title, 8)
 	return d
 }
 
-func (d *pdfDoc) text(s string) string { return d.tr(pdfReplacer.Replace(s)) }
+func (d *recordPDF) text(s string) string { return d.tr(pdfReplacer.Replace(s)) }
 
 // line writes one paragraph of wrapped text at height h per line.
-func (d *pdfDoc) line(s string, h float64) { d.MultiCell(0, h, d.text(s), "", "L", false) }
+func (d *recordPDF) line(s string, h float64) { d.MultiCell(0, h, d.text(s), "", "L", false) }
 
-func (d *pdfDoc) heading(s string) {
+func (d *recordPDF) heading(s string) {
 	d.Ln(3)
 	d.SetFont("Helvetica", "B", 11)
 	d.line(s, 6)
 	d.SetFont("Helvetica", "", 9)
 }
 
-func (d *pdfDoc) para(s string) {
+func (d *recordPDF) para(s string) {
 	d.SetFont("Helvetica", "", 9)
 	d.line(s, 4.5)
 }
 
 // table draws a header and rows with the given column widths (mm).
-func (d *pdfDoc) table(widths []float64, head []string, rows [][]string) {
+func (d *recordPDF) table(widths []float64, head []string, rows [][]string) {
 	d.SetFont("Helvetica", "B", 8)
 	d.SetFillColor(238, 241, 243)
 	for i, h := range head {
@@ -71,7 +71,7 @@ func (d *pdfDoc) table(widths []float64, head []string, rows [][]string) {
 }
 
 // signature draws the lines a reviewer fills in, after the caution.
-func (d *pdfDoc) signature(caution string) {
+func (d *recordPDF) signature(caution string) {
 	d.Ln(4)
 	d.SetFont("Helvetica", "I", 9)
 	d.line(caution, 4.5)
@@ -87,7 +87,7 @@ func (d *pdfDoc) signature(caution string) {
 	d.Ln(8)
 }
 
-func (d *pdfDoc) finish(w io.Writer) error {
+func (d *recordPDF) finish(w io.Writer) error {
 	if err := d.Error(); err != nil {
 		return err
 	}
@@ -96,7 +96,7 @@ func (d *pdfDoc) finish(w io.Writer) error {
 
 // WriteExposurePDF writes the exposure report as PDF.
 func WriteExposurePDF(w io.Writer, e Exposure) error {
-	d := newPDF("Exposure of production run " + e.Run.ID)
+	d := newRecordPDF("Exposure of production run " + e.Run.ID)
 	d.para(fmt.Sprintf("Site: %s\nZone: %s (%s), %s\nProduct / lot: %s / %s\nRun: %s - %s (recorded by %s)\nFigures up to %s; generated %s",
 		e.Site, e.ZoneName, e.Run.Zone, e.Target, dash(e.Run.Product), dash(e.Run.Lot), stamp(e.Run.Start), e.Run.endText(), e.Run.RecordedBy,
 		stamp(e.Until), stamp(e.Generated)))

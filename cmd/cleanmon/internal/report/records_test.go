@@ -44,7 +44,7 @@ func TestExposureReports(t *testing.T) {
 		t.Fatal(err)
 	}
 	for name, got := range map[string]string{"text": txt.String(), "html": html.String()} {
-		for _, want := range []string{"LH7-0412", "assembly:asm-2:0.5:excursion:20260302T090000Z", "412 000", "Reviewed by (QA)", "does not replace, the judgement", "none", "action"} {
+		for _, want := range []string{"LH7-0412", "assembly:asm-2:0.5:excursion:20260302T090000Z", "412 000", "Reviewed by (QA)", "qualified people, its procedures", "none", "action"} {
 			if !strings.Contains(got, want) {
 				t.Errorf("%s exposure lacks %q", name, want)
 			}

@@ -1,14 +1,21 @@
-// Package report renders certifications for people to keep: the text and
-// HTML reports of `cleanmon certify` and of the pages' report download,
-// from the verdict classify computed. It computes no verdict itself and
-// imports no package of the project but classify.
+// Package report renders certifications for people to keep: the text,
+// HTML and PDF reports of `cleanmon certify` and of the pages' report
+// download, from the verdict classify computed. It computes no verdict
+// itself and imports no package of the project but classify.
 package report
 
 import (
+	"bytes"
 	"crypto/sha256"
 	"encoding/base64"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
 	"fmt"
+	"io"
+	"slices"
 	"strings"
+	"time"
 
 	"cleanmon/classify"
 )
@@ -21,9 +28,84 @@ type Certification struct {
 	Zone          string `json:"zone,omitempty"`
 	Date          string `json:"date,omitempty"`
 	Certifier     string `json:"certifier,omitempty"`
+	Organisation  string `json:"organisation,omitempty"`
+	Operator      string `json:"operator,omitempty"`
 	SamplesFile   string `json:"samples_file,omitempty"`
 	SamplesSHA256 string `json:"samples_sha256,omitempty"`
 	Differential  bool   `json:"differential_counts"`
+	// Room is the rectangle the location map is drawn in; nil when neither
+	// its size nor any coordinate is known.
+	Room *Room `json:"room,omitempty"`
+	// PositionsFromPlan is set when some locations had no coordinates of
+	// their own and were placed at the plan layout's section centres.
+	PositionsFromPlan bool `json:"positions_from_plan,omitempty"`
+	// Signatures are electronic signatures of the report identifier; they
+	// are shown in the signature block and are not part of the JSON.
+	Signatures []Signature `json:"-"`
+}
+
+// ErrFormat reports a report format that is not one of Formats.
+var ErrFormat = errors.New("unknown report format")
+
+// Formats are the formats Write renders.
+var Formats = []string{"text", "json", "html", "pdf"}
+
+// CheckFormat accepts one of Formats.
+func CheckFormat(format string) error {
+	if !slices.Contains(Formats, format) {
+		return fmt.Errorf("%w %q (want %s)", ErrFormat, format, strings.Join(Formats, ", "))
+	}
+	return nil
+}
+
+// Write renders o, certified against t, in a format of Formats.
+func Write(w io.Writer, format string, t classify.Target, o Certification) error {
+	switch format {
+	case "json":
+		b, err := JSON(o)
+		if err == nil {
+			_, err = w.Write(b)
+		}
+		return err
+	case "html":
+		return WriteHTML(w, t, o)
+	case "pdf":
+		return WritePDF(w, t, o)
+	case "text":
+		return WriteText(w, t, o)
+	}
+	return CheckFormat(format)
+}
+
+// Room is the zone's floor rectangle in metres, x along its length.
+type Room struct {
+	LengthM float64 `json:"length_m"`
+	WidthM  float64 `json:"width_m"`
+}
+
+// JSON is the certification as `certify --format json` writes it. Its
+// bytes are what the report identifier is computed from, so every format
+// of one certification carries the same identifier.
+func JSON(o Certification) ([]byte, error) {
+	var b bytes.Buffer
+	enc := json.NewEncoder(&b)
+	enc.SetIndent("", "  ")
+	if err := enc.Encode(o); err != nil {
+		return nil, err
+	}
+	return b.Bytes(), nil
+}
+
+// ID is the report identifier: "CM-" and the first 12 hex digits of the
+// SHA-256 of the JSON report. Anyone holding the JSON file can recompute
+// it (sha256sum), so a printed page is tied to the data it came from.
+func ID(o Certification) (string, error) {
+	b, err := JSON(o)
+	if err != nil {
+		return "", err
+	}
+	sum := sha256.Sum256(b)
+	return "CM-" + strings.ToUpper(hex.EncodeToString(sum[:6])), nil
 }
 
 // GroupDigits writes a whole number with thin groups of three (35 200 000),
@@ -70,3 +152,35 @@ func styleHashes(doc string) string {
 	}
 	return strings.Join(out, " ")
 }
+
+// Signature is an electronic signature shown in the report's signature
+// block in place of the empty line of its meaning ("performed",
+// "reviewed" or "approved"). It signs the report identifier, which is why
+// signatures are not part of the JSON the identifier is computed from.
+// Who may sign, and how, is decided by whoever makes the Signature.
+type Signature struct {
+	Meaning  string    `json:"meaning"`
+	FullName string    `json:"full_name"`
+	UserName string    `json:"user"`
+	Time     time.Time `json:"time"`
+	Method   string    `json:"method"`
+	SHA256   string    `json:"sha256"`
+}
+
+// signatureLines are the lines of the signature block: a signature where
+// one is given for the meaning, an empty line for a wet signature
+// otherwise.
+func signatureLines(sigs []Signature) []sigLine {
+	out := []sigLine{{Label: "Performed by", Meaning: "performed"}, {Label: "Approved by", Meaning: "approved"}}
+	for i := range out {
+		for _, s := range sigs {
+			if s.Meaning == out[i].Meaning {
+				out[i].Signed = fmt.Sprintf("%s (%s), signed electronically %s UTC by %s, SHA-256 %s",
+					s.FullName, s.UserName, s.Time.UTC().Format("2006-01-02 15:04:05"), s.Method, s.SHA256)
+			}
+		}
+	}
+	return out
+}
+
+type sigLine struct{ Label, Meaning, Signed string }

@@ -9,98 +9,106 @@ import (
 	"cleanmon/classify"
 )
 
-// Caution is printed on every certification output: the verdict is an
-// aid to, not a substitute for, the people and rules accountable for it.
-const Caution = "This report supports, and does not replace, the judgement of the site's qualified people, its procedures and the applicable standards and regulations."
-
-func verdictWord(v string) string {
-	switch v {
-	case classify.Pass:
-		return "PASS"
-	case classify.Incomplete:
-		return "INCOMPLETE"
-	}
-	return "FAIL"
-}
-
 // WriteText renders the plain-text report of o, certified against t.
 func WriteText(w io.Writer, t classify.Target, o Certification) error {
-	r := o.Report
+	v, err := newView(t, o)
+	if err != nil {
+		return err
+	}
 	var b strings.Builder
-	fmt.Fprintf(&b, "Certification of %s against %s (%s), ISO 14644-1:%s\n", orDash(o.Zone), t.Name(), r.State, r.Edition)
-	if o.Site != "" {
-		fmt.Fprintf(&b, "Site: %s\n", o.Site)
-	}
-	fmt.Fprintf(&b, "Date: %s   Samples: %s (sha256 %s)\n", o.Date, o.SamplesFile, short(o.SamplesSHA256))
-	if o.Certifier != "" {
-		fmt.Fprintf(&b, "By: %s\n", o.Certifier)
-	}
-	fmt.Fprintf(&b, "Plan: %s m², at least %d locations, single sample ≥ %.2f L\n\n",
-		classify.FormatSize(r.AreaM2), r.RequiredLocations, r.Plan.SampleVolumeL)
-
-	tw := tabwriter.NewWriter(&b, 0, 0, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintln(tw, "location\tsamples\tvolume L\tsize µm\tlimit /m³\tmean /m³\t95% Poisson upper /m³\tresult\t")
-	for _, l := range r.Locations {
-		for i, key := range r.Sizes {
-			id, n, vol := "", "", ""
-			if i == 0 {
-				id, n, vol = l.ID, fmt.Sprint(l.Samples), fmt.Sprintf("%.1f", l.VolumeL)
-			}
-			lim, res := "no limit", "not judged"
-			if v := r.LimitsPerM3[key]; v != nil {
-				lim = GroupDigits(*v)
-				res = "ok"
-				if p := l.PassBySize[key]; p != nil && !*p {
-					res = "OVER LIMIT"
-				}
-			}
-			fmt.Fprintf(tw, "%s\t%s\t%s\t≥%s\t%s\t%s\t%s\t%s\t\n", id, n, vol, key, lim,
-				GroupDigits(round1(l.MeanPerM3[key])), GroupDigits(round1(l.Upper95PerM3[key])), res)
-		}
+	fmt.Fprintf(&b, "Cleanroom classification report %s\n", v.ID)
+	fmt.Fprintf(&b, "%s\n\n", v.Designation)
+	tw := tabwriter.NewWriter(&b, 0, 0, 2, ' ', 0)
+	for _, m := range v.Meta {
+		fmt.Fprintf(tw, "%s\t%s\n", m.Label, m.Value)
 	}
 	tw.Flush()
-	if len(r.UCL95PerM3) > 0 {
-		fmt.Fprintf(&b, "\n95%% upper confidence limit of the %d location means (1999 Annex C):\n", len(r.Locations))
-		for _, key := range r.Sizes {
-			fmt.Fprintf(&b, "  ≥%s µm: %s /m³\n", key, GroupDigits(round1(r.UCL95PerM3[key])))
+
+	fmt.Fprintf(&b, "\nVerdict: %s\n", v.Verdict)
+	fmt.Fprintf(&b, "Achieved class at the considered sizes: %s\n", v.Achieved)
+	writeList(&b, "Problems", v.Problems, true)
+	writeList(&b, "Departures from the plan or the method", v.Departures, true)
+
+	b.WriteString("\nSummary by location (the mean of the samples' concentrations is judged; pooled and Poisson upper are informative)\n")
+	tw = tabwriter.NewWriter(&b, 0, 0, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintln(tw, "location\tx, y m\tsamples\tvolume L\tsize µm\tlimit /m³\tmean /m³\tpooled /m³ (inf.)\tPoisson 95% upper /m³ (inf.)\tresult\t")
+	for _, r := range v.Summary {
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t\n", r.Location, pos(r), r.Samples, r.Volume, r.Size, r.Limit, r.Mean, r.Pooled, r.Upper, r.Result)
+	}
+	tw.Flush()
+	if v.UCL != "" {
+		fmt.Fprintf(&b, "\n%s\n", v.UCL)
+	}
+	writeList(&b, "Sequential sampling", v.Sequential, false)
+	writeList(&b, "Warnings", v.Warnings, false)
+
+	b.WriteString("\nLocation map\n")
+	if v.Map != nil {
+		fmt.Fprintf(&b, "  zone %.1f m × %.1f m\n", v.Map.LengthM, v.Map.WidthM)
+		for _, p := range v.Map.Points {
+			fmt.Fprintf(&b, "  %s at (%.1f, %.1f) m: %s\n", p.ID, p.XM, p.YM, p.Status)
 		}
 	}
-	if r.AchievedClass != nil {
-		fmt.Fprintf(&b, "\nAchieved class at the considered sizes: ISO %s (by the class formula)\n", classify.FormatClass(*r.AchievedClass))
-	} else {
-		fmt.Fprintf(&b, "\nAchieved class at the considered sizes: none (above ISO 9)\n")
-	}
-	for _, wn := range r.Warnings {
-		fmt.Fprintf(&b, "warning: %s\n", wn)
-	}
-	if len(r.Problems) > 0 {
-		fmt.Fprintf(&b, "\nProblems (%d):\n", len(r.Problems))
-		for i, p := range r.Problems {
-			fmt.Fprintf(&b, "  %d. %s\n", i+1, p)
+	fmt.Fprintf(&b, "  %s\n", v.MapNote)
+
+	b.WriteString("\nInstruments\n")
+	if len(v.Instruments) > 0 {
+		tw = tabwriter.NewWriter(&b, 0, 0, 2, ' ', 0)
+		fmt.Fprintln(tw, "  counter\tmodel\tserial\tcalibration due\tstatus")
+		for _, in := range v.Instruments {
+			fmt.Fprintf(tw, "  %s\t%s\t%s\t%s\t%s\n", in.ID, in.Model, in.Serial, in.Due, in.Status)
 		}
+		tw.Flush()
 	}
-	fmt.Fprintf(&b, "\nVerdict: %s\n\n%s\n", verdictWord(r.Verdict), Caution)
-	_, err := io.WriteString(w, b.String())
+	if v.NoInstr != "" {
+		fmt.Fprintf(&b, "  %s\n", v.NoInstr)
+	}
+
+	fmt.Fprintf(&b, "\nAppendix: every sample (counts cumulative; * minutes from volume and flow)\n")
+	tw = tabwriter.NewWriter(&b, 0, 0, 2, ' ', tabwriter.AlignRight)
+	head := "location\tsample\ttime UTC\tcounter\tvolume L\tmin\t"
+	for _, s := range v.Sizes {
+		head += "≥" + s + " count\t"
+	}
+	for _, s := range v.Sizes {
+		head += "≥" + s + " /m³\t"
+	}
+	fmt.Fprintln(tw, head)
+	for _, s := range v.Samples {
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%s\t\n", s.Location, s.Sample, s.Time, s.Counter, s.Volume, s.Minutes,
+			strings.Join(s.Counts, "\t"), strings.Join(s.PerM3, "\t"))
+	}
+	tw.Flush()
+
+	fmt.Fprintf(&b, "\n%s\n\n", v.Caution)
+	for _, sl := range v.Signatures {
+		if sl.Signed != "" {
+			fmt.Fprintf(&b, "%s: %s\n", sl.Label, sl.Signed)
+			continue
+		}
+		fmt.Fprintf(&b, "%-13s (name, signature, date): ______________________________\n", sl.Label)
+	}
+	fmt.Fprintf(&b, "\nReport %s: the first 12 hex digits of the SHA-256 of this certification's JSON report (--format json).\n", v.ID)
+	_, err = io.WriteString(w, b.String())
 	return err
 }
 
-func round1(v float64) float64 {
-	if v >= 100 {
-		return float64(int64(v + 0.5))
+func pos(r summaryRow) string {
+	if !r.First {
+		return ""
 	}
-	return float64(int64(v*10+0.5)) / 10
+	return r.Position
 }
 
-func orDash(s string) string {
-	if s == "" {
-		return "the zone"
+func writeList(b *strings.Builder, title string, items []string, sayNone bool) {
+	if len(items) == 0 {
+		if sayNone {
+			fmt.Fprintf(b, "%s: none\n", title)
+		}
+		return
 	}
-	return s
-}
-
-func short(h string) string {
-	if len(h) > 12 {
-		return h[:12]
+	fmt.Fprintf(b, "\n%s (%d):\n", title, len(items))
+	for i, p := range items {
+		fmt.Fprintf(b, "  %d. %s\n", i+1, p)
 	}
-	return h
 }

@@ -305,7 +305,7 @@ func trendChart(c TrendChart, from, to time.Time) template.HTML {
 
 // WriteTrendPDF writes the month as PDF.
 func WriteTrendPDF(w io.Writer, t Trend) error {
-	d := newPDF("Environmental monitoring trend, " + t.Month)
+	d := newRecordPDF("Environmental monitoring trend, " + t.Month)
 	d.para(fmt.Sprintf("Site: %s\nZone: %s (%s), %s\nCompared with %s; generated %s", t.Site, t.ZoneName, t.Zone, t.Target, t.PreviousMonth, stamp(t.Generated)))
 	d.heading("Concentration per location and size (particles/m³)")
 	var rows [][]string
@@ -358,7 +358,7 @@ func WriteTrendPDF(w io.Writer, t Trend) error {
 }
 
 // chart draws one size's hourly means on a log axis, as the HTML does.
-func (d *pdfDoc) chart(c TrendChart, from, to time.Time) {
+func (d *recordPDF) chart(c TrendChart, from, to time.Time) {
 	const cw, ch = 180.0, 45.0
 	if d.GetY()+ch+12 > 280 {
 		d.AddPage()

@@ -542,6 +542,7 @@ func (d *nodeDecoder) check(c *Config) {
 	d.checkTokens(c.Access.Tokens)
 	d.checkSections(c)
 	d.checkAcross(c)
+	d.checkInstruments(c)
 }
 
 // checkTokens checks the access tokens: names and secrets unique, roles

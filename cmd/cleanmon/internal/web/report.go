@@ -13,7 +13,7 @@ import (
 	"cleanmon/cmd/cleanmon/internal/report"
 )
 
-// certifyReport is GET /certify/report?zone=&from=&to=[&format=html|json]:
+// certifyReport is GET /certify/report?zone=&from=&to=[&format=html|json|pdf]:
 // the certification of stored samples as a file to keep, either the
 // report `cleanmon certify --format html` writes or the classification
 // JSON itself.
@@ -37,9 +37,9 @@ func (s *Server) certifyReport(w http.ResponseWriter, r *http.Request) {
 		}
 	}
 	switch format {
-	case "", "html", "json":
+	case "", "html", "json", "pdf":
 	default:
-		httpx.WriteFieldError(w, "format", fmt.Sprintf("%q: want html or json", format))
+		httpx.WriteFieldError(w, "format", fmt.Sprintf("%q: want html, json or pdf", format))
 		return
 	}
 
@@ -81,6 +81,19 @@ func (s *Server) certifyReport(w http.ResponseWriter, r *http.Request) {
 		t.Grade = *rep.Grade
 	}
 	var b bytes.Buffer
+	if format == "pdf" {
+		if err := report.WritePDF(&b, t, out); err != nil {
+			s.log.Error("certification report not rendered", "zone", zone, "err", err)
+			httpx.WriteError(w, http.StatusInternalServerError, "certification report could not be rendered: "+err.Error())
+			return
+		}
+		w.Header().Set("Content-Type", "application/pdf")
+		w.Header().Set("Content-Disposition", `attachment; filename="`+name+`.pdf"`)
+		w.Header().Set("Cache-Control", "no-store")
+		w.WriteHeader(http.StatusOK)
+		w.Write(b.Bytes())
+		return
+	}
 	if err := report.WriteHTML(&b, t, out); err != nil {
 		s.log.Error("certification report not rendered", "zone", zone, "err", err)
 		httpx.WriteError(w, http.StatusInternalServerError, "certification report could not be rendered: "+err.Error())

@@ -3,6 +3,7 @@ package store
 import (
 	"context"
 	"crypto/ed25519"
+	"errors"
 	"fmt"
 	"os"
 	"strings"
@@ -147,16 +148,40 @@ func (s *Store) check(ctx context.Context, opt CheckOptions, full bool) error {
 }
 
 // pageCheck runs bbolt's consistency check, a damaged page's panic or
-// memory fault included.
+// memory fault included, in a write transaction that is rolled back.
+// bbolt's Check reads the freelist, which a concurrent commit changes
+// without a lock a reader would take: in a read transaction it races with
+// the committer and reports pages a later commit freed as "reachable
+// freed". In a write transaction it sees one consistent state; commits
+// wait for it (readers do not), about the time it takes to read the file.
 func (s *Store) pageCheck() []string {
+	return s.pageCheckIn(func(fn func(*bolt.Tx) error) error {
+		err := s.db.Update(func(tx *bolt.Tx) error {
+			_ = fn(tx)
+			return errRollback
+		})
+		if errors.Is(err, errRollback) {
+			return nil
+		}
+		return err
+	})
+}
+
+// errRollback ends the write transaction of a check without a commit.
+var errRollback = errors.New("store: check done, roll back")
+
+func (s *Store) pageCheckIn(run func(func(*bolt.Tx) error) error) []string {
 	v := &verifier{}
 	v.guarded("bbolt check", func() {
-		_ = s.db.View(func(tx *bolt.Tx) error {
+		err := run(func(tx *bolt.Tx) error {
 			for err := range tx.Check() {
 				v.add("bbolt: %v", err)
 			}
 			return nil
 		})
+		if err != nil {
+			v.add("bbolt check could not run: %v", err)
+		}
 	})
 	return v.problems
 }

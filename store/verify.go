@@ -177,6 +177,7 @@ func (v *verifier) run(tx *bolt.Tx) error {
 			return err
 		})
 		v.guarded(fmt.Sprintf("%s against readings", st.bucket), func() { v.rollupCounts(tx, st.bucket, step) })
+		v.guarded(fmt.Sprintf("%s values against readings", st.bucket), func() { v.rollupValues(tx, st.bucket, step) })
 	}
 	v.alarms(tx)
 	v.audit(tx)

@@ -3,6 +3,7 @@ package main
 import (
 	"encoding/json"
 	"net/http"
+	"net/url"
 	"strings"
 	"testing"
 	"time"
@@ -173,5 +174,77 @@ func TestOpenReads(t *testing.T) {
 		if code, _, body := d.do(c.method, c.path, c.token, c.ct, c.body); code != c.code {
 			t.Errorf("%s %s token %q: %d %s, want %d", c.method, c.path, c.token, code, body, c.code)
 		}
+	}
+}
+
+// TestAccessByPersonRole is the route × role table for people signed in
+// on the pages (session cookie and CSRF token, no bearer token): viewer
+// reads; operator also operates and signs reports as performed; QA reads
+// and signs reports (reviewed, approved) but does not operate the rooms;
+// admin does everything, accounts included.
+func TestAccessByPersonRole(t *testing.T) {
+	qa := testPerson{name: "quinn", fullName: "Quinn Adeyemi", role: "qa"}
+	f := startPeopleSite(t, "15m", "", vera, piotr, qa, admin)
+	order := []string{"vera", "piotr", "quinn", "kadmin"}
+	now := time.Now().UTC()
+	type route struct {
+		name, method, path string
+		body               func(password string) any
+	}
+	routes := []route{
+		{"read zones", "GET", "/api/v1/zones", nil},
+		{"read audit", "GET", "/api/v1/audit", nil},
+		{"session", "GET", "/ui/session", nil},
+		{"ingest", "POST", "/api/v1/readings", func(string) any {
+			return map[string]any{"counter": "pc-asm-1", "time": rfcTime(now.Add(-time.Minute)), "volume_l": 28.3, "counts": map[string]int{"0.5": 10, "5": 0}}
+		}},
+		{"operate", "PUT", "/api/v1/zones/assembly/state", func(pw string) any {
+			return map[string]any{"state": "in-operation", "reason": "shift start", "signature": map[string]string{"meaning": "performed", "password": pw}}
+		}},
+		{"acknowledge", "POST", "/api/v1/alarms/no-such-alarm/ack", func(string) any { return map[string]string{"comment": "checked"} }},
+		{"backup", "GET", "/api/v1/backup", nil},
+		{"accounts", "GET", "/ui/accounts", nil},
+		{"sign report", "POST", "/certify/report/sign", func(pw string) any {
+			return map[string]string{"zone": "assembly", "from": rfcTime(now.Add(-time.Hour)), "to": rfcTime(now), "meaning": "performed", "password": pw}
+		}},
+	}
+	const ok = 0
+	want := map[string][]int{ // vera (viewer), piotr (operator), quinn (qa), kadmin (admin)
+		"read zones": {ok, ok, ok, ok}, "read audit": {ok, ok, ok, ok}, "session": {ok, ok, ok, ok},
+		"ingest":      {403, 403, 403, ok},
+		"operate":     {403, ok, 403, ok},
+		"acknowledge": {403, ok, 403, ok},
+		"backup":      {403, 403, 403, ok},
+		"accounts":    {403, 403, 403, ok},
+		"sign report": {403, ok, ok, ok},
+	}
+	clients := map[string]*browserLike{}
+	for _, n := range order {
+		clients[n] = newBrowserLike(t, f.url)
+		clients[n].signIn(n, f.people[n].password)
+	}
+	for _, r := range routes {
+		for i, n := range order {
+			t.Run(r.name+"/"+f.people[n].role, func(t *testing.T) {
+				var body any
+				if r.body != nil {
+					body = r.body(f.people[n].password)
+				}
+				code, _, b := clients[n].req(r.method, r.path, body, nil)
+				w := want[r.name][i]
+				if (w == ok && (code == 401 || code == 403 || code >= 500)) || (w != ok && code != w) {
+					t.Fatalf("%s %s as %s: %d %s, want %d", r.method, r.path, n, code, b, w)
+				}
+				if code == 403 && !strings.Contains(string(b), "role "+f.people[n].role) {
+					t.Errorf("403 does not name the person's role: %s", b)
+				}
+			})
+		}
+	}
+	// Signed out, the same cookie jar gets nothing but the sign-in form.
+	b := clients["kadmin"]
+	b.req("POST", "/auth/signout", url.Values{"csrf_token": {b.csrf}}, nil)
+	if code, _, body := b.req("GET", "/api/v1/zones", nil, nil); code != 401 {
+		t.Errorf("after sign-out: %d %s, want 401", code, body)
 	}
 }

@@ -141,6 +141,10 @@ func TestDiskFullDuringIngest(t *testing.T) {
 	if n := countStored(); n != acked {
 		t.Errorf("%d readings stored, %d acknowledged: the refused batch must leave nothing", n, acked)
 	}
+	// Not ready while writes fail, saying why to a token that may read.
+	if code, body, err := apiDo(context.Background(), http.MethodGet, d.url+"/readyz", nil, ""); err != nil || code != http.StatusServiceUnavailable || !strings.Contains(string(body), "full") {
+		t.Errorf("readyz on a full disk: %d %v %s", code, err, body)
+	}
 	// Free the space: the next batch is taken without a restart.
 	if err := os.Remove(filler); err != nil {
 		t.Fatal(err)
@@ -149,6 +153,9 @@ func TestDiskFullDuringIngest(t *testing.T) {
 		code, _ := post(full)
 		return code == 200
 	})
+	if code, body, err := apiDo(context.Background(), http.MethodGet, d.url+"/readyz", nil, ""); err != nil || code != http.StatusOK {
+		t.Errorf("readyz after recovery: %d %v %s", code, err, body)
+	}
 	if n := countStored(); n != acked+200 {
 		t.Errorf("after recovery %d stored, want %d", n, acked+200)
 	}

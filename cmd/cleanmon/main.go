@@ -34,6 +34,8 @@ func commands() []command {
 		{"recovery", "fit the recovery rate and 100:1 time after a particle challenge (ISO 14644-3)", runRecovery},
 		{"backup", "write a consistent copy of a store to a file", runBackup},
 		{"verify", "check a store's consistency and integrity", runVerify},
+		{"user", "add, disable, enable, unlock or reset the account of a person (no daemon running)", runUser},
+		{"keygen", "write a key pair that signs the audit chain", runKeygen},
 		{"report", "print a zone's month on one page: report trend --zone Z --month YYYY-MM", runReport},
 		{"runs", "import production runs from a CSV file into a running daemon", runRuns},
 		{"bench", "measure ingest throughput and latency on loopback", runBench},

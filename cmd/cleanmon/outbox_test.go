@@ -68,7 +68,7 @@ notifications:
 	// The receiver is down: /readyz says so (the daemon stays ready: it
 	// keeps taking readings, and the deliveries wait in the outbox).
 	waitFor(t, 10*time.Second, "the failing notifier in /readyz", func() bool {
-		code, b := call(t, "GET", d.url+"/readyz", "", "")
+		code, b := call(t, "GET", d.url+"/readyz", e2eOperator, "")
 		return code == 200 && strings.Contains(string(b), `ready, notifier failing`) && strings.Contains(string(b), `"up":false`)
 	})
 	_, m := call(t, "GET", d.url+"/metrics", e2eOperator, "")

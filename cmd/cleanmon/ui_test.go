@@ -13,6 +13,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"reflect"
 	"regexp"
 	"strings"
 	"testing"
@@ -59,8 +60,9 @@ func TestUISession(t *testing.T) {
 				if err := json.Unmarshal(b, &s); err != nil {
 					t.Fatal(err)
 				}
-				want := access.Session{OpenReads: open, SignedIn: c.name != "", Name: c.name, Role: c.role, MayRead: c.mayRead, MayOperate: c.mayOperat}
-				if s != want {
+				want := access.Session{OpenReads: open, SignedIn: c.name != "", Name: c.name, Role: c.role, MayRead: c.mayRead, MayOperate: c.mayOperat,
+					MayAdmin: c.role == "admin", MaySign: []string{}}
+				if !reflect.DeepEqual(s, want) {
 					t.Errorf("%+v, want %+v", s, want)
 				}
 			})

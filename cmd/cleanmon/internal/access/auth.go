@@ -35,11 +35,12 @@ const (
 	PermRead    Permission = iota // GET endpoints
 	PermIngest                    // POST readings and pressure
 	PermOperate                   // operating-state changes and alarm acknowledgements
-	PermAdmin                     // backup and everything else
+	PermAdmin                     // backup, accounts and everything else
 	// PermRecordRuns records and closes production runs: an operator at
 	// the room, or the ingest token of an execution system that books
 	// batches and lots.
 	PermRecordRuns
+	PermSign // sign certification reports (which meanings: SignMeanings)
 )
 
 // String is the verb of the permission, as the 403 answer words it.
@@ -53,18 +54,25 @@ func (p Permission) String() string {
 		return "operate"
 	case PermRecordRuns:
 		return "record runs"
+	case PermSign:
+		return "sign reports"
 	}
 	return "administer"
 }
 
 // Grants reports whether a role carries a Permission. Ingest is its own
-// narrow role: an instrument gateway posts readings and reads nothing.
+// narrow role: an instrument gateway posts readings and reads nothing. QA
+// reads and signs (reviews and approvals) but does not run the rooms: it
+// neither acknowledges alarms nor changes operating states, so a QA
+// approval is never of QA's own operating act.
 func Grants(role string, p Permission) bool {
 	switch role {
 	case RoleAdmin:
 		return true
 	case RoleOperator:
-		return p == PermRead || p == PermOperate || p == PermRecordRuns
+		return p == PermRead || p == PermOperate || p == PermRecordRuns || p == PermSign
+	case RoleQA:
+		return p == PermRead || p == PermSign
 	case RoleViewer:
 		return p == PermRead
 	case RoleIngest:
@@ -81,6 +89,9 @@ type Authorizer struct {
 	open   bool // demo: everything allowed without a token
 	state  atomic.Pointer[authState]
 	limits *rateLimits
+	// sigRequired: acknowledgements and state changes need a person's
+	// signature (site configuration signatures_required).
+	sigRequired atomic.Bool
 }
 
 // authState is one configuration's tokens, swapped whole on reload.
@@ -168,20 +179,31 @@ func (a *Authorizer) identify(r *http.Request) (*tokenEntry, bool) {
 	return &st.tokens[match], true
 }
 
-// Require is the middleware guarding a route: 401 without a valid token,
-// 403 when the token's role lacks the Permission.
+// Require is the middleware guarding a route: 401 without a valid token
+// or a signed-in person, 403 when the role lacks the Permission. A request
+// with an Authorization header is judged by its token alone; one without
+// is judged by the person of its session (people.Web's middleware runs
+// first).
 func (a *Authorizer) Require(p Permission) func(http.Handler) http.Handler {
 	return func(next http.Handler) http.Handler {
 		return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+			id := httpx.IdentityOf(r)
+			person, hasPerson := personOf(r)
+			if hasPerson {
+				id.User, id.FullName, id.Role = person.Name, person.FullName, string(person.Role)
+			}
 			if a.open {
 				next.ServeHTTP(w, r)
 				return
 			}
 			tok, presented := a.identify(r)
 			key := "addr:" + clientHost(r)
-			if tok != nil {
-				httpx.IdentityOf(r).Token = tok.name
+			switch {
+			case tok != nil:
+				id.Token, id.Role = tok.name, tok.role
 				key = "token:" + tok.name
+			case hasPerson:
+				key = "user:" + person.Name
 			}
 			if wait, ok := a.limits.allow(key); !ok {
 				// Rounded up: a client that waits Retry-After seconds gets in.
@@ -193,17 +215,20 @@ func (a *Authorizer) Require(p Permission) func(http.Handler) http.Handler {
 				next.ServeHTTP(w, r)
 				return
 			}
-			if tok == nil {
+			switch {
+			case tok == nil && !hasPerson:
 				w.Header().Set("WWW-Authenticate", `Bearer realm="cleanmon"`)
-				msg := "missing bearer token (Authorization: Bearer <token>)"
+				msg := "missing bearer token (Authorization: Bearer <token>) or sign-in"
 				if presented {
 					msg = "invalid token"
 				}
 				httpx.WriteError(w, http.StatusUnauthorized, msg)
 				return
-			}
-			if !Grants(tok.role, p) {
+			case tok != nil && !Grants(tok.role, p):
 				httpx.WriteError(w, http.StatusForbidden, fmt.Sprintf("token %q has role %s, which may not %s", tok.name, tok.role, p))
+				return
+			case tok == nil && !Grants(string(person.Role), p):
+				httpx.WriteError(w, http.StatusForbidden, fmt.Sprintf("%s (%s) has role %s, which may not %s", person.FullName, person.Name, person.Role, p))
 				return
 			}
 			next.ServeHTTP(w, r)
@@ -211,8 +236,8 @@ func (a *Authorizer) Require(p Permission) func(http.Handler) http.Handler {
 	}
 }
 
-// Session is what a request's token may do, for the pages. It never holds
-// the token, only its name and role.
+// Session is what a request's token or person may do, for the pages. It
+// never holds the token, only its name and role.
 type Session struct {
 	Open       bool   `json:"open"`       // demo: every route open, no token asked
 	OpenReads  bool   `json:"open_reads"` // reading needs no token
@@ -221,32 +246,54 @@ type Session struct {
 	Role       string `json:"role,omitempty"`
 	MayRead    bool   `json:"may_read"`
 	MayOperate bool   `json:"may_operate"`
+	// Person is set when a person is signed in on the pages (not a token).
+	Person   bool   `json:"person"`
+	FullName string `json:"full_name,omitempty"`
+	Method   string `json:"method,omitempty"` // "password" or "oidc"
+	// CSRF is the token the page's state-changing requests echo in the
+	// X-CSRF-Token header; it is the session's, not a secret of the site.
+	CSRF     string `json:"csrf,omitempty"`
+	MayAdmin bool   `json:"may_admin"`
+	// MaySign lists the signature meanings of a certification report the
+	// person's role may give.
+	MaySign []string `json:"may_sign"`
+	// SignaturesRequired: state changes and acknowledgements need a
+	// signed-in person's signature; tokens may not make them.
+	SignaturesRequired bool `json:"signatures_required"`
 }
 
 // ErrInvalidToken is a request presenting a token that matches none.
 var ErrInvalidToken = errors.New("invalid token")
 
-// Session tells what r's token may do, or what an anonymous visitor may;
-// ErrInvalidToken when r presents a token that matches none (open reads
-// let such a request through Require, and the page must still learn its
-// token is wrong).
+// Session tells what r's token or person may do, or what an anonymous
+// visitor may; ErrInvalidToken when r presents a token that matches none
+// (open reads let such a request through Require, and the page must still
+// learn its token is wrong).
 func (a *Authorizer) Session(r *http.Request) (Session, error) {
 	openReads := a.state.Load().openReads
-	out := Session{Open: a.open, OpenReads: openReads}
-	if a.open {
-		out.MayRead, out.MayOperate = true, true
-		return out, nil
-	}
+	out := Session{Open: a.open, OpenReads: openReads, MaySign: []string{}, SignaturesRequired: a.SignaturesRequired()}
 	tok, presented := a.identify(r)
+	person, hasPerson := personOf(r)
 	switch {
 	case tok != nil:
 		out.SignedIn, out.Name, out.Role = true, tok.name, tok.role
-		out.MayRead = openReads || Grants(tok.role, PermRead)
-		out.MayOperate = Grants(tok.role, PermOperate)
-	case presented:
+		out.MayRead = openReads || a.open || Grants(tok.role, PermRead)
+		out.MayOperate = a.open || Grants(tok.role, PermOperate)
+		out.MayAdmin = Grants(tok.role, PermAdmin)
+	case presented && !a.open:
 		return out, ErrInvalidToken
+	case hasPerson:
+		s, _ := sessionOf(r)
+		role := string(person.Role)
+		out.SignedIn, out.Person, out.Name, out.FullName, out.Role = true, true, person.Name, person.FullName, role
+		out.Method, out.CSRF = s.Method, s.CSRF
+		out.MayRead = openReads || a.open || Grants(role, PermRead)
+		out.MayOperate = Grants(role, PermOperate)
+		out.MayAdmin = Grants(role, PermAdmin)
+		out.MaySign = SignMeanings(role)
 	default:
-		out.MayRead = openReads
+		out.MayRead = openReads || a.open
+		out.MayOperate = a.open
 	}
 	return out, nil
 }

@@ -2,7 +2,8 @@
 // bearer tokens of the site configuration (kept as SHA-256 digests), the
 // roles and what each may do, the per-token rate limits, and the TLS
 // certificate reloaded without a restart. Its Require middleware records
-// the token's name as the request's identity (httpx.Identity).
+// the token's name, or the signed-in person of the pages' session, as the
+// request's identity (httpx.Identity).
 package access
 
 import "errors"
@@ -24,11 +25,13 @@ type TokenConfig struct {
 	Role   string `yaml:"role"`
 }
 
-// Roles of an API token.
+// Roles of an API token or a person (people have no ingest role; tokens
+// have no qa role).
 const (
 	RoleIngest   = "ingest"
 	RoleViewer   = "viewer"
 	RoleOperator = "operator"
+	RoleQA       = "qa"
 	RoleAdmin    = "admin"
 )
 

@@ -3,6 +3,8 @@ package api
 import (
 	"cleanmon/alerts"
 	"cleanmon/cmd/cleanmon/internal/httpx"
+	"cleanmon/cmd/cleanmon/internal/people"
+	"cleanmon/collector"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -63,39 +65,54 @@ func (s *Server) listAlarms(w http.ResponseWriter, r *http.Request) {
 		}
 	}
 	sort.SliceStable(out, func(i, j int) bool { return out[i].Since.After(out[j].Since) })
-	httpx.WriteJSON(w, http.StatusOK, out)
+	httpx.WriteJSON(w, http.StatusOK, s.withSignatures(out))
 }
 
 // ackRequest is the body of POST /api/v1/alarms/{id}/ack.
 type ackRequest struct {
-	By      string `json:"by"`
-	Comment string `json:"comment"`
+	By        string            `json:"by"`
+	Comment   string            `json:"comment"`
+	Signature *signatureRequest `json:"signature"`
 }
 
 const maxAckBody = 8 << 10
 
 // ackAlarm is POST /api/v1/alarms/{id}/ack (operator). The alarm is
-// attributed to the token that made the request; the free-text `by` is
-// kept beside it as a remark, so "who" cannot be typed in by anyone.
+// attributed to the signed-in person, who signs an action alarm's
+// acknowledgement (password again, meaning "acknowledged"), or to the
+// token that made the request, the free-text `by` kept beside it as a
+// remark, so "who" cannot be typed in by anyone.
 func (s *Server) ackAlarm(w http.ResponseWriter, r *http.Request) {
 	var req ackRequest
-	if !httpx.DecodeStrict(w, r, maxAckBody, &req, "by, comment") {
+	if !decodeBody(w, r, maxAckBody, &req, func() map[string]string {
+		return map[string]string{"by": req.By, "comment": req.Comment}
+	}) {
 		return
 	}
 	id := chi.URLParam(r, "id")
 	if u, err := url.PathUnescape(id); err == nil {
 		id = u // an id sent with %3A for its colons names the same alarm
 	}
-	who := identityOf(r, req.By)
+	open, content, found := s.activeAlarm(id)
+	if !found {
+		// Nothing open to sign: the acknowledgement below is refused
+		// (unknown or cleared alarm) and says why.
+		req.Signature = nil
+	}
+	act, ok := s.signedActor(w, r, req.By, req.Signature, people.MeaningAcknowledged, found && open.Level == "action", alarmSubject(id), content)
+	if !ok {
+		return
+	}
+	who := act.who
 	if strings.TrimSpace(who) == "" {
-		httpx.WriteFieldError(w, "by", "missing: say who acknowledges")
+		fieldAnswer(w, "by", collector.RuleRequired, "missing: say who acknowledges")
 		return
 	}
 	a, err := s.alarms.Ack(r.Context(), id, who, req.Comment)
 	switch {
 	case err == nil:
 		s.log.Info("alarm acknowledged", "alarm", id, "by", who, "token", httpx.IdentityOf(r).Token)
-		httpx.WriteJSON(w, http.StatusOK, a)
+		httpx.WriteJSON(w, http.StatusOK, s.withSignatures([]alerts.Alarm{a})[0])
 	case errors.Is(err, alerts.ErrNoAlarm):
 		httpx.WriteError(w, http.StatusNotFound, err.Error())
 	case errors.Is(err, alerts.ErrAlreadyAcked), errors.Is(err, alerts.ErrAlarmCleared), errors.Is(err, alerts.ErrAlarmPending):
@@ -109,12 +126,16 @@ func (s *Server) ackAlarm(w http.ResponseWriter, r *http.Request) {
 }
 
 // identityOf is who a change is attributed to: the token's name, with the
-// request's free-text name as a remark when it adds something; without a
-// token (the open demo) the free text alone.
+// request's free-text name as a remark when it adds something; a person
+// signed in on the pages as "Full Name (name)"; with neither (the open
+// demo) the free text alone.
 func identityOf(r *http.Request, remark string) string {
 	remark = strings.TrimSpace(remark)
-	tok := httpx.IdentityOf(r).Token
+	id := httpx.IdentityOf(r)
+	tok := id.Token
 	switch {
+	case tok == "" && id.User != "":
+		return id.FullName + " (" + id.User + ")"
 	case tok == "":
 		return remark
 	case remark == "" || remark == tok:

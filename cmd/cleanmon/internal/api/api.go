@@ -36,6 +36,8 @@ type Options struct {
 	// nil: NoEnvironment.
 	EnvIngest EnvironmentIngest
 	EnvStore  EnvironmentStore
+	// Signatures signs acknowledgements and state changes of people.
+	Signatures Signatures
 }
 
 // Server holds the API's collaborators; Register mounts its routes.
@@ -49,6 +51,7 @@ type Server struct {
 	metrics *prometheus.Registry
 	log     *slog.Logger
 	now     func() time.Time
+	sigs    Signatures
 
 	envIngest EnvironmentIngest
 	envStore  EnvironmentStore
@@ -56,12 +59,16 @@ type Server struct {
 	// ready is set once the store is open and ingest runs, and cleared
 	// when shutdown begins, so a balancer stops sending work first.
 	ready atomic.Bool
+	// writeProblem is why writes are refused or failing; nil while they
+	// succeed.
+	writeProblem atomic.Pointer[string]
 }
 
 // New returns the API over o.
 func New(o Options) *Server {
 	s := &Server{cfg: o.Site, zones: o.Zones, store: o.Store, ingest: o.Ingest, alarms: o.Alarms,
-		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now, envIngest: o.EnvIngest, envStore: o.EnvStore}
+		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now, envIngest: o.EnvIngest, envStore: o.EnvStore,
+		sigs: o.Signatures}
 	if s.envIngest == nil {
 		s.envIngest = NoEnvironment{}
 	}

@@ -68,7 +68,7 @@ func (s *Server) registerEnvironment(r chi.Router) {
 // 200 only once durable; a body without a Content-Type is JSON.
 func (s *Server) postEnvironment(w http.ResponseWriter, r *http.Request) {
 	res, err := s.envIngest.PostEnvironment(r.Context(), r.Header.Get("Content-Type"), r.ContentLength, r.Body)
-	ingestAnswer(w, res, err)
+	ingestAnswer(w, r, res, err)
 }
 
 // envChannelJSON is one channel of an environment sensor: its bands and

@@ -16,6 +16,7 @@ import (
 
 	"cleanmon/alerts"
 	"cleanmon/cmd/cleanmon/internal/access"
+	"cleanmon/cmd/cleanmon/internal/people"
 	"cleanmon/cmd/cleanmon/internal/site"
 	"cleanmon/collector"
 	"cleanmon/store"
@@ -121,11 +122,22 @@ func (f fakeAlarms) Notifiers() []alerts.NotifierHealth {
 	return f.notifiers()
 }
 
+// noSignatures refuses every signature and finds none: the handler tests
+// run without people (the daemon's tests sign for real).
+type noSignatures struct{}
+
+func (noSignatures) Sign(context.Context, people.Session, people.SignRequest) (people.Signature, error) {
+	return people.Signature{}, people.ErrReauth
+}
+
+func (noSignatures) SignaturesFor(string) []people.Signature { return nil }
+
 var (
-	_ Zones  = fakeZones{}
-	_ Store  = fakeStore{}
-	_ Ingest = fakeIngest{}
-	_ Alarms = fakeAlarms{}
+	_ Signatures = noSignatures{}
+	_ Zones      = fakeZones{}
+	_ Store      = fakeStore{}
+	_ Ingest     = fakeIngest{}
+	_ Alarms     = fakeAlarms{}
 )
 
 // testSite is a small site of the invented demo company: one ISO 5 hood.
@@ -181,6 +193,9 @@ func newTestServerSite(t *testing.T, siteYAML string, o Options) *Server {
 	}
 	if o.Alarms == nil {
 		o.Alarms = fakeAlarms{}
+	}
+	if o.Signatures == nil {
+		o.Signatures = noSignatures{}
 	}
 	o.Metrics = prometheus.NewRegistry()
 	o.Log = slog.New(slog.NewTextHandler(io.Discard, nil))

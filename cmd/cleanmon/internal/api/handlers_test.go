@@ -183,6 +183,24 @@ func TestReadyz(t *testing.T) {
 	}
 }
 
+// While writes are refused or failing the daemon is not ready, and says
+// why; when they succeed again it is.
+func TestReadyzWhileWritesFail(t *testing.T) {
+	s := newTestServer(t, Options{})
+	r := chi.NewRouter()
+	s.Register(r)
+	s.SetReady(true)
+	s.SetWriteProblem("the disk is full")
+	status, body := call(t, r, "GET", "/readyz", "", "")
+	if status != http.StatusServiceUnavailable || !strings.Contains(fmt.Sprint(body["error"]), "the disk is full") {
+		t.Errorf("readyz with a full disk: %d %v", status, body)
+	}
+	s.SetWriteProblem("")
+	if status, body := call(t, r, "GET", "/readyz", "", ""); status != http.StatusOK {
+		t.Errorf("readyz after recovery: %d %v", status, body)
+	}
+}
+
 // A zone without a class or grade cannot be certified, and the pages get
 // the same answer, byte for byte, as the API route.
 func TestCertifyStoredMatchesRoute(t *testing.T) {

@@ -10,13 +10,32 @@ func (s *Server) healthz(w http.ResponseWriter, r *http.Request) {
 	httpx.WriteJSON(w, http.StatusOK, map[string]string{"status": "ok"})
 }
 
-// readyz answers 200 while the store is open and ingest runs, with the
-// health of every notifier as detail: a failing notifier does not make
-// the daemon unready (readings are still taken and kept, and deliveries
-// wait in the outbox), but it shows here and in the metrics.
+// readyz answers 200 while the store is open, ingest runs and writes
+// succeed; 503 while starting or stopping, and while writes are refused
+// or failing (a store integrity fault, a full disk), naming why. A failing
+// notifier does not make the daemon unready (readings are still taken and
+// kept, and deliveries wait in the outbox). Without a token that may read,
+// the answer is the status alone: notifier names and faults are the
+// site's business, not a passer-by's.
 func (s *Server) readyz(w http.ResponseWriter, r *http.Request) {
-	if !s.ready.Load() {
-		httpx.WriteError(w, http.StatusServiceUnavailable, "not ready: starting or shutting down")
+	sess, err := s.auth.Session(r)
+	detail := err == nil && (sess.Open || (sess.SignedIn && sess.MayRead))
+	problem := ""
+	if p := s.writeProblem.Load(); p != nil {
+		problem = *p
+	}
+	switch {
+	case !s.ready.Load():
+		httpx.WriteJSON(w, http.StatusServiceUnavailable, map[string]string{"status": "not ready", "error": "not ready: starting or shutting down"})
+		return
+	case problem != "" && !detail:
+		httpx.WriteJSON(w, http.StatusServiceUnavailable, map[string]string{"status": "not ready", "error": "not ready: writes are refused or failing (details with a token)"})
+		return
+	case problem != "":
+		httpx.WriteJSON(w, http.StatusServiceUnavailable, map[string]any{"status": "not ready", "error": "not ready: " + problem, "notifiers": s.alarms.Notifiers()})
+		return
+	case !detail:
+		httpx.WriteJSON(w, http.StatusOK, map[string]string{"status": "ready"})
 		return
 	}
 	out := map[string]any{"status": "ready"}
@@ -28,6 +47,16 @@ func (s *Server) readyz(w http.ResponseWriter, r *http.Request) {
 		}
 	}
 	httpx.WriteJSON(w, http.StatusOK, out)
+}
+
+// SetWriteProblem says why writes are refused or failing ("" when they
+// succeed): while set, /readyz answers not ready.
+func (s *Server) SetWriteProblem(reason string) {
+	if reason == "" {
+		s.writeProblem.Store(nil)
+		return
+	}
+	s.writeProblem.Store(&reason)
 }
 
 // backup streams a consistent copy of the store.

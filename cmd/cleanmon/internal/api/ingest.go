@@ -15,13 +15,13 @@ import (
 // store fails.
 func (s *Server) postReadings(w http.ResponseWriter, r *http.Request) {
 	res, err := s.ingest.PostReadings(r.Context(), r.Header.Get("Content-Type"), r.ContentLength, r.Body)
-	ingestAnswer(w, res, err)
+	ingestAnswer(w, r, res, err)
 }
 
 // postPressure is POST /api/v1/pressure under the same rules.
 func (s *Server) postPressure(w http.ResponseWriter, r *http.Request) {
 	res, err := s.ingest.PostPressure(r.Context(), r.Header.Get("Content-Type"), r.ContentLength, r.Body)
-	ingestAnswer(w, res, err)
+	ingestAnswer(w, r, res, err)
 }
 
 // ingestError is the error body of the ingest routes: the common one, with
@@ -31,15 +31,19 @@ type ingestError struct {
 	Index *int    `json:"index,omitempty"`
 	Field *string `json:"field,omitempty"`
 	Line  int     `json:"line,omitempty"`
+	// Rule names the rule the element broke (collector.Rule*).
+	Rule string `json:"rule,omitempty"`
 }
 
-func ingestAnswer(w http.ResponseWriter, res collector.Result, err error) {
+func ingestAnswer(w http.ResponseWriter, r *http.Request, res collector.Result, err error) {
 	var ie *collector.InputError
 	switch {
 	case err == nil:
 		httpx.WriteJSON(w, http.StatusOK, res)
 	case errors.As(err, &ie):
-		httpx.WriteJSON(w, http.StatusBadRequest, ingestError{Error: ie.Error(), Index: &ie.Index, Field: &ie.Field, Line: ie.Line})
+		httpx.WriteJSON(w, http.StatusBadRequest, ingestError{Error: ie.Error(), Index: &ie.Index, Field: &ie.Field, Line: ie.Line, Rule: ie.Rule})
+	case errors.Is(err, collector.ErrTooLarge):
+		httpx.WriteRefusal(w, r, http.StatusRequestEntityTooLarge, ingestError{Error: err.Error()})
 	default:
 		httpx.WriteJSON(w, Errors.Status(err), ingestError{Error: err.Error()})
 	}

@@ -6,6 +6,7 @@ import (
 	"time"
 
 	"cleanmon/alerts"
+	"cleanmon/cmd/cleanmon/internal/people"
 	"cleanmon/collector"
 	"cleanmon/store"
 )
@@ -89,3 +90,10 @@ func (NoAlarms) SetOperatingState(context.Context, string, string) error { retur
 
 // Notifiers is empty.
 func (NoAlarms) Notifiers() []alerts.NotifierHealth { return nil }
+
+// Signatures makes electronic signatures of people (re-checking the
+// password or a fresh provider sign-in) and finds those of a record.
+type Signatures interface {
+	Sign(ctx context.Context, s people.Session, req people.SignRequest) (people.Signature, error)
+	SignaturesFor(subject string) []people.Signature
+}

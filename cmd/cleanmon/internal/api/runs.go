@@ -218,7 +218,7 @@ type closeRequest struct {
 // closeRun is POST /api/v1/runs/{id}/close: the open run gets its end.
 func (s *Server) closeRun(w http.ResponseWriter, r *http.Request) {
 	var req closeRequest
-	if r.ContentLength != 0 && !httpx.DecodeStrict(w, r, 4<<10, &req, "end") {
+	if r.ContentLength != 0 && !decodeBody(w, r, 4<<10, &req, func() map[string]string { return map[string]string{"end": req.End} }) {
 		return
 	}
 	end := s.now().UTC()

@@ -1,6 +1,7 @@
 package api
 
 import (
+	"encoding/json"
 	"errors"
 	"fmt"
 	"net/http"
@@ -11,6 +12,8 @@ import (
 	"cleanmon/alerts"
 	"cleanmon/classify"
 	"cleanmon/cmd/cleanmon/internal/httpx"
+	"cleanmon/cmd/cleanmon/internal/people"
+	"cleanmon/collector"
 	"cleanmon/store"
 )
 
@@ -127,9 +130,10 @@ func (s *Server) getZone(w http.ResponseWriter, r *http.Request) {
 
 // stateRequest is the body of PUT /api/v1/zones/{zone}/state.
 type stateRequest struct {
-	State  string `json:"state"`
-	By     string `json:"by"`
-	Reason string `json:"reason"`
+	State     string            `json:"state"`
+	By        string            `json:"by"`
+	Reason    string            `json:"reason"`
+	Signature *signatureRequest `json:"signature"`
 }
 
 // maxStateBody bounds the body of a state change.
@@ -140,19 +144,28 @@ const maxStateBody = 64 << 10
 func (s *Server) putZoneState(w http.ResponseWriter, r *http.Request) {
 	id := zoneOf(r).ID
 	var req stateRequest
-	if !httpx.DecodeStrict(w, r, maxStateBody, &req, "state, by, reason") {
+	if !decodeBody(w, r, maxStateBody, &req, func() map[string]string {
+		return map[string]string{"state": req.State, "by": req.By, "reason": req.Reason}
+	}) {
 		return
 	}
 	if _, err := alerts.ParseOperatingState(req.State); err != nil {
-		httpx.WriteFieldError(w, "state", fmt.Sprintf("%q: want at-rest, in-operation or maintenance", req.State))
+		fieldAnswer(w, "state", collector.RuleEnum, "%q: want at-rest, in-operation or maintenance", req.State)
 		return
 	}
-	if strings.TrimSpace(req.By) == "" && httpx.IdentityOf(r).Token == "" {
-		httpx.WriteFieldError(w, "by", "missing: say who makes the change (it is kept for the audit trail)")
+	now := s.now().UTC()
+	// A person signs the change; a token is recorded by its name, the
+	// free-text by kept as a remark.
+	content, _ := json.Marshal(map[string]string{"zone": id, "state": req.State, "reason": req.Reason, "time": now.Format(time.RFC3339Nano)})
+	act, ok := s.signedActor(w, r, req.By, req.Signature, people.MeaningPerformed, true, "operating state "+id+" "+req.State+" "+now.Format(time.RFC3339), content)
+	if !ok {
 		return
 	}
-	// Attributed to the token; the free-text by is kept as a remark.
-	ch := alerts.OperatingChange{Zone: id, State: req.State, By: identityOf(r, req.By), Reason: req.Reason, Time: s.now().UTC()}
+	if strings.TrimSpace(act.who) == "" {
+		fieldAnswer(w, "by", collector.RuleRequired, "missing: say who makes the change (it is kept for the audit trail)")
+		return
+	}
+	ch := alerts.OperatingChange{Zone: id, State: req.State, By: act.who, Reason: req.Reason, Time: now}
 	v, err := s.zones.SetOperatingState(ch, func(ch alerts.OperatingChange) error {
 		return s.store.SetOperatingState(r.Context(), store.OperatingState{Zone: ch.Zone, State: ch.State, By: ch.By, Reason: ch.Reason, Time: ch.Time})
 	})
@@ -160,7 +173,7 @@ func (s *Server) putZoneState(w http.ResponseWriter, r *http.Request) {
 		var re *store.RecordError
 		switch {
 		case errors.As(err, &re):
-			httpx.WriteFieldError(w, strings.ToLower(re.Field), re.Reason)
+			fieldAnswer(w, strings.ToLower(re.Field), collector.RuleType, "%s", re.Reason)
 		case errors.Is(err, alerts.ErrOperatingState):
 			httpx.WriteError(w, http.StatusBadRequest, err.Error())
 		default:

@@ -3,10 +3,12 @@ package daemon
 import (
 	"cleanmon/alerts"
 	"cleanmon/cmd/cleanmon/internal/api"
+	"cleanmon/cmd/cleanmon/internal/people"
 	"cleanmon/collector"
 	"cleanmon/store"
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"log/slog"
 	"time"
@@ -20,6 +22,9 @@ type storeSink struct {
 	st  *store.Store
 	m   *alerts.IngestMetrics // nil: no metrics
 	log *slog.Logger          // nil: conflicts are not logged
+	// gate refuses writes after an integrity fault and learns of a full
+	// disk (trust.go); nil: always open.
+	gate *writeGate
 }
 
 // CommitReadings implements collector.Sink.
@@ -52,7 +57,11 @@ func (s storeSink) CommitReadingsMarked(ctx context.Context, rs []collector.Read
 			Sizes: r.Sizes, Counts: r.Counts,
 		}
 	}
+	if err := s.gate.check(); err != nil {
+		return nil, err
+	}
 	outcomes, err := s.st.AppendReadingsMarked(ctx, out)
+	s.gate.committed(err)
 	if err != nil {
 		return nil, err
 	}
@@ -85,7 +94,12 @@ func (s storeSink) CommitPressure(ctx context.Context, ps []collector.Pressure) 
 	for i, p := range ps {
 		out[i] = store.Pressure{Sensor: p.Sensor, Time: p.Time, Pa: p.Pa}
 	}
-	return s.st.AppendPressure(ctx, out)
+	if err := s.gate.check(); err != nil {
+		return 0, 0, err
+	}
+	acc, dup, err := s.st.AppendPressure(ctx, out)
+	s.gate.committed(err)
+	return acc, dup, err
 }
 
 // observation turns a committed reading into what the zone state takes.
@@ -181,8 +195,12 @@ func (c auditCollector) Collect(ch chan<- prometheus.Metric) {
 	}
 }
 
-// Active implements api.Alarms: the alarms not cleared.
-func (s *alarmService) Active() []alerts.Alarm { return s.eng.Alarms(false) }
+// Active implements api.Alarms: the alarms not cleared, with an
+// integrity alarm the damaged store could not take (trust.go).
+func (s *alarmService) Active() []alerts.Alarm { return s.withUnjournaled(s.eng.Alarms(false)) }
+
+// Alarms implements alerts.AlarmLister for the alarm metrics, the same way.
+func (s *alarmService) Alarms(all bool) []alerts.Alarm { return s.withUnjournaled(s.eng.Alarms(all)) }
 
 // Ack implements api.Alarms.
 func (s *alarmService) Ack(ctx context.Context, id, by, comment string) (alerts.Alarm, error) {
@@ -198,12 +216,21 @@ func (s *alarmService) SetOperatingState(ctx context.Context, zone, state string
 // Notifiers implements api.Alarms: the health of every notifier.
 func (s *alarmService) Notifiers() []alerts.NotifierHealth { return s.disp.HealthList() }
 
-// envSink commits the collector's environment samples to the store.
-type envSink struct{ st *store.Store }
+// envSink commits the collector's environment samples to the store,
+// behind the same write gate as readings.
+type envSink struct {
+	st   *store.Store
+	gate *writeGate
+}
 
 // CommitEnvironment implements collector.EnvironmentSink.
 func (s envSink) CommitEnvironment(ctx context.Context, es []collector.Environment) (int, int, error) {
-	return s.st.AppendEnvironment(ctx, envSamples(es))
+	if err := s.gate.check(); err != nil {
+		return 0, 0, err
+	}
+	acc, dup, err := s.st.AppendEnvironment(ctx, envSamples(es))
+	s.gate.committed(err)
+	return acc, dup, err
 }
 
 // envSamples turns validated environment samples into stored ones.
@@ -259,3 +286,55 @@ var (
 	_ api.EnvironmentIngest     = (*collector.EnvironmentIngest)(nil)
 	_ collector.MQTTSink        = collector.Ingests{}
 )
+
+// accountStore keeps people's accounts in the store for the people
+// package; the two Account types match field for field.
+type accountStore struct{ st *store.Store }
+
+var _ people.AccountStore = accountStore{}
+
+// peopleErr maps the store's account errors onto the people package's.
+func peopleErr(err error) error {
+	switch {
+	case errors.Is(err, store.ErrAccountExists):
+		return fmt.Errorf("%w: %w", people.ErrExists, err)
+	case errors.Is(err, store.ErrNoAccount):
+		return fmt.Errorf("%w: %w", people.ErrNotFound, err)
+	}
+	return err
+}
+
+// CreateAccount implements people.AccountStore.
+func (a accountStore) CreateAccount(ctx context.Context, acc people.Account, c people.Change) error {
+	return peopleErr(a.st.CreateAccount(ctx, store.Account(acc), store.AccountChange(c)))
+}
+
+// UpdateAccount implements people.AccountStore.
+func (a accountStore) UpdateAccount(ctx context.Context, name string, c people.Change, fn func(*people.Account) error) error {
+	return peopleErr(a.st.UpdateAccount(ctx, name, store.AccountChange(c), func(x *store.Account) error {
+		return fn((*people.Account)(x))
+	}))
+}
+
+// GetAccount implements people.AccountStore.
+func (a accountStore) GetAccount(name string) (people.Account, error) {
+	x, err := a.st.GetAccount(name)
+	return people.Account(x), peopleErr(err)
+}
+
+// peopleAudit writes the people package's events (sign-ins, signatures)
+// into the store's audit chain.
+type peopleAudit struct{ st *store.Store }
+
+var _ people.AuditSink = peopleAudit{}
+
+// Record implements people.AuditSink.
+func (a peopleAudit) Record(ctx context.Context, e people.Event) (uint64, error) {
+	actor := e.Actor
+	if actor == "" {
+		actor = store.AuditActorSystem
+	}
+	seq, _, err := a.st.AppendAudit(ctx, store.AuditEntry{Time: e.Time, Actor: actor, Action: e.Action,
+		Subject: e.Subject, Reason: e.Reason, Detail: []byte(e.Detail)})
+	return seq, err
+}

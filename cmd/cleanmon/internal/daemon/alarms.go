@@ -57,6 +57,10 @@ type alarmService struct {
 
 	mu sync.Mutex
 	dp map[string]alerts.SensorDP // latest DP per sensor, for metrics
+
+	// unjournaled is the integrity alarm when the damaged store could not
+	// record it (trust.go): shown and sent all the same.
+	unjournaled atomic.Pointer[alerts.Alarm]
 }
 
 const alarmQueue = 4096
@@ -90,12 +94,17 @@ func newAlarmService(cfg *site.Config, st *store.Store, zones *alerts.ZoneTracke
 // rules continue; then the open alarms) and runs the queue worker, the
 // one-second tick of the time-driven rules, the dispatcher and the
 // Alertmanager resenders until ctx ends.
-func (s *alarmService) start(ctx context.Context, wg *sync.WaitGroup, history []alerts.Observation, states map[string]string) error {
+// On a store found damaged (damaged set) a failed restore is logged and
+// the rules run all the same: the integrity alarm must get out.
+func (s *alarmService) start(ctx context.Context, wg *sync.WaitGroup, history []alerts.Observation, states map[string]string, damaged bool) error {
 	if err := s.eng.Prime(history); err != nil {
 		return fmt.Errorf("alarm engine history: %w", err)
 	}
 	if err := s.eng.Restore(ctx); err != nil {
-		return fmt.Errorf("restoring alarms: %w", err)
+		if !damaged {
+			return fmt.Errorf("restoring alarms: %w", err)
+		}
+		s.log.Error("open alarms not restored from the damaged store: the alarms shown may be incomplete", "err", err)
 	}
 	for zone, st := range states {
 		if err := s.eng.SetOperatingState(ctx, zone, st); err != nil {

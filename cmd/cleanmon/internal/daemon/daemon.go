@@ -89,6 +89,7 @@ type Daemon struct {
 	certs   access.CertReloader
 	metrics *prometheus.Registry
 	api     *api.Server
+	people  *peopleSide
 
 	ln     net.Listener
 	url    string
@@ -99,6 +100,13 @@ type Daemon struct {
 	wg sync.WaitGroup
 
 	notify notifier // the service manager (sdnotify.go)
+	// demoPassword is the demo admin's password until Run prints it.
+	demoPassword string
+	// keys, gate and the fault found are the signed record's (trust.go).
+	keys     auditKeys
+	gate     writeGate
+	faultMu  sync.Mutex
+	faultMsg string
 
 	stops   []func() error // run in reverse by Close
 	running bool           // Run was called: Close records a clean stop
@@ -145,7 +153,7 @@ func New(o Options) (d *Daemon, err error) {
 			d = nil
 		}
 	}()
-	steps := []func() error{d.loadConfig, d.openStore, d.startJudge, d.startIngest, d.startBackground, d.listen}
+	steps := []func() error{d.loadConfig, d.openStore, d.startTrust, d.startPeople, d.startJudge, d.startIngest, d.startBackground, d.startChecks, d.listen}
 	for _, step := range steps {
 		if err := step(); err != nil {
 			return d, err
@@ -222,6 +230,21 @@ func (d *Daemon) openStore() error {
 	return nil
 }
 
+// startPeople builds the accounts, sessions and signatures, and in the
+// demo gives the admin account a new password.
+func (d *Daemon) startPeople() error {
+	var err error
+	if d.people, err = newPeople(context.Background(), d.st, d.cfg, d.cfg.TLS.Enabled()); err != nil {
+		return err
+	}
+	if d.o.Demo {
+		if d.demoPassword, err = d.people.demoAdmin(context.Background()); err != nil {
+			return fmt.Errorf("demo administrator: %w", err)
+		}
+	}
+	return nil
+}
+
 // startJudge builds the registry of instruments, the live zone state
 // (restored from the store) and the alarm rules with their notifiers.
 func (d *Daemon) startJudge() error {
@@ -236,11 +259,20 @@ func (d *Daemon) startJudge() error {
 	if d.reg, err = d.cfg.Registry(); err != nil {
 		return asUsage(err)
 	}
+	if d.reg, err = d.reg.WithBounds(d.cfg.Bounds()); err != nil {
+		return asUsage(err)
+	}
 	if d.zones, err = alerts.NewZoneTracker(d.cfg.Zones, d.cfg.Bindings(), alerts.ZoneTrackerOptions{Now: d.now}); err != nil {
 		return asUsage(err)
 	}
 	if d.history, d.states, err = restoreZones(d.st, d.zones, d.cfg, d.now(), d.log); err != nil {
-		return fmt.Errorf("restoring zone state from the store: %w", err)
+		if !d.damaged() {
+			return fmt.Errorf("restoring zone state from the store: %w", err)
+		}
+		// A damaged store still serves what it can: the zones start
+		// without history, so they show unknown until readings come.
+		d.log.Error("zone state not restored from the damaged store: zones start unknown", "err", err)
+		d.history, d.states = nil, nil
 	}
 	if d.alarms, err = newAlarmService(d.cfg, d.st, d.zones, d.now, d.log); err != nil {
 		return asUsage(err)
@@ -252,7 +284,7 @@ func (d *Daemon) startJudge() error {
 // access rules, the metrics and the API.
 func (d *Daemon) startIngest() error {
 	ingestMetrics := alerts.NewIngestMetrics(counterIDs(d.cfg))
-	d.ingest = collector.NewIngest(d.reg, storeSink{d.st, ingestMetrics, d.log}, collector.IngestOptions{Retention: d.cfg.RetentionOrDefault(), Now: d.now})
+	d.ingest = collector.NewIngest(d.reg, storeSink{d.st, ingestMetrics, d.log, &d.gate}, collector.IngestOptions{Retention: d.cfg.RetentionOrDefault(), Now: d.now})
 	d.ingest.OnReadings(func(rs []collector.Reading) {
 		obs := make([]alerts.Observation, len(rs))
 		for i := range rs {
@@ -277,6 +309,7 @@ func (d *Daemon) startIngest() error {
 	if d.auth, err = access.NewAuthorizer(d.cfg.Access, d.o.Demo); err != nil {
 		return asUsage(err)
 	}
+	d.auth.SetSignaturesRequired(d.cfg.SignaturesRequired)
 	d.metrics = prometheus.NewRegistry()
 	d.metrics.MustRegister(
 		collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}), collectors.NewGoCollector(),
@@ -284,15 +317,19 @@ func (d *Daemon) startIngest() error {
 		d.alarms,
 		alerts.NewZoneCollector(d.zones),
 		alerts.NewPressureCollector(d.alarms),
-		alerts.NewAlarmCollector(d.alarms.eng, zoneIDs(d.cfg)),
+		alerts.NewAlarmCollector(d.alarms, zoneIDs(d.cfg)),
 		ingestMetrics,
 		alerts.NewNotifierCollector(d.alarms.disp),
 		d.envMetrics,
 		buildInfoCollector(),
 	)
 	d.api = api.New(api.Options{Site: d.cfg, Zones: d.zones, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
-		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now,
+		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now, Signatures: d.people,
 		EnvIngest: d.envIngest, EnvStore: d.st})
+	d.gate.mu.Lock()
+	d.gate.onChange = d.api.SetWriteProblem
+	d.gate.mu.Unlock()
+	d.api.SetWriteProblem(d.gate.problem())
 	return nil
 }
 
@@ -308,7 +345,7 @@ func (d *Daemon) startBackground() error {
 		defer d.wg.Done()
 		d.audit.watchClock(bg)
 	}()
-	if err := d.alarms.start(bg, &d.wg, d.history, d.states); err != nil {
+	if err := d.alarms.start(bg, &d.wg, d.history, d.states, d.damaged()); err != nil {
 		return err
 	}
 	stopModbus, err := startModbus(bg, d.reg, d.ingest, d.log, modbusHooks{Metrics: d.metrics, Now: d.now, Events: d.alarms, Environment: d.envIngest})
@@ -354,7 +391,10 @@ func (d *Daemon) listen() error {
 // routes assembles the API and the pages behind the common middleware.
 func (d *Daemon) routes() http.Handler {
 	r := chi.NewRouter()
-	r.Use(httpx.Recoverer(d.log), httpx.RequestLog(d.log))
+	r.Use(httpx.Recoverer(d.log), httpx.RequestLog(d.log), d.gate.middleware, d.people.web.Middleware)
+	if d.cfg.TLS.Enabled() {
+		r.Use(httpx.HSTS)
+	}
 	r.NotFound(func(w http.ResponseWriter, r *http.Request) {
 		httpx.WriteError(w, http.StatusNotFound, "no such endpoint: "+r.URL.Path)
 	})
@@ -362,7 +402,9 @@ func (d *Daemon) routes() http.Handler {
 		httpx.WriteError(w, http.StatusMethodNotAllowed, r.Method+" is not allowed on "+r.URL.Path)
 	})
 	d.api.Register(r)
-	web.New(web.Options{Site: d.cfg, Store: d.st, Certify: d.api, Records: d.api, Access: d.auth, Errors: api.Errors, Log: d.log, Now: d.now}).Register(r)
+	d.people.register(r)
+	web.New(web.Options{Site: d.cfg, Store: d.st, Certify: d.api, Records: d.api, Access: d.auth, Errors: api.Errors, Log: d.log, Now: d.now,
+		Accounts: d.people, Signatures: d.people, Audit: d.people}).Register(r)
 	return r
 }
 
@@ -400,6 +442,11 @@ func (d *Daemon) Run(ctx context.Context) error {
 	// On record before anyone is told where to connect.
 	d.audit.record(ctx, store.AuditActorSystem, store.AuditStart, d.cfg.Site, "cleanmon serve on "+d.url, nil)
 	fmt.Fprintf(d.o.Stdout, "cleanmon: serving on %s\n", d.url)
+	if d.demoPassword != "" {
+		// Once, here: the password is kept nowhere but in its hash.
+		fmt.Fprintf(d.o.Stdout, "cleanmon: sign in at %s/signin as admin with password %s\n", d.url, d.demoPassword)
+		d.demoPassword = ""
+	}
 	if err := d.notify.send("READY=1\nSTATUS=serving on " + d.url); err != nil {
 		d.log.Warn("telling the service manager that the daemon is ready", "err", err)
 	}

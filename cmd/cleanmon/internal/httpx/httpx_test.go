@@ -46,44 +46,23 @@ func TestTableStatus(t *testing.T) {
 	}
 }
 
-// DecodeStrict refuses what a lenient decoder would let through, naming
-// the field or the reason; the one JSON writer sets the same headers on
-// every answer.
-func TestDecodeStrict(t *testing.T) {
-	for _, c := range []struct {
-		body   string
-		status int
-		field  string
-	}{
-		{`{"state":"at-rest"}`, 0, ""},
-		{`{"state":"at-rest","who":"x"}`, http.StatusBadRequest, "who"},
-		{`{"state":"at-rest"} {}`, http.StatusBadRequest, ""},
-		{`state=at-rest`, http.StatusBadRequest, ""},
-		{`{"state":"` + strings.Repeat("x", 100) + `"}`, http.StatusRequestEntityTooLarge, ""},
-	} {
-		var v struct {
-			State string `json:"state"`
-		}
-		rec := httptest.NewRecorder()
-		ok := DecodeStrict(rec, httptest.NewRequest("PUT", "/", strings.NewReader(c.body)), 64, &v, "state")
-		if ok != (c.status == 0) {
-			t.Errorf("%s: ok %v", c.body, ok)
-			continue
-		}
-		if ok {
-			if v.State != "at-rest" {
-				t.Errorf("%s: decoded %+v", c.body, v)
-			}
-			continue
-		}
-		var e ErrorBody
-		if err := json.Unmarshal(rec.Body.Bytes(), &e); err != nil || rec.Code != c.status || e.Field != c.field || e.Error == "" {
-			t.Errorf("%s: %d %s", c.body, rec.Code, rec.Body.String())
-		}
-		for k, want := range map[string]string{"Content-Type": "application/json", "Cache-Control": "no-store", "X-Content-Type-Options": "nosniff"} {
-			if got := rec.Header().Get(k); got != want {
-				t.Errorf("%s: %s %q", c.body, k, got)
-			}
+// A refusal is the one JSON error body with the common headers, closes
+// the connection, and reads the rest of the body so the client can read
+// the answer.
+func TestWriteRefusal(t *testing.T) {
+	body := strings.NewReader(strings.Repeat("x", 1<<20))
+	rec := httptest.NewRecorder()
+	WriteRefusal(rec, httptest.NewRequest("POST", "/", body), http.StatusRequestEntityTooLarge, ErrorBody{Error: "body larger than 64 bytes"})
+	var e ErrorBody
+	if err := json.Unmarshal(rec.Body.Bytes(), &e); err != nil || rec.Code != http.StatusRequestEntityTooLarge || e.Error == "" {
+		t.Errorf("%d %s", rec.Code, rec.Body.String())
+	}
+	if body.Len() != 0 {
+		t.Errorf("%d bytes of the refused body left unread", body.Len())
+	}
+	for k, want := range map[string]string{"Content-Type": "application/json", "Cache-Control": "no-store", "X-Content-Type-Options": "nosniff", "Connection": "close"} {
+		if got := rec.Header().Get(k); got != want {
+			t.Errorf("%s %q", k, got)
 		}
 	}
 }

@@ -12,9 +12,15 @@ import (
 )
 
 // Identity is who sent a request, as far as the access layer could tell:
-// the name of the token, or "" for none. It is filled in by the access
-// middleware, which runs inside RequestLog, and read by the log line.
-type Identity struct{ Token string }
+// the name of the token, or the person signed in on the pages, or neither.
+// It is filled in by the access middleware, which runs inside RequestLog,
+// and read by the log line and the handlers that record who acted.
+type Identity struct {
+	Token    string // the bearer token's name; "" for none
+	User     string // the signed-in person's account name; "" for none
+	FullName string // the signed-in person's full name
+	Role     string // the role of the token or the person
+}
 
 // identityKey is the context key of a request's *Identity; a type of its
 // own so that no other package can collide with it.
@@ -61,7 +67,7 @@ func RequestLog(log *slog.Logger) func(http.Handler) http.Handler {
 				log.Log(r.Context(), lvl, msg,
 					"method", r.Method, "path", r.URL.Path, "status", status,
 					"bytes", ww.BytesWritten(), "duration", time.Since(start).Round(time.Microsecond),
-					"remote", r.RemoteAddr, "token", id.Token)
+					"remote", r.RemoteAddr, "token", id.Token, "user", id.User)
 			}()
 			next.ServeHTTP(ww, r)
 			completed = true

@@ -56,6 +56,9 @@ type Config struct {
 	// AllowPlainHTTP permits serving without TLS on an address other than
 	// loopback (a closed instrument network behind its own protection).
 	AllowPlainHTTP bool `yaml:"allow_plain_http"`
+	// Audit and Ingest: the signed record and the ingest bounds (trust.go).
+	Audit  AuditConfig  `yaml:"audit"`
+	Ingest IngestConfig `yaml:"ingest"`
 	// TimeZone is the site's IANA time zone (UTC when empty): the pages
 	// show times and cut shifts in it. Shifts are the start times of the
 	// site's shifts ("06:00"), each running until the next.
@@ -63,6 +66,13 @@ type Config struct {
 	Shifts   []string `yaml:"shifts"`
 	// Reports are the files the daemon writes by itself.
 	Reports Reports `yaml:"reports"`
+	// Accounts are the rules for people who sign in on the pages; OIDC
+	// the site's identity provider, if any.
+	Accounts access.AccountsConfig `yaml:"accounts"`
+	OIDC     access.OIDCConfig     `yaml:"oidc"`
+	// SignaturesRequired refuses acknowledgements and operating-state
+	// changes made with an API token: only a person's signature makes them.
+	SignaturesRequired bool `yaml:"signatures_required"`
 
 	// source and digest name the file the configuration was read from and
 	// the SHA-256 of its bytes, for the audit trail.
@@ -540,8 +550,10 @@ func (d *nodeDecoder) check(c *Config) {
 
 	d.checkClock(c)
 	d.checkTokens(c.Access.Tokens)
+	d.checkPeople(c.Accounts, c.OIDC)
 	d.checkSections(c)
 	d.checkAcross(c)
+	d.checkTrust(c)
 	d.checkInstruments(c)
 }
 

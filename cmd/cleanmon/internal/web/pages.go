@@ -134,6 +134,7 @@ func (s *Server) Register(r chi.Router) {
 		r.With(short, read).Get("/ui/site", s.uiSite)
 		r.With(long, read).Get("/ui/pressure/{sensor}", s.uiPressure)
 		r.With(long, read).Get("/certify/report", s.certifyReport)
+		s.registerPeople(r)
 	})
 }
 

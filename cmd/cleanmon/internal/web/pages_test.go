@@ -5,6 +5,7 @@ import (
 	"cleanmon/alerts"
 	"cleanmon/classify"
 	"cleanmon/cmd/cleanmon/internal/access"
+	"cleanmon/cmd/cleanmon/internal/people"
 	"cleanmon/cmd/cleanmon/internal/site"
 	"cleanmon/collector"
 	"cleanmon/store"
@@ -34,15 +35,16 @@ func TestPageRoutes(t *testing.T) {
 	}
 	var cases []want
 	for name, page := range map[string]string{"/": "overview.html", "/alarms": "alarms.html", "/certify": "certify.html", "/zones/hood": "zone.html",
-		"/alarms/a1/investigation": "investigation.html", "/runs/LOT-1": "run.html", "/zones/hood/trend": "trend.html"} {
+		"/alarms/a1/investigation": "investigation.html", "/runs/LOT-1": "run.html", "/zones/hood/trend": "trend.html",
+		"/signin": "signin.html", "/accounts": "accounts.html", "/audit": "audit.html"} {
 		cases = append(cases, want{name, "text/html; charset=utf-8", webPages[page].body})
 	}
 	for name, f := range webAssets {
 		cases = append(cases, want{"/assets/" + name, contentTypes[path.Ext(name)], f.body})
 	}
 	sort.Slice(cases, func(i, j int) bool { return cases[i].path < cases[j].path })
-	if len(webAssets) < 7 || len(webPages) != 7 {
-		t.Fatalf("embedded %d assets and %d pages; want the 7 pages and their scripts, style sheet and icon", len(webAssets), len(webPages))
+	if len(webAssets) < 10 || len(webPages) != 10 {
+		t.Fatalf("embedded %d assets and %d pages; want the 10 pages and their scripts, style sheet and icon", len(webAssets), len(webPages))
 	}
 	for _, c := range cases {
 		t.Run(c.path, func(t *testing.T) {
@@ -255,6 +257,7 @@ func newPageServer(t *testing.T) *pageServer {
 	}
 	r := chi.NewRouter()
 	New(Options{Site: cfg, Store: fakePressure{}, Certify: fakeCertifier{}, Records: fakeRecords{}, Access: auth, Log: slog.New(slog.NewTextHandler(io.Discard, nil)),
+		Accounts: noPeople{}, Signatures: noPeople{}, Audit: noPeople{},
 		Now: func() time.Time { return time.Date(2026, 3, 2, 12, 0, 0, 0, time.UTC) }}).Register(r)
 	return &pageServer{t: t, h: r}
 }
@@ -280,4 +283,20 @@ type fakeCertifier struct{}
 
 func (fakeCertifier) CertifyStored(context.Context, string, string, string) (int, []byte, *classify.Report) {
 	return http.StatusNotFound, []byte(`{"error":"no readings"}`), nil
+}
+
+// noPeople has no accounts, no signatures and a chain it cannot check:
+// the people's routes are tested end to end with the daemon.
+type noPeople struct{}
+
+func (noPeople) Accounts() ([]AccountView, error) { return nil, nil }
+func (noPeople) ManageAccount(context.Context, string, AccountOp) (string, error) {
+	return "", people.ErrNotFound
+}
+func (noPeople) Sign(context.Context, people.Session, people.SignRequest) (people.Signature, error) {
+	return people.Signature{}, people.ErrReauth
+}
+func (noPeople) SignaturesFor(string) []people.Signature { return nil }
+func (noPeople) AuditStatus(context.Context) AuditStatus {
+	return AuditStatus{Problems: []string{"not checked"}}
 }

@@ -72,6 +72,7 @@ func (s *Server) certifyReport(w http.ResponseWriter, r *http.Request) {
 		SamplesFile: fmt.Sprintf("stored readings %s – %s UTC; classification JSON of GET /api/v1/zones/%s/classification",
 			tf.UTC().Format("2006-01-02 15:04:05"), tt.UTC().Format("2006-01-02 15:04:05"), zone),
 		SamplesSHA256: hex.EncodeToString(sum[:]),
+		Signatures:    s.reportSignaturesFor(reportSubject(zone, from, to), body),
 	}
 	t := classify.Target{State: rep.State, Edition: rep.Edition, AreaM2: rep.AreaM2}
 	if rep.Class != nil {
@@ -106,5 +107,5 @@ func (s *Server) certifyReport(w http.ResponseWriter, r *http.Request) {
 	w.Header().Set("Content-Disposition", `attachment; filename="`+name+`.html"`)
 	w.Header().Set("Cache-Control", "no-store")
 	w.WriteHeader(http.StatusOK)
-	w.Write(b.Bytes())
+	w.Write(report.WithSignatures(b.Bytes(), s.reportSignatureLines(reportSubject(zone, from, to), body)))
 }

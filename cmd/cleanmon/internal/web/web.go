@@ -40,6 +40,11 @@ type Options struct {
 	Errors httpx.Table
 	Log    *slog.Logger
 	Now    func() time.Time
+	// The people who sign in: the admin's accounts page, signatures of
+	// reports, and the audit chain's state for the audit page.
+	Accounts   Accounts
+	Signatures Signatures
+	Audit      AuditState
 }
 
 // Server serves the pages; Register mounts them.
@@ -52,9 +57,13 @@ type Server struct {
 	errs    httpx.Table
 	log     *slog.Logger
 	now     func() time.Time
+	acc     Accounts
+	sigs    Signatures
+	audit   AuditState
 }
 
 // New returns the pages over o.
 func New(o Options) *Server {
-	return &Server{cfg: o.Site, store: o.Store, certify: o.Certify, records: o.Records, auth: o.Access, errs: o.Errors, log: o.Log, now: o.Now}
+	return &Server{cfg: o.Site, store: o.Store, certify: o.Certify, records: o.Records, auth: o.Access, errs: o.Errors, log: o.Log, now: o.Now,
+		acc: o.Accounts, sigs: o.Signatures, audit: o.Audit}
 }

@@ -4,7 +4,7 @@
 // refreshed list, so a refresh never eats what the operator is typing.
 
 import {
-  init, get, request, poll, banner, explain, el, alarmStateBadge, levelBadge, num, timeEl, session, onSession,
+  init, get, request, poll, banner, explain, el, alarmStateBadge, levelBadge, num, timeEl, session, onSession, signatureText, reauthHref,
 } from "./common.js";
 
 let view = new URLSearchParams(location.search).get("view") === "all" ? "all" : "active";
@@ -52,6 +52,13 @@ function openAck(a) {
       ? "Your token (" + s.name + ", role " + s.role + ") may not acknowledge: it needs the operator role."
       : "Sign in with an operator token to acknowledge.", "error");
   }
+  const person = !!(s && s.person);
+  document.getElementById("ack-sign").hidden = !person;
+  document.getElementById("ack-by").parentElement.hidden = person;
+  if (person) {
+    document.getElementById("ack-signer").textContent = s.full_name + " (" + s.name + ")";
+    document.getElementById("ack-password-box").hidden = s.method === "oidc";
+  }
   document.getElementById("ack-comment").focus();
   render();
 }
@@ -82,7 +89,8 @@ function render() {
       td("Value", "", value(a)),
       td("Peak", "", typeof a.peak === "number" && a.peak_time ? [peak(a), " at ", timeEl(a.peak_time, true)] : "—"),
       td("Message", "wide", a.message),
-      td("Acknowledged", "acked", a.acknowledged_by ? [a.acknowledged_by, a.acknowledged_at ? [" ", timeEl(a.acknowledged_at, true)] : "", a.comment ? [el("br"), "“" + a.comment + "”"] : ""] : "—"),
+      td("Acknowledged", "acked", a.acknowledged_by ? [a.acknowledged_by, a.acknowledged_at ? [" ", timeEl(a.acknowledged_at, true)] : "", a.comment ? [el("br"), "“" + a.comment + "”"] : ""] : "—",
+        (a.signatures || []).map((sig) => el("div", { class: "signature" }, "Signed: " + signatureText(sig)))),
       td("", "act", a.state === "active"
         ? el("button", { type: "button", class: "ack-btn", onclick: () => openAck(a) }, "Acknowledge")
         : "", " ", el("a", { class: "investigate", href: "/alarms/" + pathSegment(a.id) + "/investigation" }, "Investigate")),
@@ -116,10 +124,25 @@ function wire(p) {
     btn.disabled = true;
     setMsg("ack-msg", "Sending…");
     try {
-      const a = await request("POST", "/api/v1/alarms/" + pathSegment(acking.id) + "/ack", {
-        by: document.getElementById("ack-by").value.trim(),
-        comment: document.getElementById("ack-comment").value.trim(),
-      });
+      const body = { comment: document.getElementById("ack-comment").value.trim() };
+      const s = session();
+      if (s && s.person) {
+        body.signature = { meaning: "acknowledged", password: document.getElementById("ack-password").value };
+      } else {
+        body.by = document.getElementById("ack-by").value.trim();
+      }
+      document.getElementById("ack-password").value = "";
+      let a;
+      try {
+        a = await request("POST", "/api/v1/alarms/" + pathSegment(acking.id) + "/ack", body);
+      } catch (e) {
+        if (e.status === 401 && s && s.method === "oidc") {
+          setMsg("ack-msg", explain(e, "Signing"), "error");
+          document.getElementById("ack-msg").append(" ", el("a", { href: reauthHref(), id: "reauth-link" }, "Sign in at the provider again"));
+          return;
+        }
+        throw e;
+      }
       document.getElementById("ack-comment").value = "";
       acking = null;
       document.getElementById("ack-panel").hidden = true;

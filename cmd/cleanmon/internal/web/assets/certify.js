@@ -3,7 +3,7 @@
 // download the HTML report and the JSON. The address keeps zone, from and
 // to, so a result can be bookmarked or sent.
 
-import { init, get, request, download, explain, el, icon, num, targetText, timeEl, wallParts, fromWall, tzLabel } from "./common.js";
+import { init, get, request, download, explain, el, icon, num, targetText, timeEl, wallParts, fromWall, tzLabel, session, signatureText, reauthHref } from "./common.js";
 
 const HOUR = 3600e3;
 const PRESETS = { "24h": 24 * HOUR, "7d": 7 * 24 * HOUR, "30d": 30 * 24 * HOUR };
@@ -105,12 +105,55 @@ async function evaluate() {
     const rep = JSON.parse(text);
     shown = { zone, from, to, text };
     show(rep);
+    await showSignatures();
     setMsg("cert-msg", "");
   } catch (e) {
     shown = null;
     setMsg("cert-msg", explain(e, "Certifying " + zone), "error");
   }
   document.body.dataset.certReady = "yes";
+}
+
+function listSignatures(sigs) {
+  const ul = document.getElementById("sig-list");
+  ul.replaceChildren(...(sigs.length ? sigs.map((sig) => el("li", { dataset: { meaning: sig.meaning, user: sig.user } },
+    signatureText(sig), sig.matches ? "" : " — NOT of this report as it reads now")) : [el("li", { class: "muted" }, "Not signed yet.")]));
+}
+
+// showSignatures lists the report's signatures and offers the meanings
+// the signed-in person may give.
+async function showSignatures() {
+  const q = new URLSearchParams({ zone: shown.zone, from: shown.from, to: shown.to });
+  listSignatures(await get("/certify/report/signatures?" + q.toString()));
+  const s = session();
+  const form = document.getElementById("sign-form");
+  form.hidden = !(s && s.person && s.may_sign && s.may_sign.length);
+  if (!form.hidden) {
+    document.getElementById("sign-meaning").replaceChildren(...s.may_sign.map((m) => el("option", { value: m }, m)));
+    document.getElementById("sign-password-box").hidden = s.method === "oidc";
+  }
+}
+
+async function sign() {
+  if (!shown) return;
+  const s = session();
+  setMsg("sign-msg", "Signing…");
+  try {
+    const sigs = await request("POST", "/certify/report/sign", {
+      zone: shown.zone, from: shown.from, to: shown.to,
+      meaning: document.getElementById("sign-meaning").value,
+      password: document.getElementById("sign-password").value,
+    });
+    listSignatures(sigs);
+    setMsg("sign-msg", "Signed.", "ok");
+  } catch (e) {
+    setMsg("sign-msg", explain(e, "Signing"), "error");
+    if (e.status === 401 && s && s.method === "oidc") {
+      document.getElementById("sign-msg").append(" ", el("a", { href: reauthHref(), id: "reauth-link" }, "Sign in at the provider again"));
+    }
+  } finally {
+    document.getElementById("sign-password").value = "";
+  }
 }
 
 async function loadZones() {
@@ -125,6 +168,10 @@ function wire() {
   document.getElementById("cert-form").addEventListener("submit", (ev) => {
     ev.preventDefault();
     evaluate();
+  });
+  document.getElementById("sign-form").addEventListener("submit", (ev) => {
+    ev.preventDefault();
+    sign();
   });
   document.getElementById("dl-html").addEventListener("click", async () => {
     if (!shown) return;

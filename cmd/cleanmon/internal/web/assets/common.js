@@ -43,7 +43,12 @@ export async function request(method, path, body, { raw = false, signal } = {}) 
   const headers = { Accept: "application/json" };
   const t = token();
   if (t) headers.Authorization = "Bearer " + t;
-  const init = { method, headers, signal, cache: "no-store", credentials: "omit" };
+  // A person's session rides on its cookie; a state-changing request
+  // echoes the session's CSRF token, and a read the page makes by itself
+  // does not count as the person's activity (idle time-out).
+  if (method === "GET") headers["X-Cleanmon-Background"] = "1";
+  else if (sessionInfo && sessionInfo.csrf) headers["X-CSRF-Token"] = sessionInfo.csrf;
+  const init = { method, headers, signal, cache: "no-store", credentials: "same-origin" };
   if (body !== undefined) {
     headers["Content-Type"] = "application/json";
     init.body = JSON.stringify(body);
@@ -82,7 +87,7 @@ export async function download(path, fallbackName) {
   const headers = {};
   const t = token();
   if (t) headers.Authorization = "Bearer " + t;
-  const resp = await fetch(path, { headers, cache: "no-store", credentials: "omit" });
+  const resp = await fetch(path, { headers, cache: "no-store", credentials: "same-origin" });
   if (!resp.ok) {
     let msg = resp.status + " " + resp.statusText;
     try {
@@ -110,9 +115,12 @@ export function explain(err, doing) {
   if (!(err instanceof APIError)) return doing + " failed: " + err.message;
   switch (err.status) {
     case 401:
-      return doing + " needs a valid access token: sign in (top right). The daemon said: " + err.message + ".";
+      return doing + " needs a valid access token or a person signed in (top right). The daemon said: " + err.message + ".";
     case 403:
-      return doing + " is not allowed for this token. It needs the operator role. The daemon said: " + err.message + ".";
+      if (err.message.includes("which may not")) {
+        return doing + " is not allowed for this sign-in. It needs the operator role. The daemon said: " + err.message + ".";
+      }
+      return doing + " was refused. The daemon said: " + err.message + ".";
     case 0:
       return doing + " failed: " + err.message + ".";
   }
@@ -133,7 +141,19 @@ export function onSession(fn) {
   if (sessionInfo) fn(sessionInfo);
 }
 
-const ANONYMOUS = { open: false, open_reads: false, signed_in: false, may_read: false, may_operate: false };
+const ANONYMOUS = { open: false, open_reads: false, signed_in: false, may_read: false, may_operate: false, person: false, may_sign: [] };
+
+// signatureText is one signature as a line: meaning, who, when, and the
+// start of the SHA-256 of what was signed.
+export function signatureText(sig) {
+  return sig.meaning + " by " + sig.full_name + " (" + sig.user + "), " + new Date(sig.time).toISOString().replace(".000Z", "Z") + ", SHA-256 " + sig.sha256.slice(0, 16) + "…";
+}
+
+// reauthLink sends a provider-signed-in person through the provider again
+// before signing, back to this page.
+export function reauthHref() {
+  return "/auth/oidc/start?reauth=1&next=" + encodeURIComponent(location.pathname + location.search);
+}
 
 // refreshSession asks the daemon what the page's token may do and shows
 // it. A token the daemon refuses is dropped at once.
@@ -164,6 +184,7 @@ async function refreshSession() {
   sessionInfo = s;
   if (who) {
     if (note) who.textContent = note;
+    else if (s.person) who.textContent = "Signed in as " + s.full_name + " (" + s.name + ", " + s.role + ")";
     else if (s.open) who.textContent = "Open demo: no token needed";
     else if (s.signed_in) who.textContent = "Signed in as " + s.name + " (" + s.role + ")";
     else if (s.open_reads) who.textContent = "Not signed in: reading only";
@@ -177,6 +198,14 @@ async function refreshSession() {
   if (out) out.hidden = !s.signed_in;
   if (input) input.hidden = s.open || s.signed_in;
   if (inBtn) inBtn.hidden = s.open || s.signed_in;
+  const link = document.getElementById("signin-link");
+  if (link) {
+    link.hidden = s.signed_in;
+    link.href = "/signin?next=" + encodeURIComponent(location.pathname + location.search);
+  }
+  const nav = document.getElementById("nav-accounts");
+  if (nav) nav.hidden = !s.may_admin;
+  document.body.dataset.person = s.person ? "yes" : "no";
   for (const fn of sessionListeners) fn(s);
 }
 
@@ -193,6 +222,14 @@ function wireSignIn() {
     await refreshSession();
   });
   document.getElementById("signout-btn").addEventListener("click", async () => {
+    if (sessionInfo && sessionInfo.person) {
+      // A plain form post: the daemon ends the session and sends us on.
+      const f = el("form", { method: "post", action: "/auth/signout", hidden: true },
+        el("input", { type: "hidden", name: "csrf_token", value: sessionInfo.csrf }));
+      document.body.append(f);
+      f.submit();
+      return;
+    }
     setToken("");
     await refreshSession();
   });

@@ -6,7 +6,7 @@
 
 import {
   init, get, request, poll, banner, explain, el, attentionBadge, clearContradicted, stateBadge, dpBadge, dpStatus, levelBadge, alarmStateBadge, num, pct, pa,
-  targetText, OP_STATES, sizeKeys, timeEl, timeText, ago, siteInfo,
+  targetText, OP_STATES, sizeKeys, timeEl, timeText, ago, siteInfo, session, onSession, reauthHref,
 } from "./common.js";
 import { startRuns } from "./zone-runs.js";
 import { timeChart } from "./chart.js";
@@ -349,9 +349,15 @@ function wireControls() {
     ev.preventDefault();
     const body = {
       state: document.getElementById("opstate-state").value,
-      by: document.getElementById("opstate-by").value.trim(),
       reason: document.getElementById("opstate-reason").value.trim(),
     };
+    const s = session();
+    if (s && s.person) {
+      body.signature = { meaning: "performed", password: document.getElementById("opstate-password").value };
+      document.getElementById("opstate-password").value = "";
+    } else {
+      body.by = document.getElementById("opstate-by").value.trim();
+    }
     setMsg("opstate-msg", "Sending…");
     try {
       const z = await request("PUT", api + "/state", body);
@@ -361,7 +367,16 @@ function wireControls() {
       document.getElementById("opstate-reason").value = "";
     } catch (e) {
       setMsg("opstate-msg", explain(e, "Changing the operating state"), "error");
+      if (e.status === 401 && s && s.method === "oidc") {
+        document.getElementById("opstate-msg").append(" ", el("a", { href: reauthHref(), id: "reauth-link" }, "Sign in at the provider again"));
+      }
     }
+  });
+  // A person signs with the password (a provider sign-in signs by a
+  // fresh sign-in instead); a token's user types a name as a remark.
+  onSession((s) => {
+    document.getElementById("opstate-by-box").hidden = !!s.person;
+    document.getElementById("opstate-sign").hidden = !s.person || s.method === "oidc";
   });
 }
 

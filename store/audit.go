@@ -14,13 +14,18 @@ import (
 // transaction of the change they record. AppendAudit refuses them, so
 // that only the store can write what Verify checks against the data.
 const (
-	AuditChainStart = "chain-start"      // entry #1: the chain begins (with what the file held before it)
-	AuditReadings   = "readings-batch"   // one AppendReadings call: its stored readings' digest
-	AuditPressure   = "pressure-batch"   // one AppendPressure call: its stored samples' digest
-	AuditOpState    = "operating-state"  // one SetOperatingState change
-	AuditAlarm      = "alarm-transition" // one RecordAlarms record, acknowledgements included
-	AuditSweep      = "sweep"            // one Sweep transaction: its horizon and what it deleted
-	AuditBackup     = "backup"           // a Backup or BackupFile that completed
+	AuditChainStart = "chain-start"       // entry #1: the chain begins (with what the file held before it)
+	AuditReadings   = "readings-batch"    // one AppendReadings call: its stored readings' digest
+	AuditPressure   = "pressure-batch"    // one AppendPressure call: its stored samples' digest
+	AuditOpState    = "operating-state"   // one SetOperatingState change
+	AuditAlarm      = "alarm-transition"  // one RecordAlarms record, acknowledgements included
+	AuditSweep      = "sweep"             // one Sweep transaction: its horizon and what it deleted
+	AuditBackup     = "backup"            // a Backup or BackupFile that completed
+	AuditEnv        = "environment-batch" // one AppendEnvironment call: its stored samples' digest
+	// AuditEnvStart is written once, on the first start of a file whose
+	// chain began before environment samples were covered: the newest key
+	// and count of each environment sensor then, as the chain start does.
+	AuditEnvStart = "environment-cover-start"
 )
 
 // Actions the daemon is expected to record through AppendAudit; any
@@ -39,6 +44,7 @@ const AuditActorSystem = "cleanmon"
 var storeActions = map[string]bool{
 	AuditChainStart: true, AuditReadings: true, AuditPressure: true, AuditOpState: true,
 	AuditAlarm: true, AuditSweep: true, AuditBackup: true, AuditKeyChange: true, AuditUncleanStop: true,
+	AuditEnv: true, AuditEnvStart: true,
 }
 
 // AuditEntry is one entry of the audit trail. Each entry is chained to the

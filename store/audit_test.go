@@ -192,7 +192,7 @@ func TestAuditOfStoreWrites(t *testing.T) {
 	want := []struct{ action, actor, subject, reason string }{
 		{AuditChainStart, AuditActorSystem, "", "audit chain started"},
 		{AuditReadings, AuditActorSystem, "pc-asm-1", "ingest: 10 readings"},
-		{AuditReadings, AuditActorSystem, "pc-asm-1,pc-asm-2", "ingest: 4 readings"},
+		{AuditReadings, AuditActorSystem, "pc-asm-1 and 1 more", "ingest: 4 readings"},
 		{AuditPressure, AuditActorSystem, "dp-asm-gown", "ingest: 1 pressure samples"},
 		{AuditOpState, "shift-lead", "assembly: maintenance", "filter change"},
 		{AuditAlarm, AuditActorSystem, "a-1", ""},
@@ -217,7 +217,8 @@ func TestAuditOfStoreWrites(t *testing.T) {
 	if !strings.Contains(got[8].Reason, "to entry #8") {
 		t.Fatalf("backup entry reason %q", got[8].Reason)
 	}
-	// The batch entry names exactly the readings it stored, in order.
+	// The batch entry names exactly the readings it stored, per counter in
+	// the order stored.
 	cv, err := decodeCoverage(got[2].Detail)
 	if err != nil {
 		t.Fatal(err)

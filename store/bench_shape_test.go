@@ -104,6 +104,12 @@ func BenchmarkSiteShape(b *testing.B) {
 			b.Fatal(err)
 		}
 		rate := ingestShape(b, s, rs)
+		// What the durable writes cost the disk: the dirty pages bbolt
+		// allocated and wrote in every transaction so far (ingest and
+		// background compaction), per reading and per batch of the shape.
+		st := s.db.Stats().TxStats
+		b.ReportMetric(float64(st.GetPageAlloc())/float64(len(rs)), "written-bytes/reading")
+		b.ReportMetric(float64(st.GetPageCount())/float64(len(rs)/shapeBatch), "page-allocs/batch")
 		if err := s.Close(); err != nil {
 			b.Fatal(err)
 		}

@@ -29,6 +29,7 @@ var (
 	}
 	metaSchema      = []byte("schema")       // uvarint schemaVersion
 	metaSweptBefore = []byte("swept_before") // 8-byte key: latest Sweep horizon
+	metaEnvCovered  = []byte("env_covered")  // present once the audit chain covers environment samples
 )
 
 // rollupSteps lists the rollup resolutions maintained on every append.

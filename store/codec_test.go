@@ -2,7 +2,9 @@ package store
 
 import (
 	"bytes"
+	"fmt"
 	"math"
+	"reflect"
 	"testing"
 	"time"
 )
@@ -83,14 +85,28 @@ func TestCoverageEncoding(t *testing.T) {
 	for i := range steady {
 		steady[i] = rec{"pc-asm-1", t0.Add(time.Duration(i) * time.Minute).UnixNano()}
 	}
+	var live, jittered []rec
+	for m := range 5 {
+		for c := range 200 {
+			live = append(live, rec{fmt.Sprintf("pc-c-%03d", c), t0.Add(time.Duration(m)*time.Minute + time.Duration(c)*time.Second).UnixNano()})
+		}
+	}
+	for i := range 50 {
+		jittered = append(jittered, rec{"pc-asm-1", t0.Add(time.Duration(i)*time.Minute + time.Duration(i%3)*time.Millisecond).UnixNano()})
+	}
 	cases := []struct {
 		name    string
 		recs    []rec
 		maxSize int // bytes of Detail, 0: not checked
 	}{
-		// One counter at a steady one-minute period: two bytes a record
-		// after the first two, plus the name and the digest.
-		{"steady period", steady, 2*1000 + 16 + 32 + 16},
+		// One counter at a steady one-minute period: the name, the count,
+		// the first key and one step, whatever the count, plus the digest.
+		{"steady period", steady, 64},
+		// The live shape: 200 counters, five readings each, interleaved in
+		// time order: names front-coded (pc-c-001, pc-c-002: two bytes
+		// each), then count, first key and one step: about 1.6 bytes a reading.
+		{"200 counters interleaved", live, 1600},
+		{"jittered period", jittered, 0},
 		{"interleaved counters, irregular", []rec{
 			{"pc-asm-2", t0.Add(time.Second).UnixNano()}, {"pc-asm-1", t0.UnixNano()},
 			{"pc-asm-2", t0.Add(61 * time.Second).UnixNano()}, {"pc-asm-1", t0.Add(-time.Hour).UnixNano()},
@@ -116,10 +132,17 @@ func TestCoverageEncoding(t *testing.T) {
 			if len(got.recs) != len(c.recs) {
 				t.Fatalf("%d records back, %d in", len(got.recs), len(c.recs))
 			}
-			for i, r := range got.recs {
-				if got.names[r.name] != c.recs[i].name || r.key != c.recs[i].key {
-					t.Fatalf("record %d back as %s %d, in %s %d", i, got.names[r.name], r.key, c.recs[i].name, c.recs[i].key)
-				}
+			// Records come back per series, each series in the order written.
+			want := map[string][]int64{}
+			for _, r := range c.recs {
+				want[r.name] = append(want[r.name], r.key)
+			}
+			back := map[string][]int64{}
+			for _, r := range got.recs {
+				back[got.names[r.name]] = append(back[got.names[r.name]], r.key)
+			}
+			if !reflect.DeepEqual(back, want) {
+				t.Fatalf("records back %v, in %v", back, want)
 			}
 		})
 	}

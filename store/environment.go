@@ -146,6 +146,7 @@ func (s *Store) AppendEnvironment(ctx context.Context, es []EnvSample) (accepted
 	err = s.submit(ctx, len(prep), func(tx *bolt.Tx) error {
 		acc, dup = 0, 0
 		series := newSeriesBuckets(tx, bucketEnvironment)
+		cov := newCoverage(coverEnv)
 		for i := range prep {
 			b, err := series.get(prep[i].sensor)
 			if err != nil {
@@ -159,8 +160,9 @@ func (s *Store) AppendEnvironment(ctx context.Context, es []EnvSample) (accepted
 				return fmt.Errorf("store: put environment sample of %q: %w", prep[i].sensor, err)
 			}
 			acc++
+			cov.add(prep[i].sensor, prep[i].key, prep[i].val)
 		}
-		return nil
+		return auditBatch(tx, cov, AuditEnv, "environment samples")
 	})
 	if err != nil {
 		return 0, 0, err

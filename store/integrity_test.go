@@ -125,8 +125,13 @@ func storeWithData(t *testing.T) string {
 	if err != nil {
 		t.Fatal(err)
 	}
-	for _, c := range []string{"pc-asm-1", "pc-asm-2", "pc-hood"} {
-		appendOK(t, s, series(c, t0, 1500))
+	// Enough counters and batches that the file has a few dozen pages in
+	// use once compacted: chunks, rollups, audit entries.
+	for _, c := range []string{"pc-asm-1", "pc-asm-2", "pc-hood", "pc-asm-3", "pc-asm-4", "pc-gown-1", "pc-gown-2", "pc-fill-1"} {
+		rs := series(c, t0, 1500)
+		for i := 0; i < len(rs); i += 100 {
+			appendOK(t, s, rs[i:i+100])
+		}
 	}
 	if err := s.Close(); err != nil {
 		t.Fatal(err)

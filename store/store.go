@@ -61,6 +61,9 @@ type Options struct {
 	// Logger receives the rare events the caller cannot see in a return
 	// value (a damaged rollup rebuilt, a recovered panic). Nil: discarded.
 	Logger *slog.Logger `yaml:"-"`
+	// KeepFreePages turns off the rewrite of a small file that is at
+	// least half free pages at a clean stop (see Close).
+	KeepFreePages bool `yaml:"keep_free_pages"`
 
 	commit   commitMode // how writes share transactions (tests, benchmarks)
 	keepHead bool       // tests: Close leaves the head as it is
@@ -143,6 +146,9 @@ func Open(dir string, opt Options) (*Store, error) {
 		_ = db.Close()
 		return nil, err
 	}
+	if err := s.coverEnvironmentOnce(); err != nil { // envcover.go
+		log.Warn("store: could not start the audit cover of environment samples; verify will name the older ones as not covered", "path", path, "err", err)
+	}
 	if _, err := s.markRunning(); err != nil { // unclean.go; reads stay served on a full disk
 		log.Warn("store: could not mark the store open; an unclean stop of this run will not be recorded", "path", path, "err", err)
 	}
@@ -185,8 +191,42 @@ func (s *Store) Close() error {
 			s.log.Error("store: compaction at close failed; readings stay in the head", "error", err.Error())
 		}
 	}
+	shrink := s.worthShrinking()
 	s.closeAudit() // unclean.go
-	return s.db.Close()
+	if err := s.db.Close(); err != nil {
+		return err
+	}
+	if shrink { // compactfile.go; the store is closed and whole whatever this does
+		res, err := CompactFile(filepath.Dir(s.path), 0)
+		if err != nil {
+			s.log.Warn("store: could not rewrite the file without its free pages at the stop; `cleanmon compact` can", "error", err.Error())
+		} else {
+			s.log.Info("store: file rewritten without its free pages at the stop", "before_bytes", res.Before, "after_bytes", res.After, "took", res.Took.String())
+		}
+	}
+	return nil
+}
+
+// Shrinking at a clean stop (Close): a file at least half free pages (the head's
+// high-water mark, chunks rewritten as they grew) is rewritten without
+// them when it is small enough that the copy takes seconds; a larger one
+// is left for `cleanmon compact`, run when the site chooses.
+const (
+	shrinkMinBytes = 8 << 20
+	shrinkMaxBytes = 512 << 20
+)
+
+func (s *Store) worthShrinking() bool {
+	if s.opt.KeepFreePages {
+		return false
+	}
+	info, err := os.Stat(s.path)
+	if err != nil || info.Size() < shrinkMinBytes || info.Size() > shrinkMaxBytes {
+		return false
+	}
+	st := s.db.Stats()
+	pages := info.Size() / int64(s.db.Info().PageSize)
+	return int64(st.FreePageN+st.PendingPageN)*2 >= pages
 }
 
 // enter registers a call in flight; every exported method that touches
@@ -215,8 +255,25 @@ func corruptError(path string, detail error) error {
 // damaged meta or freelist pages into store errors. A panic inside
 // bolt.Open leaves no *DB to close, so the file it opened is captured and
 // closed here: otherwise its lock would outlive the failure.
-func openBolt(path string, o *bolt.Options) (db *bolt.DB, err error) {
-	var file *os.File
+func openBolt(path string, o *bolt.Options) (*bolt.DB, error) {
+	// CompactFile replaces the file while holding its lock: a process that
+	// opened the old file and then waited for the lock would write into a
+	// file no longer in place. It checks, and opens the new one.
+	for try := 0; ; try++ {
+		db, file, err := openBoltOnce(path, o)
+		if err != nil || try == 2 {
+			return db, err
+		}
+		in, ierr := file.Stat()
+		now, nerr := os.Stat(path)
+		if ierr != nil || nerr != nil || os.SameFile(in, now) {
+			return db, nil
+		}
+		_ = db.Close()
+	}
+}
+
+func openBoltOnce(path string, o *bolt.Options) (db *bolt.DB, file *os.File, err error) {
 	o.OpenFile = func(name string, flag int, perm os.FileMode) (*os.File, error) {
 		f, err := os.OpenFile(name, flag, perm)
 		file = f
@@ -234,13 +291,13 @@ func openBolt(path string, o *bolt.Options) (db *bolt.DB, err error) {
 	db, err = bolt.Open(path, 0o600, o)
 	switch {
 	case err == nil:
-		return db, nil
+		return db, file, nil
 	case errors.Is(err, bolt.ErrTimeout):
-		return nil, lockedError(path)
+		return nil, nil, lockedError(path)
 	case errors.Is(err, fs.ErrPermission), errors.Is(err, fs.ErrNotExist):
-		return nil, fmt.Errorf("store: open %s: %w", path, err)
+		return nil, nil, fmt.Errorf("store: open %s: %w", path, err)
 	}
-	return nil, corruptError(path, err)
+	return nil, nil, corruptError(path, err)
 }
 
 // probeFile opens an existing file read-only and checks that it is as
@@ -338,6 +395,9 @@ func (s *Store) initSchema() error {
 		}
 		if !startChain {
 			return nil
+		}
+		if err := meta.Put(metaEnvCovered, []byte{1}); err != nil { // the chain start covers them
+			return err
 		}
 		detail, err := chainStartDetail(tx)
 		if err != nil {

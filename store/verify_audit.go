@@ -124,6 +124,19 @@ func (a *auditCheck) entry(e *AuditEntry) {
 		}
 		a.horizon = max(a.horizon, horizon)
 		return
+	case AuditEnvStart:
+		series, _, err := decodeChainStart(e.Detail)
+		if err != nil {
+			a.add("audit entry #%d (%s): %v", e.Seq, e.Action, err)
+			a.blind = true
+			return
+		}
+		for _, s := range series {
+			if s.kind == coverEnv {
+				a.cover(s.kind, s.name).base = s
+			}
+		}
+		return
 	case AuditSweep:
 		if len(e.Detail) < 8 {
 			a.add("audit entry #%d (sweep, %s): detail too short", e.Seq, e.Time.Format(time.RFC3339Nano))
@@ -137,6 +150,8 @@ func (a *auditCheck) entry(e *AuditEntry) {
 		kind = coverPressure
 	case AuditOpState:
 		kind = coverOpState
+	case AuditEnv:
+		kind = coverEnv
 	case AuditAlarm:
 		kind = coverJournal
 	default:
@@ -191,7 +206,7 @@ func (a *auditCheck) records(e *AuditEntry, cv *covered) {
 		}
 		if val == nil {
 			compare = false
-			if (cv.kind == coverReadings || cv.kind == coverPressure) && r.key < a.sweptBefore {
+			if (cv.kind == coverReadings || cv.kind == coverPressure || cv.kind == coverEnv) && r.key < a.sweptBefore {
 				continue
 			}
 			a.add("audit entry #%d (%s, %s): %s is missing", e.Seq, e.Action, e.Time.Format(time.RFC3339Nano), recordName(cv.kind, name, key))
@@ -222,6 +237,8 @@ func recordName(kind byte, name string, key []byte) string {
 		return fmt.Sprintf("pressure of sensor %q at %s", name, keyString(key))
 	case coverOpState:
 		return fmt.Sprintf("operating state of zone %q, entry %s", name, seqString(key))
+	case coverEnv:
+		return fmt.Sprintf("environment sample of sensor %q at %s", name, keyString(key))
 	}
 	return "alarm journal entry " + seqString(key)
 }
@@ -270,7 +287,7 @@ func (a *auditCheck) coverage() {
 	for _, name := range pressureSensors(a.tx) {
 		check(coverPressure, name, nil)
 	}
-	for _, kind := range []byte{coverOpState} {
+	for _, kind := range []byte{coverOpState, coverEnv} {
 		root := a.tx.Bucket(coverBucket(kind))
 		if root == nil {
 			continue
@@ -293,6 +310,8 @@ func seriesName(kind byte, name string) string {
 		return fmt.Sprintf("the pressure of sensor %q", name)
 	case coverOpState:
 		return fmt.Sprintf("the operating states of zone %q", name)
+	case coverEnv:
+		return fmt.Sprintf("the environment samples of sensor %q", name)
 	}
 	return "the alarm journal"
 }

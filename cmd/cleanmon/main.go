@@ -36,6 +36,7 @@ func commands() []command {
 		{"verify", "check a store's consistency and integrity", runVerify},
 		{"user", "add, disable, enable, unlock or reset the account of a person (no daemon running)", runUser},
 		{"keygen", "write a key pair that signs the audit chain", runKeygen},
+		{"compact", "rewrite a stopped store without its free pages", runCompact},
 		{"report", "print a zone's month on one page: report trend --zone Z --month YYYY-MM", runReport},
 		{"runs", "import production runs from a CSV file into a running daemon", runRuns},
 		{"bench", "measure ingest throughput and latency on loopback", runBench},

@@ -18,6 +18,7 @@ import (
 	"cleanmon/cmd/cleanmon/internal/access"
 	"cleanmon/cmd/cleanmon/internal/httpx"
 	"cleanmon/cmd/cleanmon/internal/site"
+	"cleanmon/store"
 )
 
 // Options are the collaborators of the API. None may be nil: a daemon
@@ -38,6 +39,12 @@ type Options struct {
 	EnvStore  EnvironmentStore
 	// Signatures signs acknowledgements and state changes of people.
 	Signatures Signatures
+	// MaxRawRange bounds the range of one raw readings request; zero is
+	// store.DefaultMaxRawRange.
+	MaxRawRange time.Duration
+	// HeavyPerToken bounds the range walks one token runs at once; zero
+	// is DefaultHeavyPerToken.
+	HeavyPerToken int
 }
 
 // Server holds the API's collaborators; Register mounts its routes.
@@ -53,8 +60,10 @@ type Server struct {
 	now     func() time.Time
 	sigs    Signatures
 
-	envIngest EnvironmentIngest
-	envStore  EnvironmentStore
+	envIngest   EnvironmentIngest
+	envStore    EnvironmentStore
+	maxRawRange time.Duration
+	heavy       *heavyGate
 
 	// ready is set once the store is open and ingest runs, and cleared
 	// when shutdown begins, so a balancer stops sending work first.
@@ -67,13 +76,16 @@ type Server struct {
 // New returns the API over o.
 func New(o Options) *Server {
 	s := &Server{cfg: o.Site, zones: o.Zones, store: o.Store, ingest: o.Ingest, alarms: o.Alarms,
-		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now, envIngest: o.EnvIngest, envStore: o.EnvStore,
-		sigs: o.Signatures}
+		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now, sigs: o.Signatures,
+		maxRawRange: o.MaxRawRange, heavy: newHeavyGate(o.HeavyPerToken), envIngest: o.EnvIngest, envStore: o.EnvStore}
 	if s.envIngest == nil {
 		s.envIngest = NoEnvironment{}
 	}
 	if s.envStore == nil {
 		s.envStore = NoEnvironment{}
+	}
+	if s.maxRawRange <= 0 {
+		s.maxRawRange = store.DefaultMaxRawRange
 	}
 	return s
 }
@@ -98,18 +110,18 @@ func (s *Server) Register(r chi.Router) {
 
 		r.With(short, read).Get("/zones", s.listZones)
 		r.With(short, read, s.zone).Get("/zones/{zone}", s.getZone)
-		r.With(long, read, s.zone).Get("/zones/{zone}/readings", s.zoneReadings)
-		r.With(long, read, s.zone).Get("/zones/{zone}/classification", s.zoneClassification)
-		r.With(long, read, s.zone).Get("/zones/{zone}/recovery", s.zoneRecovery)
+		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/readings", s.zoneReadings)
+		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/classification", s.zoneClassification)
+		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/recovery", s.zoneRecovery)
 		r.With(short, operate, s.zone).Put("/zones/{zone}/state", s.putZoneState)
 
 		r.With(short, read).Get("/alarms", s.listAlarms)
 		r.With(short, operate).Post("/alarms/{id}/ack", s.ackAlarm)
-		r.With(long, read, s.zone).Get("/zones/{zone}/levels", s.zoneLevels)
+		r.With(long, read, s.heavy.limit, s.zone).Get("/zones/{zone}/levels", s.zoneLevels)
 		r.With(short, read).Get("/sensors", s.listSensors)
 		r.With(long, read).Get("/audit", s.listAudit)
 		r.With(short, read).Get("/audit/head", s.auditHead)
-		r.With(long, read).Get("/sensors/{sensor}/pressure", s.sensorPressure)
+		r.With(long, read, s.heavy.limit).Get("/sensors/{sensor}/pressure", s.sensorPressure)
 
 		s.registerEnvironment(r)
 		s.registerOpenAPI(r)

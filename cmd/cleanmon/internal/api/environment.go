@@ -60,7 +60,7 @@ func (s *Server) registerEnvironment(r chi.Router) {
 	read := s.auth.Require(access.PermRead)
 	r.With(short, s.auth.Require(access.PermIngest)).Post("/environment", s.postEnvironment)
 	r.With(short, read).Get("/environment", s.listEnvironment)
-	r.With(long, read).Get("/sensors/{sensor}/environment", s.sensorEnvironment)
+	r.With(long, read, s.heavy.limit).Get("/sensors/{sensor}/environment", s.sensorEnvironment)
 }
 
 // postEnvironment is POST /api/v1/environment under the rules of the

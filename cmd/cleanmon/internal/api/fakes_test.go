@@ -55,6 +55,7 @@ func (f fakeZones) SetOperatingState(ch alerts.OperatingChange, persist func(ale
 
 type fakeStore struct {
 	scanReadings func(counter string, from, to time.Time, fn func(store.Reading) error) error
+	scanRollups  func(counter string, step time.Duration, from, to time.Time, fn func(store.Rollup) error) error
 	latestDP     func(sensor string) (store.Pressure, bool, error)
 	setState     func(context.Context, store.OperatingState) error
 }
@@ -66,8 +67,30 @@ func (f fakeStore) ScanReadings(counter string, from, to time.Time, fn func(stor
 	return f.scanReadings(counter, from, to, fn)
 }
 
-func (fakeStore) ScanRollups(string, time.Duration, time.Time, time.Time, func(store.Rollup) error) error {
-	return nil
+// StreamReadings lends each reading of scanReadings as the store does:
+// the pointed-to reading is overwritten by the next one, so a caller that
+// keeps it without copying sees the wrong values.
+func (f fakeStore) StreamReadings(counter string, from, to time.Time, fn func(*store.Reading) error) error {
+	if f.scanReadings == nil {
+		return nil
+	}
+	var lent store.Reading
+	return f.scanReadings(counter, from, to, func(rd store.Reading) error {
+		lent = rd
+		lent.Counts = append(lent.Counts[:0:0], rd.Counts...)
+		err := fn(&lent)
+		for i := range lent.Counts {
+			lent.Counts[i] = 1<<64 - 1
+		}
+		return err
+	})
+}
+
+func (f fakeStore) ScanRollups(counter string, step time.Duration, from, to time.Time, fn func(store.Rollup) error) error {
+	if f.scanRollups == nil {
+		return nil
+	}
+	return f.scanRollups(counter, step, from, to, fn)
 }
 func (fakeStore) ScanPressure(string, time.Time, time.Time, func(store.Pressure) error) error {
 	return nil
@@ -158,7 +181,11 @@ var testNow = time.Date(2026, 3, 2, 12, 0, 0, 0, time.UTC)
 // router as the daemon mounts it.
 func newTestAPI(t *testing.T, o Options) http.Handler {
 	t.Helper()
-	s := newTestServer(t, o)
+	return mountTestServer(newTestServer(t, o))
+}
+
+// mountTestServer mounts s's routes as the daemon does.
+func mountTestServer(s *Server) http.Handler {
 	r := chi.NewRouter()
 	s.Register(r)
 	return r

@@ -36,6 +36,9 @@ type Store interface {
 // ReadingStore reads the stored readings and their rollups.
 type ReadingStore interface {
 	ScanReadings(counter string, from, to time.Time, fn func(store.Reading) error) error
+	// StreamReadings lends each reading for the call only (see the store's
+	// StreamReadings): the raw stream copies what it buffers.
+	StreamReadings(counter string, from, to time.Time, fn func(*store.Reading) error) error
 	ScanRollups(counter string, step time.Duration, from, to time.Time, fn func(store.Rollup) error) error
 }
 

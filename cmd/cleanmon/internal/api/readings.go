@@ -16,11 +16,6 @@ import (
 	"cleanmon/store"
 )
 
-// rawChunk is the slice of time read per step of a raw stream: the
-// readings of all the zone's counters in it are merged in memory, so it
-// bounds memory by rate, not by the range asked for.
-const rawChunk = time.Hour
-
 // rollupChunkSteps is the same bound for rolled-up rows, in steps.
 const rollupChunkSteps = 64
 
@@ -176,12 +171,38 @@ func (s *Server) zoneReadings(w http.ResponseWriter, r *http.Request) {
 		httpx.WriteFieldError(w, "step", err.Error())
 		return
 	}
-	counters := s.zoneCounters(zone, location)
-	rs := httpx.NewRowStream(w, Errors)
+	csv, ok := wantCSV(w, r)
+	if !ok {
+		return
+	}
 	if step == 0 {
-		err = s.streamRaw(r, rs, counters, from, to)
-	} else {
-		err = s.streamRollups(r, rs, counters, step, source, from, to)
+		if err := store.CheckRange(from, to, s.maxRawRange); err != nil {
+			var re *store.RangeError
+			if errors.As(err, &re) {
+				httpx.WriteFieldError(w, re.Param, re.Reason)
+				return
+			}
+			Errors.Write(w, "", err)
+			return
+		}
+	}
+	counters := s.zoneCounters(zone, location)
+	var rs rowSink
+	switch js := httpx.NewRowStream(w, Errors); {
+	case csv:
+		cs := newCSVStream(w)
+		rs = cs
+		if step == 0 {
+			err = s.streamRawCSV(r, cs, counters, from, to)
+		} else {
+			err = s.streamRollupsCSV(r, cs, counters, step, source, from, to)
+		}
+	case step == 0:
+		rs = js
+		err = s.streamRaw(r, js, counters, from, to, appendReadingRow)
+	default:
+		rs = js
+		err = s.streamRollups(r, js, counters, step, source, from, to, appendRollupRow)
 	}
 	if err != nil {
 		if !errors.Is(err, errStreamCancelled) {
@@ -191,52 +212,6 @@ func (s *Server) zoneReadings(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	rs.End()
-}
-
-func (s *Server) streamRaw(r *http.Request, rs *httpx.RowStream, counters []counterRef, from, to time.Time) error {
-	type item struct {
-		rd store.Reading
-		c  int // index into counters
-	}
-	var buf []item
-	keys := make([]httpx.SizeKeys, len(counters))
-	for a := from; a.Before(to); {
-		b := a.Add(rawChunk)
-		if b.After(to) {
-			b = to
-		}
-		buf = buf[:0]
-		for ci := range counters {
-			err := s.store.ScanReadings(counters[ci].id, a, b, func(rd store.Reading) error {
-				buf = append(buf, item{rd, ci})
-				return nil
-			})
-			if err != nil {
-				return err
-			}
-		}
-		if len(counters) > 1 { // one counter's scan is already in time order
-			sort.SliceStable(buf, func(i, j int) bool {
-				if !buf[i].rd.Time.Equal(buf[j].rd.Time) {
-					return buf[i].rd.Time.Before(buf[j].rd.Time)
-				}
-				return buf[i].rd.Counter < buf[j].rd.Counter
-			})
-		}
-		for i := range buf {
-			it := &buf[i]
-			c := &counters[it.c]
-			k := keys[it.c].Get(it.rd.Sizes)
-			if err := rs.Row(func(b []byte) []byte { return appendReadingRow(b, &it.rd, c, k) }); err != nil {
-				return err
-			}
-		}
-		if r.Context().Err() != nil {
-			return errStreamCancelled
-		}
-		a = b
-	}
-	return nil
 }
 
 // rollupAgg gathers the source rollups of one output row, per size.
@@ -276,13 +251,21 @@ func (g *rollupAgg) add(ru *store.Rollup) {
 	}
 }
 
-func (s *Server) streamRollups(r *http.Request, rs *httpx.RowStream, counters []counterRef, step, source time.Duration, from, to time.Time) error {
+func (s *Server) streamRollups(r *http.Request, rs rowSink, counters []counterRef, step, source time.Duration, from, to time.Time, row func([]byte, *rollupAgg, string) []byte) error {
 	type key struct {
 		start int64
 		c     int
 	}
 	stepName := formatStep(step)
 	for a := from; a.Before(to); {
+		// An empty stretch is jumped over, not walked a chunk at a time.
+		next, found, err := s.firstRollup(counters, source, a, to)
+		if err != nil || !found {
+			return err
+		}
+		if t := next.UTC().Truncate(step); t.After(a) {
+			a = t
+		}
 		// Chunks end on step boundaries so that no output row straddles two.
 		b := a.Truncate(step).Add(rollupChunkSteps * step)
 		if b.After(to) {
@@ -317,7 +300,7 @@ func (s *Server) streamRollups(r *http.Request, rs *httpx.RowStream, counters []
 			return rows[i].ref.id < rows[j].ref.id
 		})
 		for _, g := range rows {
-			if err := rs.Row(func(b []byte) []byte { return appendRollupRow(b, g, stepName) }); err != nil {
+			if err := rs.Row(func(b []byte) []byte { return row(b, g, stepName) }); err != nil {
 				return err
 			}
 		}

@@ -325,6 +325,7 @@ func (d *Daemon) startIngest() error {
 	)
 	d.api = api.New(api.Options{Site: d.cfg, Zones: d.zones, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
 		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now, Signatures: d.people,
+		MaxRawRange: time.Duration(d.cfg.Queries.MaxRawRange), HeavyPerToken: d.cfg.Queries.HeavyPerToken,
 		EnvIngest: d.envIngest, EnvStore: d.st})
 	d.gate.mu.Lock()
 	d.gate.onChange = d.api.SetWriteProblem

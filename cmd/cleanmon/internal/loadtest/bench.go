@@ -121,7 +121,7 @@ func benchSite(n int) string {
 	sum := sha256.Sum256([]byte(benchToken))
 	var b strings.Builder
 	fmt.Fprintf(&b, "site: \"Veldmark Photonics, building C (bench)\"\nretention: \"87600h\"\naccess:\n  rate_limit: {requests_per_second: 100000}\n  tokens:\n    - {name: bench, sha256: %q, role: admin}\n", hex.EncodeToString(sum[:]))
-	b.WriteString("zones:\n  - id: assembly\n    name: Assembly hall\n    class: 7\n    operating_state: in-operation\n    area_m2: 60\n    sizes: [\"0.5\", \"5\"]\n    locations:\n")
+	b.WriteString("zones:\n  - id: assembly\n    name: Assembly hall\n    class: 9\n    operating_state: in-operation\n    area_m2: 60\n    sizes: [\"0.5\", \"5\"]\n    locations:\n")
 	for i := 0; i < n; i++ {
 		fmt.Fprintf(&b, "      - {id: loc-%d}\n", i)
 	}

@@ -80,6 +80,20 @@ func (c *Child) Stop() {
 	}
 }
 
+// StopWithin is Stop with its own limit; false when the child had to be
+// killed (its stop was not clean).
+func (c *Child) StopWithin(limit time.Duration) bool {
+	c.cmd.Process.Signal(syscall.SIGTERM)
+	select {
+	case <-c.done:
+		return true
+	case <-time.After(limit):
+		c.cmd.Process.Kill()
+		<-c.done
+		return false
+	}
+}
+
 // RSS reads the Child's peak and current resident set size from /proc.
 func (c *Child) RSS() (peakKB, curKB int64) {
 	m := c.Status()

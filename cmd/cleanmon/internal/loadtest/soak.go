@@ -53,7 +53,7 @@ func Soak(o SoakOptions, out io.Writer) (int64, error) {
 	}
 	c := &benchClient{url: srv.URL, http: &http.Client{Timeout: 30 * time.Second, Transport: &http.Transport{MaxIdleConnsPerHost: 64}}}
 	fmt.Fprintf(out, "cleanmon soak: %s at %d readings/s (%d counters, batches of %d) with queries, on %s\n", o.Duration, o.Rate, o.Counters, o.Batch, machine())
-	fmt.Fprintf(out, "%8s %12s %12s %8s %8s %10s %10s %8s\n", "elapsed", "readings/s", "queries/s", "errors", "RSS MB", "heap MB", "mapped MB", "peak MB")
+	fmt.Fprintf(out, "%8s %12s %12s %8s %8s %10s %10s %8s %10s\n", "elapsed", "readings/s", "queries/s", "errors", "RSS MB", "heap MB", "mapped MB", "peak MB", "store B/r")
 
 	ctx, cancel := context.WithTimeout(context.Background(), o.Duration)
 	defer cancel()
@@ -74,8 +74,8 @@ func Soak(o SoakOptions, out io.Writer) (int64, error) {
 			p, q := posted.Load(), queries.Load()
 			secs := now.Sub(prev).Seconds()
 			st := srv.Status()
-			fmt.Fprintf(out, "%8s %12.0f %12.1f %8d %8s %10s %10s %8s\n", now.Sub(start).Round(time.Second), float64(p-prevPosted)/secs,
-				float64(q-prevQueries)/secs, ingestErr.Load()+queryErr.Load(), mb(st["VmRSS:"]), mb(st["RssAnon:"]), mb(st["RssFile:"]), mb(st["VmHWM:"]))
+			fmt.Fprintf(out, "%8s %12.0f %12.1f %8d %8s %10s %10s %8s %10s\n", now.Sub(start).Round(time.Second), float64(p-prevPosted)/secs,
+				float64(q-prevQueries)/secs, ingestErr.Load()+queryErr.Load(), mb(st["VmRSS:"]), mb(st["RssAnon:"]), mb(st["RssFile:"]), mb(st["VmHWM:"]), perReading(data, p))
 			prevPosted, prevQueries, prev = p, q, now
 		}
 	}
@@ -90,6 +90,7 @@ func Soak(o SoakOptions, out io.Writer) (int64, error) {
 	if e, ok := lastErr.Load().(string); ok {
 		fmt.Fprintf(out, "last error: %s\n", e)
 	}
+	fmt.Fprintf(out, "store after a clean stop: %s bytes/reading on disk (allocated blocks of the store file)\n", perReading(data, posted.Load()))
 	problems, err := store.Verify(data)
 	if err != nil {
 		return failures, fmt.Errorf("verifying the store after the soak: %w", err)
@@ -183,4 +184,14 @@ func (r *soakRun) startQueries() {
 			}
 		}(uint64(q))
 	}
+}
+
+// perReading is the store's growth per reading so far: the blocks its file
+// has allocated over the readings posted ("—" before the first).
+func perReading(data string, readings int64) string {
+	n, err := store.AllocatedBytes(data)
+	if err != nil || readings == 0 {
+		return "—"
+	}
+	return fmt.Sprintf("%.1f", float64(n)/float64(readings))
 }

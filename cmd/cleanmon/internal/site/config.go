@@ -53,6 +53,7 @@ type Config struct {
 	Alarms        alerts.AlarmsConfig                 `yaml:"alarms"`
 	Notifications alerts.NotifyConfig                 `yaml:"notifications"`
 	TLS           access.TLSConfig                    `yaml:"tls"`
+	Queries       QueriesConfig                       `yaml:"queries"`
 	// AllowPlainHTTP permits serving without TLS on an address other than
 	// loopback (a closed instrument network behind its own protection).
 	AllowPlainHTTP bool `yaml:"allow_plain_http"`
@@ -548,6 +549,7 @@ func (d *nodeDecoder) check(c *Config) {
 		d.add("retention", "%s: must be positive", time.Duration(c.Retention))
 	}
 
+	d.checkQueries(c.Queries)
 	d.checkClock(c)
 	d.checkTokens(c.Access.Tokens)
 	d.checkPeople(c.Accounts, c.OIDC)

@@ -26,7 +26,7 @@ type AlarmsConfig struct {
 
 var knownKinds = map[string]bool{
 	KindExcursion: true, KindConsecutive: true, KindOutOfClass: true, KindPressureLow: true,
-	KindPressureReversal: true, KindStale: true, KindInstrument: true, KindTrend: true,
+	KindPressureReversal: true, KindStale: true, KindInstrument: true, KindTrend: true, KindEnvironment: true,
 }
 
 // ValidateAlarms checks the section; paths start with "alarms".

@@ -70,6 +70,9 @@ type EngineConfig struct {
 	Zones    []ZoneConfig
 	Counters []CounterRule
 	Sensors  []SensorRule
+	// Environment are the temperature, humidity and airflow-velocity
+	// sensors (rules_environment.go).
+	Environment []EnvironmentRule
 	// Consecutive is N of the consecutive rule (default 3, at least 2).
 	Consecutive int
 	// TrendRun is the rise length of the trend rule (default 6, at least 2).
@@ -187,6 +190,7 @@ type Engine struct {
 	zones    map[string]*engineZone
 	counters map[string]*counterSpec
 	sensors  map[string]*sensorSpec
+	env      envRules // environment sensors (rules_environment.go)
 	order    []string // counter IDs, then sensor IDs, in configuration order
 	zoneIDs  []string // configuration order
 
@@ -278,6 +282,7 @@ func NewEngine(cfg EngineConfig, j Journal, now func() time.Time) (*Engine, erro
 	seen := map[string]string{}
 	bindings := e.compileCounters(cfg.Counters, zoneLocs, seen, bad)
 	e.compileSensors(cfg.Sensors, zoneLocs, seen, bad)
+	e.compileEnvironment(cfg.Environment, zoneLocs, bad)
 	for _, f := range []struct {
 		path string
 		v    *int
@@ -310,7 +315,7 @@ func NewEngine(cfg EngineConfig, j Journal, now func() time.Time) (*Engine, erro
 		}
 	}
 	kinds := map[string]bool{KindExcursion: true, KindConsecutive: true, KindOutOfClass: true, KindPressureLow: true,
-		KindPressureReversal: true, KindStale: true, KindInstrument: true, KindTrend: true}
+		KindPressureReversal: true, KindStale: true, KindInstrument: true, KindTrend: true, KindEnvironment: true}
 	for _, k := range sortedKeys(cfg.Latch) {
 		v := cfg.Latch[k]
 		if !kinds[k] {
@@ -497,10 +502,21 @@ func (e *Engine) Restore(ctx context.Context) error {
 		if a.ConditionGone {
 			continue
 		}
+		// Two open alarms of one condition (a journal written by a daemon
+		// that died between two transitions) must not keep the daemon
+		// from starting: both stay open and shown, the newer one owns the
+		// condition, and the older waits for its acknowledgement only.
 		if j, dup := byKey[key]; dup {
-			return fmt.Errorf("%w: open alarms %d and %d (%s, %s) are the same condition", ErrRestore, j, i, as[j].ID, a.ID)
+			older, newer := j, len(keep)-1
+			if keep[newer].ID < keep[older].ID {
+				older, newer = newer, older
+			}
+			keep[older] = cloneAlarm(keep[older])
+			keep[older].ConditionGone = true
+			byKey[key] = newer
+			continue
 		}
-		byKey[key] = i
+		byKey[key] = len(keep) - 1
 	}
 	for _, a := range keep {
 		key, _ := conditionKey(a.ID)
@@ -691,6 +707,7 @@ func (e *Engine) Tick(ctx context.Context) error {
 	for _, v := range e.tracker.Zones() {
 		e.judgeOutOfClass(t, v)
 	}
+	e.tickEnvironment(t)
 	return e.finish(ctx, t)
 }
 

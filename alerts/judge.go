@@ -61,6 +61,9 @@ type Input struct {
 	Readings []CounterReading
 	Pressure []PressureObservation
 	Devices  []DeviceObservation
+	// Environment are temperature, humidity and airflow-velocity samples
+	// (rules_environment.go).
+	Environment []EnvironmentObservation
 }
 
 // Observe judges one batch, whatever order its readings were taken in.
@@ -82,6 +85,11 @@ func (j *Judge) Observe(ctx context.Context, in Input) error {
 	}
 	if len(in.Pressure) > 0 {
 		if err := j.e.ObservePressure(ctx, in.Pressure); err != nil {
+			return err
+		}
+	}
+	if len(in.Environment) > 0 {
+		if err := j.e.ObserveEnvironment(ctx, in.Environment); err != nil {
 			return err
 		}
 	}

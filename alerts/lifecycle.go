@@ -395,6 +395,8 @@ func worse(kind, unit string, v, peak, threshold float64) bool {
 	switch {
 	case kind == KindPressureLow || kind == KindPressureReversal:
 		return v < peak
+	case kind == KindEnvironment:
+		return math.Abs(v-threshold) > math.Abs(peak-threshold)
 	case unit == "L/min":
 		return math.Abs(v-threshold) > math.Abs(peak-threshold)
 	}

@@ -292,9 +292,6 @@ func TestRestoreRefusesBadRecords(t *testing.T) {
 	}{
 		{"not an engine id", []Alarm{{ID: "x", State: StateActive}}},
 		{"cleared is not open", []Alarm{{ID: "assembly:asm-1:0.5:excursion:20260302T100000Z", State: StateCleared}}},
-		{"two open for one condition", []Alarm{
-			{ID: "assembly:asm-1:0.5:excursion:20260302T100000Z", State: StateActive},
-			{ID: "assembly:asm-1:0.5:excursion:20260302T110000Z", State: StateActive}}},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -337,5 +334,31 @@ func TestOrphanAlarmClearsOnAck(t *testing.T) {
 	a, err := e.Ack(context.Background(), orphan.ID, "r.okafor", "counter removed")
 	if err != nil || a.State != StateCleared {
 		t.Fatalf("ack of an orphan: %+v, %v", a, err)
+	}
+}
+
+// TestRestoreKeepsTwoOpenForOneCondition: a journal left by a daemon that
+// died between two transitions may hold two open alarms of one condition.
+// Refusing it would leave the site unmonitored, so both are restored and
+// shown; the newer owns the condition and the older only waits for its
+// acknowledgement.
+func TestRestoreKeepsTwoOpenForOneCondition(t *testing.T) {
+	older := "assembly:asm-1:0.5:excursion:20260302T100000Z"
+	newer := "assembly:asm-1:0.5:excursion:20260302T110000Z"
+	j := fixedOpenJournal([]Alarm{{ID: newer, State: StateActive}, {ID: older, State: StateActive}})
+	e, err := NewEngine(engineConfig(), j, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := e.Restore(context.Background()); err != nil {
+		t.Fatalf("restore: %v", err)
+	}
+	if n := len(e.Alarms(false)); n != 2 {
+		t.Fatalf("%d open alarms restored, want both", n)
+	}
+	a, _ := e.Alarm(older)
+	b, _ := e.Alarm(newer)
+	if !a.ConditionGone || b.ConditionGone {
+		t.Errorf("older condition gone %v, newer %v: want the newer to own the condition", a.ConditionGone, b.ConditionGone)
 	}
 }

@@ -12,7 +12,7 @@ type AlarmLister interface{ Alarms(all bool) []Alarm }
 
 // alarmKinds are every kind, so that each configured zone has a zero
 // series per kind and level before its first alarm.
-var alarmKinds = []string{KindExcursion, KindConsecutive, KindOutOfClass, KindPressureLow, KindPressureReversal, KindStale, KindInstrument, KindTrend}
+var alarmKinds = []string{KindExcursion, KindConsecutive, KindOutOfClass, KindPressureLow, KindPressureReversal, KindStale, KindInstrument, KindTrend, KindEnvironment}
 
 var descAlarmActive = prometheus.NewDesc("cleanmon_alarm_active",
 	"Number of alarms firing (active or acknowledged, not yet cleared) per zone, kind and level; delayed alarms, whose delay still runs, are not counted.",

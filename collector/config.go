@@ -30,6 +30,10 @@ const (
 	// SourceModbus: the daemon polls the instrument over Modbus TCP, as
 	// its modbus section ([ModbusSource]) says.
 	SourceModbus = "modbus"
+	// SourceMQTT: the instrument (or a gateway) publishes to the broker of
+	// the mqtt section; its data takes the same path as pushed data. The
+	// site configuration checks that a topic carries it.
+	SourceMQTT = "mqtt"
 )
 
 // Defaults applied to fields left empty in the configuration.
@@ -281,7 +285,7 @@ func checkSource(p, s string, hasModbus bool, add func(string, string, ...any)) 
 	switch s {
 	case "":
 		return hasModbus
-	case SourcePush:
+	case SourcePush, SourceMQTT:
 		if hasModbus {
 			add(p, "is %q, but a modbus section is given: set source: %s, or remove the section", s, SourceModbus)
 		}
@@ -291,7 +295,7 @@ func checkSource(p, s string, hasModbus bool, add func(string, string, ...any)) 
 		}
 		return hasModbus
 	default:
-		add(p, "unknown source %q (%q or %q)", s, SourcePush, SourceModbus)
+		add(p, "unknown source %q (%q, %q or %q)", s, SourcePush, SourceModbus, SourceMQTT)
 	}
 	return false
 }

@@ -52,3 +52,9 @@ func testJSON(w http.ResponseWriter, status int, v any) {
 	enc.SetEscapeHTML(false)
 	_ = enc.Encode(v)
 }
+
+// ServeHTTP answers as the daemon's POST /api/v1/environment route does.
+func (in *EnvironmentIngest) ServeHTTP(w http.ResponseWriter, r *http.Request) {
+	res, err := in.PostEnvironment(r.Context(), r.Header.Get("Content-Type"), r.ContentLength, r.Body)
+	testAnswer(w, res, err)
+}

@@ -4,7 +4,6 @@ import (
 	"fmt"
 	"maps"
 	"math"
-	"net"
 	"slices"
 	"sort"
 	"strconv"
@@ -16,9 +15,9 @@ import (
 	"github.com/prometheus/common/model"
 )
 
-// ModbusSource says where and how the poller reads one counter or DP
-// sensor over Modbus TCP: the yaml key "modbus" of a counter or sensor
-// whose source is modbus. The register map is the project's own schema:
+// ModbusSource says where and how the poller reads one counter, DP or
+// environment sensor over Modbus TCP or RTU: the yaml key "modbus" of an
+// instrument whose source is modbus. The register map is the project's own schema:
 //
 //	modbus:
 //	  address: "10.0.4.21:502"    # host:port of the instrument or gateway
@@ -37,14 +36,23 @@ import (
 //	  volume: {addr: 11, bits: 32, scale: 0.001}  # L
 //
 // A sensor maps pa (and optionally status) instead:
-// pa: {addr: 0, signed: true, scale: 0.1}.
+// pa: {addr: 0, signed: true, scale: 0.1}; an environment sensor maps
+// the channels of its kind: temperature_c: {addr: 0, signed: true,
+// scale: 0.01}, humidity_pct: {addr: 1, scale: 0.01}, velocity_m_s:
+// {addr: 2, scale: 0.001}.
+//
+// Address is host:port for Modbus TCP, or a serial device as an rtu://
+// URL (see [ParseModbusAddress]): rtu:///dev/ttyUSB0?baud=19200&parity=E&stop=1.
 //
 // Addresses are those on the wire, counted from 0 (a manual's register
 // 30001 or 40001 is addr 0). Registers of one type that follow each other
 // without a gap are read in one request, so a sample's channels are read
 // together; keep a counter's registers contiguous for that.
 type ModbusSource struct {
-	// Address is host:port of the instrument or of its gateway.
+	// Address is host:port of the instrument or of its gateway (Modbus
+	// TCP), or its serial line as rtu:///dev/ttyUSB0?baud=19200&parity=even&stop=1
+	// (Modbus RTU; see [ParseModbusAddress]). Units on one line share it
+	// in turn and must agree on its settings.
 	Address string `yaml:"address"`
 	// Unit is the unit identifier (0–255) the device answers to; default 1.
 	Unit *int `yaml:"unit"`
@@ -86,6 +94,14 @@ type ModbusSource struct {
 	// Pa (sensors, required) is the differential pressure in Pa after
 	// scale.
 	Pa *ModbusRegister `yaml:"pa"`
+
+	// TemperatureC, HumidityPct and VelocityMS (environment sensors) are
+	// the temperature in °C, the relative humidity in % and the airflow
+	// velocity in m/s after scale: each required when the sensor's kind
+	// reports it, refused otherwise.
+	TemperatureC *ModbusRegister `yaml:"temperature_c"`
+	HumidityPct  *ModbusRegister `yaml:"humidity_pct"`
+	VelocityMS   *ModbusRegister `yaml:"velocity_m_s"`
 }
 
 // ModbusRegister is one value in a device's registers.
@@ -171,7 +187,8 @@ type devicePlan struct {
 	secs     *regField
 	status   *regField
 	statuses map[uint64]string
-	pa       *regField // sensors
+	pa       *regField            // sensors
+	env      map[string]*regField // environment sensors, by channel
 }
 
 // raw returns the field's unsigned value from the blocks read.
@@ -225,213 +242,296 @@ func validateModbusSensor(p string, s *Sensor, add func(string, string, ...any))
 	planModbus(p, s.Modbus, "sensor", nil, interval, add)
 }
 
+// validateModbusEnvironment checks the modbus section of environment
+// sensor e at path p.
+func validateModbusEnvironment(p string, e *EnvironmentSensorConfig, add func(string, string, ...any)) {
+	checkModbusAddress(p, e.Modbus.Address, add)
+	interval := time.Duration(e.Interval)
+	if interval == 0 {
+		interval = DefaultEnvironmentInterval
+	}
+	planModbus(p, e.Modbus, "environment", e.Channels(), interval, add)
+}
+
 func checkModbusAddress(p, addr string, add func(string, string, ...any)) {
-	if addr == "" {
-		add(p+".address", "missing: give host:port of the device, e.g. \"10.0.4.21:502\"")
-		return
-	}
-	host, port, err := net.SplitHostPort(addr)
-	if err != nil {
-		add(p+".address", "%q is not host:port: %v", addr, err)
-		return
-	}
-	if n, err := strconv.Atoi(port); err != nil || n < 1 || n > 65535 {
-		add(p+".address", "%q: the port must be a number 1–65535 (Modbus TCP usually listens on 502)", addr)
-	} else if host == "" {
-		add(p+".address", "%q: the host is missing", addr)
+	if _, err := ParseModbusAddress(addr); err != nil {
+		add(p+".address", "%s", err.Error())
 	}
 }
 
-// planModbus checks a register map for a counter (sizes its channels) or
-// a sensor and turns it into a plan. Problems go to add, with paths under
+// planModbus checks a register map for a counter (sizes its channels), a
+// DP sensor, or an environment sensor (sizes then lists the channels of
+// its kind) and turns it into a plan. Problems go to add, with paths under
 // p; the plan is nil when there were any.
 func planModbus(p string, src *ModbusSource, kind string, sizes []string, interval time.Duration, add func(string, string, ...any)) *devicePlan {
-	bad := false
-	addf := func(path, format string, args ...any) {
-		bad = true
-		add(path, format, args...)
+	pl := &planner{p: p, kind: kind, add: add, plan: &devicePlan{unit: DefaultModbusUnit}}
+	pl.timing(src, interval)
+	pl.status(src)
+	switch kind {
+	case "counter":
+		pl.counter(src, sizes)
+	case "environment":
+		planEnvironment(p, src, sizes, pl.plan, func(name string, r *ModbusRegister, signed bool) *regField {
+			if signed {
+				return pl.reg(name, r, optNum)
+			}
+			return pl.reg(name, r, optUnsigned)
+		}, pl.addf)
+		pl.none("pa", src.Pa != nil)
+		pl.noCounter(src)
+	default:
+		if src.Pa == nil {
+			pl.addf(p+".pa", "missing: give the register of the differential pressure")
+		} else {
+			pl.plan.pa = pl.reg("pa", src.Pa, optNum)
+		}
+		pl.noEnv(src)
+		pl.noCounter(src)
 	}
-	plan := &devicePlan{unit: DefaultModbusUnit}
+	pl.plan.blocks = planBlocks(p, pl.fields, pl.addf)
+	if pl.bad {
+		return nil
+	}
+	return pl.plan
+}
+
+// regOpts says which options make sense for a value.
+type regOpts struct{ scale, signed bool }
+
+var (
+	optNum      = regOpts{scale: true, signed: true} // a measured value that may be negative
+	optUnsigned = regOpts{scale: true}               // a measured value that may not
+	optWhole    = regOpts{}                          // counts, sample numbers, times, status codes
+)
+
+// planner builds the plan of one register map, reporting every problem
+// under its path p.
+type planner struct {
+	p, kind    string
+	add        func(string, string, ...any)
+	plan       *devicePlan
+	lowDefault bool        // the source's word order is low-first
+	fields     []*regField // every value resolved, for planBlocks
+	bad        bool
+}
+
+func (pl *planner) addf(path, format string, args ...any) {
+	pl.bad = true
+	pl.add(path, format, args...)
+}
+
+// none refuses a register the kind of device does not have.
+func (pl *planner) none(name string, present bool) {
+	if present {
+		pl.addf(pl.p+"."+name, "a %s has no %s register", kindNoun(pl.kind), name)
+	}
+}
+
+// noCounter refuses the registers only a counter has.
+func (pl *planner) noCounter(src *ModbusSource) {
+	pl.none("sample", src.Sample != nil)
+	pl.none("time", src.Time != nil)
+	pl.none("channels", len(src.Channels) > 0)
+	pl.none("flow", src.Flow != nil)
+	pl.none("volume", src.Volume != nil)
+	pl.none("sample_seconds", src.SampleSeconds != nil)
+}
+
+// noEnv refuses environment registers on a counter or DP sensor.
+func (pl *planner) noEnv(src *ModbusSource) {
+	pl.none(ChanTemperature, src.TemperatureC != nil)
+	pl.none(ChanHumidity, src.HumidityPct != nil)
+	pl.none(ChanVelocity, src.VelocityMS != nil)
+}
+
+// timing checks the unit, poll period, timeout and word order.
+func (pl *planner) timing(src *ModbusSource, interval time.Duration) {
+	p, plan := pl.p, pl.plan
 	if src.Unit != nil {
 		if u := *src.Unit; u < 0 || u > 255 {
-			addf(p+".unit", "%d: a unit identifier is 0–255", u)
+			pl.addf(p+".unit", "%d: a unit identifier is 0–255", u)
 		} else {
 			plan.unit = uint8(u)
 		}
 	}
-
 	switch {
 	case src.Poll < 0:
-		addf(p+".poll", "must not be negative")
-	case src.Poll == 0 && kind == "counter":
+		pl.addf(p+".poll", "must not be negative")
+	case src.Poll == 0 && pl.kind == "counter":
 		plan.poll = min(DefaultModbusPoll, interval/2)
 	case src.Poll == 0:
 		plan.poll = interval
 	case time.Duration(src.Poll) < MinModbusPoll:
-		addf(p+".poll", "%s is shorter than the %s minimum", src.Poll, MinModbusPoll)
-	case kind == "counter" && time.Duration(src.Poll) > interval/2:
+		pl.addf(p+".poll", "%s is shorter than the %s minimum", src.Poll, MinModbusPoll)
+	case pl.kind == "counter" && time.Duration(src.Poll) > interval/2:
 		// A sample number seen only every other sample loses samples.
-		addf(p+".poll", "%s is more than half the interval (%s): poll at least twice per sample so that none is missed", src.Poll, interval)
+		pl.addf(p+".poll", "%s is more than half the interval (%s): poll at least twice per sample so that none is missed", src.Poll, interval)
 	default:
 		plan.poll = time.Duration(src.Poll)
 	}
 	switch {
 	case src.Timeout < 0:
-		addf(p+".timeout", "must not be negative")
+		pl.addf(p+".timeout", "must not be negative")
 	case src.Timeout == 0:
 		plan.timeout = min(DefaultModbusTimeout, max(plan.poll, MinModbusPoll))
 	case plan.poll > 0 && time.Duration(src.Timeout) > plan.poll:
-		addf(p+".timeout", "%s is longer than the poll period (%s)", src.Timeout, plan.poll)
+		pl.addf(p+".timeout", "%s is longer than the poll period (%s)", src.Timeout, plan.poll)
 	default:
 		plan.timeout = time.Duration(src.Timeout)
 	}
-	lowDefault := false
 	switch src.WordOrder {
 	case "", WordHighFirst:
 	case WordLowFirst:
-		lowDefault = true
+		pl.lowDefault = true
 	default:
-		addf(p+".word_order", "unknown word order %q (%s or %s)", src.WordOrder, WordHighFirst, WordLowFirst)
+		pl.addf(p+".word_order", "unknown word order %q (%s or %s)", src.WordOrder, WordHighFirst, WordLowFirst)
 	}
+}
 
-	var fields []*regField
-	// reg resolves one register; what tells which options make sense.
-	type opts struct{ scale, signed, wide bool }
-	reg := func(name string, r *ModbusRegister, o opts) *regField {
-		fp := p + "." + name
-		f := &regField{path: name, input: true, n: 1, low: lowDefault, scale: 1}
-		ok := true
-		fail := func(path, format string, args ...any) { ok = false; addf(path, format, args...) }
-		switch r.Type {
-		case "", RegInput:
-		case RegHolding:
-			f.input = false
-		default:
-			fail(fp+".type", "unknown register type %q (%s or %s)", r.Type, RegInput, RegHolding)
-		}
-		switch r.Bits {
-		case 0, 16:
-		case 32:
-			f.n = 2
-		default:
-			fail(fp+".bits", "%d: a value is 16 or 32 bits", r.Bits)
-		}
-		switch r.WordOrder {
-		case "":
-		case WordHighFirst:
-			f.low = false
-		case WordLowFirst:
-			f.low = true
-		default:
-			fail(fp+".word_order", "unknown word order %q (%s or %s)", r.WordOrder, WordHighFirst, WordLowFirst)
-		}
-		if r.WordOrder != "" && f.n == 1 {
-			fail(fp+".word_order", "a 16-bit value has no word order: give bits: 32 or drop word_order")
-		}
-		if r.Signed && !o.signed {
-			fail(fp+".signed", "%s cannot be negative", name)
-		}
-		f.signed = r.Signed
-		switch {
-		case r.Scale == 0:
-		case !o.scale:
-			fail(fp+".scale", "%s is a whole number read as it is: it takes no scale", name)
-		case !finite(r.Scale) || r.Scale < 0:
-			fail(fp+".scale", "%g: the scale must be a finite number > 0", r.Scale)
-		default:
-			f.scale = r.Scale
-		}
-		switch {
-		case r.Addr == nil:
-			fail(fp+".addr", "missing: give the register address (0–65535, counted from 0 as on the wire)")
-		case *r.Addr < 0 || *r.Addr+int(f.n)-1 > 65535:
-			fail(fp+".addr", "%d: the %d-bit value must lie within registers 0–65535", *r.Addr, 16*f.n)
-		default:
-			f.addr = uint16(*r.Addr)
-		}
-		if !ok {
-			return nil
-		}
-		fields = append(fields, f)
-		return f
+// reg resolves one register; o tells which options make sense for it.
+func (pl *planner) reg(name string, r *ModbusRegister, o regOpts) *regField {
+	fp := pl.p + "." + name
+	f := &regField{path: name, input: true, n: 1, low: pl.lowDefault, scale: 1}
+	ok := true
+	fail := func(path, format string, args ...any) { ok = false; pl.addf(path, format, args...) }
+	switch r.Type {
+	case "", RegInput:
+	case RegHolding:
+		f.input = false
+	default:
+		fail(fp+".type", "unknown register type %q (%s or %s)", r.Type, RegInput, RegHolding)
 	}
-	num := opts{scale: true, signed: true}
-	unsigned := opts{scale: true}
-	whole := opts{}
-	none := func(name string, present bool) {
-		if present {
-			addf(p+"."+name, "a %s has no %s register", kind, name)
-		}
+	switch r.Bits {
+	case 0, 16:
+	case 32:
+		f.n = 2
+	default:
+		fail(fp+".bits", "%d: a value is 16 or 32 bits", r.Bits)
 	}
-
-	if src.Status != nil {
-		fp := p + ".status"
-		f := reg("status", &ModbusRegister{Addr: src.Status.Addr, Type: src.Status.Type}, whole)
-		if len(src.Status.Values) == 0 {
-			addf(fp+".values", "missing: say what each status value means, e.g. {0: ok, 1: warning, 2: fault}")
-		}
-		plan.statuses = make(map[uint64]string, len(src.Status.Values))
-		for _, k := range slices.Sorted(maps.Keys(src.Status.Values)) {
-			v := src.Status.Values[k]
-			code, err := strconv.ParseUint(strings.TrimSpace(k), 0, 16)
-			if err != nil {
-				addf(fp+".values."+k, "%q is not a register value 0–65535", k)
-				continue
-			}
-			switch v {
-			case StatusOK, StatusWarning, StatusFault:
-				plan.statuses[code] = v
-			default:
-				addf(fp+".values."+k, "unknown status %q (ok, warning or fault)", v)
-			}
-		}
-		plan.status = f
+	switch r.WordOrder {
+	case "":
+	case WordHighFirst:
+		f.low = false
+	case WordLowFirst:
+		f.low = true
+	default:
+		fail(fp+".word_order", "unknown word order %q (%s or %s)", r.WordOrder, WordHighFirst, WordLowFirst)
 	}
-
-	if kind == "counter" {
-		if src.Sample == nil {
-			addf(p+".sample", "missing: give the register of the sample number, so that each sample is read once")
-		} else {
-			plan.sample = reg("sample", src.Sample, whole)
-		}
-		if src.Time != nil {
-			plan.time = reg("time", src.Time, whole)
-			if plan.time != nil && plan.time.n != 2 {
-				addf(p+".time.bits", "a time in Unix seconds needs 32 bits")
-			}
-		}
-		if src.Flow != nil {
-			plan.flow = reg("flow", src.Flow, unsigned)
-		}
-		if src.Volume != nil {
-			plan.volume = reg("volume", src.Volume, unsigned)
-		}
-		if src.SampleSeconds != nil {
-			plan.secs = reg("sample_seconds", src.SampleSeconds, unsigned)
-		}
-		none("pa", src.Pa != nil)
-		planChannels(p, src, sizes, plan, func(key string, r *ModbusRegister) *regField {
-			return reg("channels."+key, r, whole)
-		}, addf)
-	} else {
-		if src.Pa == nil {
-			addf(p+".pa", "missing: give the register of the differential pressure")
-		} else {
-			plan.pa = reg("pa", src.Pa, num)
-		}
-		none("sample", src.Sample != nil)
-		none("time", src.Time != nil)
-		none("channels", len(src.Channels) > 0)
-		none("flow", src.Flow != nil)
-		none("volume", src.Volume != nil)
-		none("sample_seconds", src.SampleSeconds != nil)
+	if r.WordOrder != "" && f.n == 1 {
+		fail(fp+".word_order", "a 16-bit value has no word order: give bits: 32 or drop word_order")
 	}
-
-	plan.blocks = planBlocks(p, fields, addf)
-	if bad {
+	if r.Signed && !o.signed {
+		fail(fp+".signed", "%s cannot be negative", name)
+	}
+	f.signed = r.Signed
+	switch {
+	case r.Scale == 0:
+	case !o.scale:
+		fail(fp+".scale", "%s is a whole number read as it is: it takes no scale", name)
+	case !finite(r.Scale) || r.Scale < 0:
+		fail(fp+".scale", "%g: the scale must be a finite number > 0", r.Scale)
+	default:
+		f.scale = r.Scale
+	}
+	switch {
+	case r.Addr == nil:
+		fail(fp+".addr", "missing: give the register address (0–65535, counted from 0 as on the wire)")
+	case *r.Addr < 0 || *r.Addr+int(f.n)-1 > 65535:
+		fail(fp+".addr", "%d: the %d-bit value must lie within registers 0–65535", *r.Addr, 16*f.n)
+	default:
+		f.addr = uint16(*r.Addr)
+	}
+	if !ok {
 		return nil
 	}
-	return plan
+	pl.fields = append(pl.fields, f)
+	return f
+}
+
+// status resolves the status register and the meaning of its values.
+func (pl *planner) status(src *ModbusSource) {
+	if src.Status == nil {
+		return
+	}
+	fp := pl.p + ".status"
+	f := pl.reg("status", &ModbusRegister{Addr: src.Status.Addr, Type: src.Status.Type}, optWhole)
+	if len(src.Status.Values) == 0 {
+		pl.addf(fp+".values", "missing: say what each status value means, e.g. {0: ok, 1: warning, 2: fault}")
+	}
+	pl.plan.statuses = make(map[uint64]string, len(src.Status.Values))
+	for _, k := range slices.Sorted(maps.Keys(src.Status.Values)) {
+		v := src.Status.Values[k]
+		code, err := strconv.ParseUint(strings.TrimSpace(k), 0, 16)
+		if err != nil {
+			pl.addf(fp+".values."+k, "%q is not a register value 0–65535", k)
+			continue
+		}
+		switch v {
+		case StatusOK, StatusWarning, StatusFault:
+			pl.plan.statuses[code] = v
+		default:
+			pl.addf(fp+".values."+k, "unknown status %q (ok, warning or fault)", v)
+		}
+	}
+	pl.plan.status = f
+}
+
+// counter resolves the registers of a particle counter.
+func (pl *planner) counter(src *ModbusSource, sizes []string) {
+	p, plan := pl.p, pl.plan
+	if src.Sample == nil {
+		pl.addf(p+".sample", "missing: give the register of the sample number, so that each sample is read once")
+	} else {
+		plan.sample = pl.reg("sample", src.Sample, optWhole)
+	}
+	if src.Time != nil {
+		plan.time = pl.reg("time", src.Time, optWhole)
+		if plan.time != nil && plan.time.n != 2 {
+			pl.addf(p+".time.bits", "a time in Unix seconds needs 32 bits")
+		}
+	}
+	if src.Flow != nil {
+		plan.flow = pl.reg("flow", src.Flow, optUnsigned)
+	}
+	if src.Volume != nil {
+		plan.volume = pl.reg("volume", src.Volume, optUnsigned)
+	}
+	if src.SampleSeconds != nil {
+		plan.secs = pl.reg("sample_seconds", src.SampleSeconds, optUnsigned)
+	}
+	pl.none("pa", src.Pa != nil)
+	planChannels(p, src, sizes, plan, func(key string, r *ModbusRegister) *regField {
+		return pl.reg("channels."+key, r, optWhole)
+	}, pl.addf)
+	pl.noEnv(src)
+}
+
+// planEnvironment resolves the registers of an environment sensor: one
+// for each channel of its kind, none for the others. Temperature may be
+// negative; humidity and velocity may not.
+func planEnvironment(p string, src *ModbusSource, chans []string, plan *devicePlan, reg func(string, *ModbusRegister, bool) *regField, addf func(string, string, ...any)) {
+	plan.env = make(map[string]*regField, len(chans))
+	for _, ch := range []string{ChanTemperature, ChanHumidity, ChanVelocity} {
+		var r *ModbusRegister
+		switch ch {
+		case ChanTemperature:
+			r = src.TemperatureC
+		case ChanHumidity:
+			r = src.HumidityPct
+		default:
+			r = src.VelocityMS
+		}
+		switch has := contains(chans, ch); {
+		case has && r == nil:
+			addf(p+"."+ch, "missing: give the register of %s", channelWords[ch])
+		case !has && r != nil:
+			addf(p+"."+ch, "the sensor's kind has no %s channel (it reports %s)", ch, strings.Join(chans, ", "))
+		case has:
+			if f := reg(ch, r, ch == ChanTemperature); f != nil {
+				plan.env[ch] = f
+			}
+		}
+	}
 }
 
 // planChannels resolves the channel registers against the counter's
@@ -557,4 +657,15 @@ func (f *regField) put(regs map[uint16]uint16, raw uint64) {
 		hi, lo = lo, hi
 	}
 	regs[f.addr], regs[f.addr+1] = hi, lo
+}
+
+// kindNoun names a device kind of planModbus for messages.
+func kindNoun(kind string) string {
+	switch kind {
+	case "sensor":
+		return "differential-pressure sensor"
+	case "environment":
+		return "environment sensor"
+	}
+	return kind
 }

@@ -51,3 +51,24 @@ func FuzzModbusRegisters(f *testing.F) {
 		}
 	})
 }
+
+// FuzzParseModbusAddress: any text either is refused with a message or
+// parses into an address whose own spelling parses back to the same.
+func FuzzParseModbusAddress(f *testing.F) {
+	for _, s := range []string{"10.0.4.21:502", "tcp://gw:1502", "rtu:///dev/ttyUSB0?baud=9600&parity=none", "rtu://x", "", "rtu:///a?stop=2&parity=O"} {
+		f.Add(s)
+	}
+	f.Fuzz(func(t *testing.T, s string) {
+		a, err := ParseModbusAddress(s)
+		if err != nil {
+			if err.Error() == "" {
+				t.Fatal("empty error")
+			}
+			return
+		}
+		b, err := ParseModbusAddress(a.String())
+		if err != nil || b != a {
+			t.Fatalf("%q → %+v → %q → %+v, %v", s, a, a.String(), b, err)
+		}
+	})
+}

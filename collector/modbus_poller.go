@@ -83,8 +83,8 @@ const (
 // DeviceStatus is what the poller knows of one device.
 type DeviceStatus struct {
 	ID          string    // counter or sensor id
-	Kind        string    // "counter" or "sensor"
-	Address     string    // host:port
+	Kind        string    // "counter", "sensor" (DP) or "environment"
+	Address     string    // host:port, or an rtu:// serial address
 	State       string    // DeviceUnknown, DeviceOK or DeviceFault
 	Reason      string    // of the fault (a Reason constant), "" otherwise
 	LastError   string    // the last poll error in full, "" if none yet
@@ -113,6 +113,9 @@ type PollerOptions struct {
 	// MaxBackoff bounds the wait between attempts at a failing device;
 	// default eight poll periods, at most a minute.
 	MaxBackoff time.Duration
+	// Environment receives the samples of polled environment sensors;
+	// required when the registry has any whose source is modbus.
+	Environment EnvironmentSubmitter
 }
 
 // DefaultMaxConns is the default bound on open Modbus connections.
@@ -121,10 +124,11 @@ const DefaultMaxConns = 32
 // ErrModbus wraps failures of the Modbus poller's set-up.
 var ErrModbus = errors.New("collector: modbus")
 
-// Poller reads every counter and DP sensor of a registry whose source is
-// modbus and submits what it reads through the same [Submitter] (an
-// [*Ingest]) as pushed readings, so the same validation, store and alarm
-// path applies.
+// Poller reads every counter, DP and environment sensor of a registry
+// whose source is modbus, over Modbus TCP or RTU, and submits what it
+// reads through the same [Submitter] (an [*Ingest]) and
+// [EnvironmentSubmitter] as pushed data, so the same validation, store and
+// alarm path applies.
 //
 // Each device has its own goroutine, so a slow or dead device delays no
 // other; a semaphore bounds the open connections. A counter is read only
@@ -148,9 +152,12 @@ type device struct {
 	p        *Poller
 	id, kind string
 	addr     string
+	where    ModbusAddress
+	line     *sync.Mutex // the serial line, when other devices share it
 	plan     *devicePlan
 	counter  *CounterInfo
 	sub      Submitter
+	env      EnvironmentSubmitter // environment sensors
 	client   *modbus.ModbusClient
 	seen     bool   // a sample number has been read
 	last     uint64 // the last sample number taken as seen
@@ -161,9 +168,10 @@ type device struct {
 }
 
 // NewPoller prepares polling of every counter and sensor in reg whose
-// source is modbus; submit receives the readings. It fails, wrapping
-// ErrModbus, when a register map does not compile or the metrics cannot be
-// registered.
+// source is modbus; submit receives the readings and DP samples,
+// opt.Environment the environment samples. It fails, wrapping ErrModbus,
+// when a register map or address does not compile, devices on one serial
+// line disagree on its settings, or the metrics cannot be registered.
 func NewPoller(reg *Registry, submit Submitter, opt PollerOptions) (*Poller, error) {
 	if opt.Now == nil {
 		opt.Now = time.Now
@@ -196,6 +204,12 @@ func NewPoller(reg *Registry, submit Submitter, opt PollerOptions) (*Poller, err
 		}
 		p.devices = append(p.devices, &device{p: p, id: si.ID, kind: "sensor", addr: si.Modbus.Address, plan: plan, sub: submit})
 	}
+	if err := p.addEnvironment(reg, opt.Environment); err != nil {
+		return nil, err
+	}
+	if err := p.resolveAddresses(); err != nil {
+		return nil, err
+	}
 	ids := make([]string, len(p.devices))
 	for i, d := range p.devices {
 		ids[i] = d.id
@@ -208,6 +222,53 @@ func NewPoller(reg *Registry, submit Submitter, opt PollerOptions) (*Poller, err
 	p.metrics = m
 	p.persist = len(p.devices) <= opt.MaxConns
 	return p, nil
+}
+
+// addEnvironment adds the environment sensors polled over Modbus.
+func (p *Poller) addEnvironment(reg *Registry, sub EnvironmentSubmitter) error {
+	for _, ei := range reg.EnvironmentSensors() {
+		if ei.Source != SourceModbus {
+			continue
+		}
+		if sub == nil {
+			return fmt.Errorf("%w: environment sensor %s is polled, but PollerOptions.Environment is not set", ErrModbus, ei.ID)
+		}
+		plan, err := compileModbus(ei.Modbus, "environment", ei.Channels(), time.Duration(ei.Interval))
+		if err != nil {
+			return fmt.Errorf("%w: environment sensor %s: %w", ErrModbus, ei.ID, err)
+		}
+		p.devices = append(p.devices, &device{p: p, id: ei.ID, kind: "environment", addr: ei.Modbus.Address, plan: plan, env: sub})
+	}
+	return nil
+}
+
+// resolveAddresses parses every device's address and makes the devices
+// on one serial line take turns: a line carries one request at a time.
+func (p *Poller) resolveAddresses() error {
+	byPort := map[string][]*device{}
+	for _, d := range p.devices {
+		a, err := ParseModbusAddress(d.addr)
+		if err != nil {
+			return fmt.Errorf("%w: %s %s: address %w", ErrModbus, d.kind, d.id, err)
+		}
+		d.where = a
+		if a.Serial {
+			byPort[a.Port] = append(byPort[a.Port], d)
+		}
+	}
+	for _, ds := range byPort {
+		if len(ds) < 2 {
+			continue
+		}
+		mu := &sync.Mutex{}
+		for _, d := range ds {
+			if d.where != ds[0].where {
+				return fmt.Errorf("%w: %s %s: serial line %s is set up as %s by %s %s", ErrModbus, d.kind, d.id, d.where.Port, ds[0].where, ds[0].kind, ds[0].id)
+			}
+			d.line = mu
+		}
+	}
+	return nil
 }
 
 // Len returns the number of devices polled.
@@ -301,7 +362,15 @@ func (d *device) run(ctx context.Context) {
 // pollOnce runs one poll and books its outcome. Events are told after
 // the status is updated and unlocked, so that a handler may read Devices.
 func (d *device) pollOnce(ctx context.Context) *pollError {
+	if d.line != nil {
+		d.line.Lock()
+	}
 	perr, fresh := d.poll(ctx)
+	if d.line != nil {
+		// Another unit on the same line needs the port.
+		d.disconnect()
+		d.line.Unlock()
+	}
 	if !d.p.persist || (perr != nil && perr.backsOff() && perr.reason != ReasonException) {
 		// After a timeout or a broken frame a late answer could still be
 		// on its way: start from a fresh connection.
@@ -353,8 +422,11 @@ func (d *device) poll(ctx context.Context) (perr *pollError, fresh bool) {
 	if err := d.connect(ctx); err != nil {
 		return err, false
 	}
-	if d.kind == "sensor" {
+	switch d.kind {
+	case "sensor":
 		return d.pollSensor(ctx)
+	case "environment":
+		return d.pollEnvironment(ctx)
 	}
 	return d.pollCounter(ctx)
 }
@@ -368,7 +440,9 @@ func (d *device) connect(ctx context.Context) *pollError {
 	case <-ctx.Done():
 		return &pollError{reason: ReasonConnect, err: ctx.Err()}
 	}
-	c, err := modbus.NewClient(&modbus.ClientConfiguration{URL: "tcp://" + d.addr, Timeout: d.plan.timeout, Logger: d.p.libLog})
+	cfg := d.where.clientConfig()
+	cfg.Timeout, cfg.Logger = d.plan.timeout, d.p.libLog
+	c, err := modbus.NewClient(&cfg)
 	if err == nil {
 		err = c.Open()
 	}
@@ -609,6 +683,49 @@ func (d *device) pollSensor(ctx context.Context) (*pollError, bool) {
 	pa := plan.pa.value(vals)
 	raw := RawPressure{Sensor: d.id, Time: d.p.opt.Now().UTC().Format(time.RFC3339Nano), Pa: &pa}
 	res, err := d.sub.SubmitPressure(ctx, []RawPressure{raw})
+	var ie *InputError
+	switch {
+	case errors.As(err, &ie):
+		return &pollError{reason: ReasonRejected, err: err}, false
+	case err != nil:
+		return &pollError{reason: ReasonCommit, err: err}, false
+	}
+	d.p.metrics.samples(d.id, sampleAccepted, res.Accepted)
+	d.p.metrics.samples(d.id, sampleDuplicate, res.Duplicates)
+	return nil, true
+}
+
+func (d *device) pollEnvironment(ctx context.Context) (*pollError, bool) {
+	plan := d.plan
+	vals := make([][]uint16, len(plan.blocks))
+	if err := d.readAll(vals, -1); err != nil {
+		return err, false
+	}
+	if plan.status != nil {
+		code := plan.status.raw(vals)
+		switch s, ok := plan.statuses[code]; {
+		case !ok:
+			return fault(ReasonStatus, "status value %d is not in the register map", code), false
+		case s == StatusFault:
+			return fault(ReasonStatus, "the sensor reports a fault (status %d)", code), false
+		}
+	}
+	raw := RawEnvironment{Sensor: d.id, Time: d.p.opt.Now().UTC().Format(time.RFC3339Nano)}
+	for ch, f := range plan.env {
+		if f.raw(vals) == f.allOnes() && !f.signed {
+			return fault(ReasonImplausible, "%s reads 0x%X, the all-ones \"no value\" marker", ch, f.raw(vals)), false
+		}
+		v := f.value(vals)
+		switch ch {
+		case ChanTemperature:
+			raw.TemperatureC = &v
+		case ChanHumidity:
+			raw.HumidityPct = &v
+		case ChanVelocity:
+			raw.VelocityMS = &v
+		}
+	}
+	res, err := d.env.SubmitEnvironment(ctx, []RawEnvironment{raw})
 	var ie *InputError
 	switch {
 	case errors.As(err, &ie):

@@ -14,7 +14,7 @@ import (
 	"github.com/simonvetter/modbus"
 )
 
-// ModbusSlave serves the register map of one counter or DP sensor over
+// ModbusSlave serves the register map of one counter, DP or environment sensor over
 // Modbus TCP, as the instrument would: the demo serves its simulated
 // counters so, and tests use it as a device. Only mapped registers can
 // be read; any other address, a write, or another unit id is answered
@@ -73,6 +73,51 @@ func NewSensorSlave(ss Sensor) (*ModbusSlave, error) {
 		return nil, fmt.Errorf("sensor %s: %w", ss.ID, err)
 	}
 	return newSlave(ss.ID, "sensor", plan), nil
+}
+
+// NewEnvironmentSlave prepares a slave for the environment sensor's
+// modbus section.
+func NewEnvironmentSlave(e EnvironmentSensorConfig) (*ModbusSlave, error) {
+	if e.Modbus == nil {
+		return nil, fmt.Errorf("%w: environment sensor %s has no modbus section", ErrModbus, e.ID)
+	}
+	e = e.withDefaults()
+	plan, err := compileModbus(e.Modbus, "environment", e.Channels(), time.Duration(e.Interval))
+	if err != nil {
+		return nil, fmt.Errorf("environment sensor %s: %w", e.ID, err)
+	}
+	return newSlave(e.ID, "environment", plan), nil
+}
+
+// PublishEnvironment shows the channels raw carries as the sensor's
+// current values; all of them or, when one does not fit its register,
+// none.
+func (s *ModbusSlave) PublishEnvironment(raw RawEnvironment) error {
+	if s.kind != "environment" {
+		return fmt.Errorf("%w: slave %s is not an environment sensor", ErrModbus, s.id)
+	}
+	type put struct {
+		f   *regField
+		raw uint64
+	}
+	var puts []put
+	for ch, f := range s.plan.env {
+		v := raw.value(ch)
+		if v == nil {
+			continue
+		}
+		r, err := f.scaledRaw(*v)
+		if err != nil {
+			return fmt.Errorf("%w: slave %s: %w", ErrModbus, s.id, err)
+		}
+		puts = append(puts, put{f, r})
+	}
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	for _, p := range puts {
+		p.f.put(s.regs(p.f.input), p.raw)
+	}
+	return nil
 }
 
 func newSlave(id, kind string, plan *devicePlan) *ModbusSlave {
@@ -270,7 +315,7 @@ func (s *ModbusSlave) advance() {
 // PublishPressure shows pa as the sensor's current differential pressure.
 func (s *ModbusSlave) PublishPressure(pa float64) error {
 	if s.kind != "sensor" {
-		return fmt.Errorf("%w: slave %s is a counter", ErrModbus, s.id)
+		return fmt.Errorf("%w: slave %s is not a DP sensor", ErrModbus, s.id)
 	}
 	r, err := s.plan.pa.scaledRaw(pa)
 	if err != nil {
@@ -337,6 +382,36 @@ func (h slaveHandler) HandleInputRegisters(r *modbus.InputRegistersRequest) ([]u
 type SlaveFeed struct {
 	Slaves map[string]*ModbusSlave // by counter or sensor id
 	Next   Submitter               // may be nil when every instrument has a slave
+	// NextEnvironment takes the environment samples of sensors without a
+	// slave; may be nil when every environment sensor has one.
+	NextEnvironment EnvironmentSubmitter
+}
+
+// SubmitEnvironment shows or passes on raws.
+func (f *SlaveFeed) SubmitEnvironment(ctx context.Context, raws []RawEnvironment) (Result, error) {
+	var res Result
+	var rest []RawEnvironment
+	for _, e := range raws {
+		s, ok := f.Slaves[e.Sensor]
+		if !ok {
+			rest = append(rest, e)
+			continue
+		}
+		if err := s.PublishEnvironment(e); err != nil {
+			return res, err
+		}
+		res.Accepted++
+	}
+	if len(rest) == 0 {
+		return res, nil
+	}
+	if f.NextEnvironment == nil {
+		return res, fmt.Errorf("%w: no slave and no next environment submitter for some of the samples", ErrModbus)
+	}
+	r, err := f.NextEnvironment.SubmitEnvironment(ctx, rest)
+	res.Accepted += r.Accepted
+	res.Duplicates += r.Duplicates
+	return res, err
 }
 
 // SubmitReadings shows or passes on raws.

@@ -46,9 +46,12 @@ type SensorInfo struct {
 type Registry struct {
 	counters   map[string]*CounterInfo
 	sensors    map[string]*SensorInfo
-	counterIDs []string // sorted
-	sensorIDs  []string // sorted
-	bounds     Bounds   // physical limits of samples (bounds.go); zero: defaults
+	counterIDs []string                          // sorted
+	sensorIDs  []string                          // sorted
+	bounds     Bounds                            // physical limits of samples (bounds.go); zero: defaults
+	env        map[string]*EnvironmentSensorInfo // set by WithEnvironment
+	envIDs     []string                          // sorted
+	envBounds  EnvironmentBounds                 // zero: the defaults
 }
 
 // NewRegistry validates the counters and sensors (without checking zone

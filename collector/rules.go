@@ -33,7 +33,17 @@ const (
 	RuleConcentrationMax = "concentration-maximum" // beyond the counter's maximum × the margin
 	RulePressureRange    = "pressure-range"        // DP beyond the physical bound
 	RulePressureFinite   = "pressure-finite"       // DP not a finite number
-	maxFreeTextLen       = 4096                    // bytes of a comment or a reason
+	// RuleEnvironmentRange: a temperature, humidity or velocity beyond its
+	// physical range (EnvironmentBounds), or not finite.
+	RuleEnvironmentRange = "environment-range"
+	// RuleEnvironmentChannel: a channel the sensor's kind does not report.
+	RuleEnvironmentChannel = "environment-channel"
+	// RuleTopicInstrument: an MQTT payload names another instrument than
+	// its topic carries.
+	RuleTopicInstrument = "topic-instrument"
+	// RuleTooLarge: an MQTT payload beyond the size limit.
+	RuleTooLarge   = "too-large"
+	maxFreeTextLen = 4096 // bytes of a comment or a reason
 )
 
 // NewInputError builds the refusal of element index: field names the

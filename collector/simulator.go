@@ -56,14 +56,21 @@ type SimOptions struct {
 	// each DP sensor; 0 = defaults; DoorGapMin < 0 = no door openings.
 	DoorGapMin, DoorGapMax time.Duration
 	Now                    func() time.Time // where Run starts when nothing was generated yet; default time.Now
+	// EnvExcursionRate is the chance per environment sample that an
+	// excursion out of the band starts; 0 = default, < 0 = none.
+	EnvExcursionRate float64
+	// Environment receives the environment samples in Run; required when
+	// the registry has environment sensors.
+	Environment EnvironmentSubmitter
 }
 
 // Batch is the simulated data of the half-open time window [From, To),
 // each slice ordered by time (ties by instrument id).
 type Batch struct {
-	From, To time.Time
-	Readings []RawReading
-	Pressure []RawPressure
+	From, To    time.Time
+	Readings    []RawReading
+	Pressure    []RawPressure
+	Environment []RawEnvironment
 }
 
 // Submitter is what the simulator feeds; *Ingest satisfies it.
@@ -100,6 +107,7 @@ type Simulator struct {
 	opt      SimOptions
 	counters []*simCounter
 	sensors  []*simSensor
+	env      []*simEnv
 	started  bool
 	cursor   time.Time
 }
@@ -149,7 +157,10 @@ func NewSimulator(reg *Registry, limits map[string]map[float64]float64, opt SimO
 	if opt.DoorGapMin > 0 && opt.DoorGapMax < opt.DoorGapMin {
 		return nil, fmt.Errorf("%w: DoorGapMax %s is below DoorGapMin %s", ErrSimulator, opt.DoorGapMax, opt.DoorGapMin)
 	}
-	if opt.ExcursionRate > 1 || opt.DropoutRate > 1 {
+	if opt.EnvExcursionRate == 0 {
+		opt.EnvExcursionRate = DefaultEnvExcursionRate
+	}
+	if opt.ExcursionRate > 1 || opt.DropoutRate > 1 || opt.EnvExcursionRate > 1 {
 		return nil, fmt.Errorf("%w: rates are probabilities per sample, at most 1", ErrSimulator)
 	}
 	if opt.Now == nil {
@@ -165,6 +176,9 @@ func NewSimulator(reg *Registry, limits map[string]map[float64]float64, opt SimO
 	}
 	for _, si := range reg.Sensors() {
 		s.sensors = append(s.sensors, newSimSensor(si, opt))
+	}
+	for _, ei := range reg.EnvironmentSensors() {
+		s.env = append(s.env, newSimEnv(ei, opt.Seed))
 	}
 	return s, nil
 }
@@ -247,6 +261,9 @@ func (s *Simulator) start(t time.Time) {
 		for _, p := range s.sensors {
 			p.next = gridAfter(t, time.Duration(p.info.Interval))
 		}
+		for _, e := range s.env {
+			e.next = gridAfter(t, time.Duration(e.info.Interval))
+		}
 		return
 	}
 	if t.After(s.cursor) {
@@ -295,6 +312,9 @@ func (s *Simulator) Run(ctx context.Context, speed float64, submit Submitter) er
 	if !(speed > 0) || math.IsInf(speed, 0) {
 		return fmt.Errorf("%w: speed %g must be a positive factor", ErrSimulator, speed)
 	}
+	if len(s.env) > 0 && s.opt.Environment == nil {
+		return fmt.Errorf("%w: the registry has environment sensors, but SimOptions.Environment is not set", ErrSimulator)
+	}
 	if !s.started {
 		s.start(s.opt.Now())
 	}
@@ -305,6 +325,9 @@ func (s *Simulator) Run(ctx context.Context, speed float64, submit Submitter) er
 	}
 	for _, p := range s.sensors {
 		shortest = min(shortest, time.Duration(p.info.Interval))
+	}
+	for _, e := range s.env {
+		shortest = min(shortest, time.Duration(e.info.Interval))
 	}
 	tick := min(max(time.Duration(float64(shortest)/speed), 10*time.Millisecond), time.Second)
 	t := time.NewTicker(tick)
@@ -337,6 +360,11 @@ func (s *Simulator) submit(ctx context.Context, b Batch, to Submitter) error {
 			return fmt.Errorf("%w: pressure of %s–%s: %w", ErrSimulator, b.From.Format(time.RFC3339), b.To.Format(time.RFC3339), err)
 		}
 	}
+	if len(b.Environment) > 0 {
+		if _, err := s.opt.Environment.SubmitEnvironment(ctx, b.Environment); err != nil {
+			return fmt.Errorf("%w: environment of %s–%s: %w", ErrSimulator, b.From.Format(time.RFC3339), b.To.Format(time.RFC3339), err)
+		}
+	}
 	return nil
 }
 
@@ -364,6 +392,17 @@ func (s *Simulator) advance(to time.Time) Batch {
 		for d := time.Duration(p.info.Interval); p.next.Before(to); p.next = p.next.Add(d) {
 			ps = append(ps, stamped[RawPressure]{p.next, p.sample(p.next, s.opt)})
 		}
+	}
+	var es []stamped[RawEnvironment]
+	for _, e := range s.env {
+		for d := time.Duration(e.info.Interval); e.next.Before(to); e.next = e.next.Add(d) {
+			es = append(es, stamped[RawEnvironment]{e.next, e.sample(e.next, s.opt.EnvExcursionRate)})
+		}
+	}
+	sort.SliceStable(es, func(i, j int) bool { return es[i].t.Before(es[j].t) })
+	b.Environment = make([]RawEnvironment, len(es))
+	for i := range es {
+		b.Environment[i] = es[i].v
 	}
 	// Instruments were visited in id order, so a stable sort by time
 	// leaves ties in id order.

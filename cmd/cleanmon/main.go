@@ -42,6 +42,7 @@ func commands() []command {
 		{"runs", "import production runs from a CSV file into a running daemon", runRuns},
 		{"bench", "measure ingest throughput and latency on loopback", runBench},
 		{"soak", "run ingest and queries together on loopback for a bounded time", runSoak},
+		{"version", "print the version, VCS revision and Go version", runVersion},
 	}
 }
 

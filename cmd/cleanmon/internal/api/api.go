@@ -33,6 +33,10 @@ type Options struct {
 	Metrics *prometheus.Registry
 	Log     *slog.Logger
 	Now     func() time.Time
+	// EnvIngest and EnvStore are the environment side (environment.go);
+	// nil: NoEnvironment.
+	EnvIngest EnvironmentIngest
+	EnvStore  EnvironmentStore
 	// Signatures signs acknowledgements and state changes of people.
 	Signatures Signatures
 	// MaxRawRange bounds the range of one raw readings request; zero is
@@ -56,6 +60,8 @@ type Server struct {
 	now     func() time.Time
 	sigs    Signatures
 
+	envIngest   EnvironmentIngest
+	envStore    EnvironmentStore
 	maxRawRange time.Duration
 	heavy       *heavyGate
 
@@ -71,7 +77,13 @@ type Server struct {
 func New(o Options) *Server {
 	s := &Server{cfg: o.Site, zones: o.Zones, store: o.Store, ingest: o.Ingest, alarms: o.Alarms,
 		auth: o.Access, metrics: o.Metrics, log: o.Log, now: o.Now, sigs: o.Signatures,
-		maxRawRange: o.MaxRawRange, heavy: newHeavyGate(o.HeavyPerToken)}
+		maxRawRange: o.MaxRawRange, heavy: newHeavyGate(o.HeavyPerToken), envIngest: o.EnvIngest, envStore: o.EnvStore}
+	if s.envIngest == nil {
+		s.envIngest = NoEnvironment{}
+	}
+	if s.envStore == nil {
+		s.envStore = NoEnvironment{}
+	}
 	if s.maxRawRange <= 0 {
 		s.maxRawRange = store.DefaultMaxRawRange
 	}
@@ -111,6 +123,8 @@ func (s *Server) Register(r chi.Router) {
 		r.With(short, read).Get("/audit/head", s.auditHead)
 		r.With(long, read, s.heavy.limit).Get("/sensors/{sensor}/pressure", s.sensorPressure)
 
+		s.registerEnvironment(r)
+		s.registerOpenAPI(r)
 		s.registerRecords(r, read, short, long)
 
 		r.With(httpx.Timeout(httpx.BackupTimeout), s.auth.Require(access.PermAdmin)).Get("/backup", s.backup)

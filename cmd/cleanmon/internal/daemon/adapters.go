@@ -210,16 +210,83 @@ func (s *alarmService) Ack(ctx context.Context, id, by, comment string) (alerts.
 // Notifiers implements api.Alarms: the health of every notifier.
 func (s *alarmService) Notifiers() []alerts.NotifierHealth { return s.disp.HealthList() }
 
+// envSink commits the collector's environment samples to the store,
+// behind the same write gate as readings.
+type envSink struct {
+	st   *store.Store
+	gate *writeGate
+}
+
+// CommitEnvironment implements collector.EnvironmentSink.
+func (s envSink) CommitEnvironment(ctx context.Context, es []collector.Environment) (int, int, error) {
+	if err := s.gate.check(); err != nil {
+		return 0, 0, err
+	}
+	acc, dup, err := s.st.AppendEnvironment(ctx, envSamples(es))
+	s.gate.committed(err)
+	return acc, dup, err
+}
+
+// envSamples turns validated environment samples into stored ones.
+func envSamples(es []collector.Environment) []store.EnvSample {
+	out := make([]store.EnvSample, len(es))
+	for i, e := range es {
+		out[i] = store.EnvSample{Sensor: e.Sensor, Time: e.Time, TemperatureC: e.TemperatureC, HumidityPct: e.HumidityPct, VelocityMS: e.VelocityMS}
+		if e.HasTemperature {
+			out[i].Has |= store.EnvTemperature
+		}
+		if e.HasHumidity {
+			out[i].Has |= store.EnvHumidity
+		}
+		if e.HasVelocity {
+			out[i].Has |= store.EnvVelocity
+		}
+	}
+	return out
+}
+
+// envObservation turns a committed environment sample into what the
+// judge and the metrics take.
+func envObservation(e *collector.Environment) alerts.EnvironmentObservation {
+	o := alerts.EnvironmentObservation{Sensor: e.Sensor, Time: e.Time, Values: map[string]float64{}}
+	for _, ch := range []string{collector.ChanTemperature, collector.ChanHumidity, collector.ChanVelocity} {
+		if v, ok := e.Value(ch); ok {
+			o.Values[ch] = v
+		}
+	}
+	return o
+}
+
+// storedEnvObservation does the same for a sample read back from the
+// store.
+func storedEnvObservation(e store.EnvSample) alerts.EnvironmentObservation {
+	o := alerts.EnvironmentObservation{Sensor: e.Sensor, Time: e.Time, Values: map[string]float64{}}
+	if e.Has&store.EnvTemperature != 0 {
+		o.Values[alerts.ChanTemperature] = e.TemperatureC
+	}
+	if e.Has&store.EnvHumidity != 0 {
+		o.Values[alerts.ChanHumidity] = e.HumidityPct
+	}
+	if e.Has&store.EnvVelocity != 0 {
+		o.Values[alerts.ChanVelocity] = e.VelocityMS
+	}
+	return o
+}
+
 // The adapters satisfy what their consumers define.
 var (
-	_ collector.Sink         = storeSink{}
-	_ collector.MarkingSink  = storeSink{}
-	_ alerts.Journal         = alarmStore{}
-	_ alerts.Outbox          = alarmStore{}
-	_ api.Alarms             = (*alarmService)(nil)
-	_ api.Zones              = (*alerts.Judge)(nil)
-	_ collector.DeviceEvents = (*alarmService)(nil)
-	_ prometheus.Collector   = auditCollector{}
+	_ collector.Sink            = storeSink{}
+	_ collector.MarkingSink     = storeSink{}
+	_ alerts.Journal            = alarmStore{}
+	_ alerts.Outbox             = alarmStore{}
+	_ api.Alarms                = (*alarmService)(nil)
+	_ api.Zones                 = (*alerts.Judge)(nil)
+	_ collector.DeviceEvents    = (*alarmService)(nil)
+	_ prometheus.Collector      = auditCollector{}
+	_ collector.EnvironmentSink = envSink{}
+	_ api.EnvironmentStore      = (*store.Store)(nil)
+	_ api.EnvironmentIngest     = (*collector.EnvironmentIngest)(nil)
+	_ collector.MQTTSink        = collector.Ingests{}
 )
 
 // accountStore keeps people's accounts in the store for the people

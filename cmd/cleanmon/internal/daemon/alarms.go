@@ -39,6 +39,7 @@ func engineConfig(cfg *site.Config, reg *collector.Registry, notifiers []string)
 			Delay: time.Duration(p.Delay), Interval: time.Duration(p.Interval),
 		})
 	}
+	ec.Environment = cfg.EnvironmentRules()
 	return ec
 }
 

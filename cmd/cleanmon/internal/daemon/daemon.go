@@ -74,15 +74,18 @@ type Daemon struct {
 	now   func() time.Time
 	audit auditLog
 
-	reg     *collector.Registry
-	ingest  *collector.Ingest
-	alarms  *alarmService // the judge, its queue and its notifiers
-	dm      *demoModbus
-	auth    *access.Authorizer
-	certs   access.CertReloader
-	metrics *prometheus.Registry
-	api     *api.Server
-	people  *peopleSide
+	reg    *collector.Registry
+	ingest *collector.Ingest
+	alarms *alarmService // the judge, its queue and its notifiers
+	dm     *demoModbus
+	// envIngest and envMetrics are the environment side (environment.go).
+	envIngest  *collector.EnvironmentIngest
+	envMetrics *alerts.EnvironmentMetrics
+	auth       *access.Authorizer
+	certs      access.CertReloader
+	metrics    *prometheus.Registry
+	api        *api.Server
+	people     *peopleSide
 
 	ln     net.Listener
 	url    string
@@ -92,6 +95,7 @@ type Daemon struct {
 	bg context.Context // background work; cancelled by its stop
 	wg sync.WaitGroup
 
+	notify notifier // the service manager (sdnotify.go)
 	// demoPassword is the demo admin's password until Run prints it.
 	demoPassword string
 	// keys, gate and the fault found are the signed record's (trust.go).
@@ -138,7 +142,7 @@ func New(o Options) (d *Daemon, err error) {
 	if o.Speed == 0 {
 		o.Speed = 1
 	}
-	d = &Daemon{o: o, log: o.Log, now: time.Now}
+	d = &Daemon{o: o, log: o.Log, now: time.Now, notify: newNotifier()}
 	defer func() {
 		if err != nil {
 			d.Close()
@@ -229,6 +233,9 @@ func (d *Daemon) startPeople() error {
 	if d.people, err = newPeople(context.Background(), d.st, d.cfg, d.cfg.TLS.Enabled()); err != nil {
 		return err
 	}
+	if d.people.sigErr != nil {
+		d.log.Error("signatures made before this start may be missing from the records they signed", "err", d.people.sigErr)
+	}
 	if d.o.Demo {
 		if d.demoPassword, err = d.people.demoAdmin(context.Background()); err != nil {
 			return fmt.Errorf("demo administrator: %w", err)
@@ -248,7 +255,7 @@ func (d *Daemon) startJudge() error {
 		d.push(func() error { d.dm.Stop(); return nil })
 		d.cfg.Counters = d.dm.Counters
 	}
-	if d.reg, err = collector.NewRegistry(d.cfg.Counters, d.cfg.PressureSensors); err != nil {
+	if d.reg, err = d.cfg.Registry(); err != nil {
 		return asUsage(err)
 	}
 	if d.reg, err = d.reg.WithBounds(d.cfg.Bounds()); err != nil {
@@ -287,6 +294,7 @@ func (d *Daemon) startIngest() error {
 			d.log.Error("readings not stored", "kind", rj.Kind, "id", rj.ID, "err", rj.Err)
 		}
 	})
+	d.startEnvironment()
 	var err error
 	if d.auth, err = access.NewAuthorizer(d.cfg.Access, d.o.Demo); err != nil {
 		return asUsage(err)
@@ -303,10 +311,13 @@ func (d *Daemon) startIngest() error {
 		alerts.NewAlarmCollector(d.alarms, zoneIDs(d.cfg)),
 		ingestMetrics,
 		alerts.NewNotifierCollector(d.alarms.disp),
+		d.envMetrics,
+		buildInfoCollector(),
 	)
 	d.api = api.New(api.Options{Site: d.cfg, Zones: d.alarms.judge, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
 		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now, Signatures: d.people,
-		MaxRawRange: time.Duration(d.cfg.Queries.MaxRawRange), HeavyPerToken: d.cfg.Queries.HeavyPerToken})
+		MaxRawRange: time.Duration(d.cfg.Queries.MaxRawRange), HeavyPerToken: d.cfg.Queries.HeavyPerToken,
+		EnvIngest: d.envIngest, EnvStore: d.st})
 	d.gate.mu.Lock()
 	d.gate.onChange = d.api.SetWriteProblem
 	d.gate.mu.Unlock()
@@ -327,14 +338,14 @@ func (d *Daemon) startBackground() error {
 		d.audit.watchClock(bg)
 	}()
 	d.alarms.start(bg, &d.wg)
-	stopModbus, err := startModbus(bg, d.reg, d.ingest, d.log, modbusHooks{Metrics: d.metrics, Now: d.now, Events: d.alarms})
+	stopModbus, err := startModbus(bg, d.reg, d.ingest, d.log, modbusHooks{Metrics: d.metrics, Now: d.now, Events: d.alarms, Environment: d.envIngest})
 	if err != nil {
 		return usage("Modbus: %v", err)
 	}
 	// Before the store closes: a poll in flight commits or fails first.
 	d.push(func() error { stopModbus(); return nil })
 	d.startTrendFiles()
-	return nil
+	return d.startMQTT(bg)
 }
 
 // listen opens the socket (TLS when configured) and builds the HTTP
@@ -426,7 +437,12 @@ func (d *Daemon) Run(ctx context.Context) error {
 		fmt.Fprintf(d.o.Stdout, "cleanmon: sign in at %s/signin as admin with password %s\n", d.url, d.demoPassword)
 		d.demoPassword = ""
 	}
-	d.log.Info("serving", "url", d.url, "site", d.cfg.Site, "data", d.o.DataDir, "zones", len(d.cfg.Zones), "counters", len(d.cfg.Counters), "sensors", len(d.cfg.PressureSensors))
+	if err := d.notify.send("READY=1\nSTATUS=serving on " + d.url); err != nil {
+		d.log.Warn("telling the service manager that the daemon is ready", "err", err)
+	}
+	d.notify.watch(d.bg, &d.wg, d.alive, func(err error) { d.log.Error("watchdog not fed", "err", err) })
+	d.log.Info("serving", "url", d.url, "site", d.cfg.Site, "data", d.o.DataDir, "zones", len(d.cfg.Zones), "counters", len(d.cfg.Counters), "sensors", len(d.cfg.PressureSensors),
+		"environment_sensors", len(d.cfg.Environment), "version", BuildInfo().Version, "revision", BuildInfo().Revision)
 	if !d.o.Demo && len(d.cfg.Access.Tokens) == 0 {
 		d.log.Warn("no access tokens configured: nothing can post readings or change a zone", "open_reads", d.cfg.Access.OpenReads)
 	}
@@ -443,7 +459,7 @@ func (d *Daemon) Run(ctx context.Context) error {
 		if err := demoRuns(d.bg, d.st, d.now()); err != nil {
 			d.log.Warn("demo: production runs not recorded", "err", err)
 		}
-		if err := startDemo(d.bg, &d.wg, d.reg, d.alarms.judge.Tracker(), d.ingest, live, d.now, d.o.Speed, d.log); err != nil {
+		if err := startDemo(d.bg, &d.wg, d.reg, d.alarms.judge.Tracker(), collector.Ingests{Ingest: d.ingest, Environment: d.envIngest}, live, d.now, d.o.Speed, d.log); err != nil {
 			return fmt.Errorf("demo simulator: %w", err)
 		}
 	}
@@ -474,6 +490,11 @@ func (d *Daemon) Close() error {
 		return nil
 	}
 	d.closed = true
+	if d.running {
+		if err := d.notify.send("STOPPING=1"); err != nil {
+			d.log.Warn("telling the service manager that the daemon stops", "err", err)
+		}
+	}
 	var errs []error
 	for i := len(d.stops) - 1; i >= 0; i-- {
 		if err := d.stops[i](); err != nil {

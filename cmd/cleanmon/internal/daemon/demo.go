@@ -17,6 +17,10 @@ const (
 	// action level latches until acknowledged, and a screen full of them
 	// would hide what the demo is there to show.
 	demoExcursionRate = 1.0 / 1440
+	// demoEnvExcursionRate gives each temperature, humidity or velocity
+	// channel an excursion about every two days: the day of history
+	// holds a few environment alarms, not a screen of them.
+	demoEnvExcursionRate = 1.0 / 2880
 	// demoBackfill is the history the demo starts with.
 	demoBackfill = 24 * time.Hour
 	// demoBatch is the simulated time per backfill commit: an hour of the
@@ -30,8 +34,8 @@ const (
 // 24 h through the same ingest path as HTTP, then goes live. Serving does
 // not wait for it.
 func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry, zones *alerts.ZoneTracker,
-	ingest *collector.Ingest, live collector.Submitter, now func() time.Time, speed float64, log *slog.Logger) error {
-	feed := newIncidentFeed(ingest, reg, log)
+	ingest collector.Ingests, live collector.Submitter, now func() time.Time, speed float64, log *slog.Logger) error {
+	feed := newIncidentFeed(ingest.Ingest, reg, log)
 	limits := map[string]map[float64]float64{}
 	for _, ci := range reg.Counters() {
 		v, ok := zones.Zone(ci.Zone)
@@ -46,7 +50,8 @@ func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry,
 		}
 		limits[ci.ID] = m
 	}
-	sim, err := collector.NewSimulator(reg, limits, collector.SimOptions{Seed: demoSeed, Now: now, ExcursionRate: demoExcursionRate})
+	sim, err := collector.NewSimulator(reg, limits, collector.SimOptions{Seed: demoSeed, Now: now, ExcursionRate: demoExcursionRate,
+		EnvExcursionRate: demoEnvExcursionRate, Environment: ingest.Environment})
 	if err != nil {
 		return err
 	}
@@ -55,12 +60,12 @@ func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry,
 		defer wg.Done()
 		start := time.Now()
 		end := now()
-		n, err := demoBackfillRange(ctx, sim, feed, end.Add(-demoBackfill), end)
+		n, err := demoBackfillRange(ctx, sim, feed, ingest.Environment, end.Add(-demoBackfill), end)
 		// Backfilling took time, more of it at a higher speed: catch up with
 		// the clock before going live, so that live data is fresh.
 		for i := 0; err == nil && i < 5 && now().Sub(sim.Cursor()) > time.Second; i++ {
 			var m int
-			m, err = demoBackfillRange(ctx, sim, feed, sim.Cursor(), now())
+			m, err = demoBackfillRange(ctx, sim, feed, ingest.Environment, sim.Cursor(), now())
 			n += m
 		}
 		if err != nil {
@@ -82,7 +87,7 @@ func startDemo(ctx context.Context, wg *sync.WaitGroup, reg *collector.Registry,
 
 // demoBackfillRange submits the simulated data of [from, to) batch by
 // batch and returns the readings accepted.
-func demoBackfillRange(ctx context.Context, sim *collector.Simulator, ingest collector.Submitter, from, to time.Time) (int, error) {
+func demoBackfillRange(ctx context.Context, sim *collector.Simulator, ingest collector.Submitter, env collector.EnvironmentSubmitter, from, to time.Time) (int, error) {
 	n := 0
 	for b := range sim.Backfill(from, to, demoBatch) {
 		if err := ctx.Err(); err != nil {
@@ -97,6 +102,11 @@ func demoBackfillRange(ctx context.Context, sim *collector.Simulator, ingest col
 		}
 		if len(b.Pressure) > 0 {
 			if _, err := ingest.SubmitPressure(ctx, b.Pressure); err != nil {
+				return n, err
+			}
+		}
+		if len(b.Environment) > 0 {
+			if _, err := env.SubmitEnvironment(ctx, b.Environment); err != nil {
 				return n, err
 			}
 		}

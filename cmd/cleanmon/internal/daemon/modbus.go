@@ -25,6 +25,8 @@ type modbusHooks struct {
 	Now func() time.Time
 	// MaxConns bounds the open Modbus connections; 0: the default.
 	MaxConns int
+	// Environment takes the samples of polled environment sensors.
+	Environment collector.EnvironmentSubmitter
 }
 
 // startModbus polls, in the background, every counter and sensor of reg
@@ -38,6 +40,8 @@ func startModbus(ctx context.Context, reg *collector.Registry, in *collector.Ing
 		Logger:   log.With("component", "modbus"),
 		Now:      m.Now,
 		MaxConns: m.MaxConns,
+
+		Environment: m.Environment,
 	})
 	if err != nil {
 		return nil, err

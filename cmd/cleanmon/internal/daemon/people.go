@@ -37,6 +37,9 @@ type peopleSide struct {
 
 	mu   sync.Mutex
 	sigs map[string][]people.Signature // by subject, oldest first
+	// sigErr is why the signatures could not all be read at start (a
+	// damaged store): logged by the daemon, which then serves reads only.
+	sigErr error
 }
 
 // policyOf is the account policy of the site's accounts section.
@@ -59,8 +62,11 @@ func newPeople(ctx context.Context, st *store.Store, cfg *site.Config, secure bo
 		return nil, asUsage(err)
 	}
 	p := &peopleSide{st: st, dir: dir, sessions: sessions, web: w, signer: people.NewSigner(dir, audit, nil, 0), sigs: map[string][]people.Signature{}}
+	// A damaged chain must not stop the daemon from serving reads and
+	// raising its integrity alarm: the signatures read so far are shown,
+	// and the fault is the start-up check's to report.
 	if err := p.loadSignatures(); err != nil {
-		return nil, fmt.Errorf("reading the signatures of the audit chain: %w", err)
+		p.sigErr = fmt.Errorf("reading the signatures of the audit chain: %w", err)
 	}
 	if cfg.OIDC.Enabled() {
 		secret, err := os.ReadFile(cfg.OIDC.ClientSecretFile)

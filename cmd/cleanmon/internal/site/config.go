@@ -45,10 +45,15 @@ type Config struct {
 	Zones           []alerts.ZoneConfig `yaml:"zones"`
 	Counters        []collector.Counter `yaml:"counters"`
 	PressureSensors []collector.Sensor  `yaml:"pressure_sensors"`
-	Alarms          alerts.AlarmsConfig `yaml:"alarms"`
-	Notifications   alerts.NotifyConfig `yaml:"notifications"`
-	TLS             access.TLSConfig    `yaml:"tls"`
-	Queries         QueriesConfig       `yaml:"queries"`
+	// Environment are the temperature, humidity and airflow-velocity
+	// sensors; MQTT the broker they, and counters or DP sensors, may
+	// publish to (environment.go).
+	Environment   []collector.EnvironmentSensorConfig `yaml:"environment"`
+	MQTT          *collector.MQTTConfig               `yaml:"mqtt"`
+	Alarms        alerts.AlarmsConfig                 `yaml:"alarms"`
+	Notifications alerts.NotifyConfig                 `yaml:"notifications"`
+	TLS           access.TLSConfig                    `yaml:"tls"`
+	Queries       QueriesConfig                       `yaml:"queries"`
 	// AllowPlainHTTP permits serving without TLS on an address other than
 	// loopback (a closed instrument network behind its own protection).
 	AllowPlainHTTP bool `yaml:"allow_plain_http"`
@@ -617,7 +622,7 @@ func (d *nodeDecoder) checkSections(c *Config) {
 		}
 		d.add(p, "%s", e.Msg)
 	}
-
+	d.checkEnvironment(c, zoneIDs)
 }
 
 // checkAcross checks what crosses sections: every counter sits at a

@@ -6,6 +6,7 @@ import {
   init, get, poll, banner, el, svgEl, attentionBadge, stateBadge, dpBadge, dpStatus, levelBadge, pa, pct,
   targetText, OP_STATES, clearContradicted, sizeKeys, ago, timeText, timeEl, siteInfo,
 } from "./common.js";
+import { mountEnvironment } from "./environment.js";
 
 const EVERY = 2000;
 
@@ -182,4 +183,5 @@ init().then(() => {
     render(zones, site, sensors, alarms);
     banner(null);
   }, EVERY);
+  mountEnvironment("env-table");
 });

@@ -10,6 +10,7 @@ import {
 } from "./common.js";
 import { startRuns } from "./zone-runs.js";
 import { timeChart } from "./chart.js";
+import { mountEnvironment } from "./environment.js";
 
 const HOUR = 3600e3;
 const DAY = 24 * HOUR;
@@ -383,6 +384,7 @@ init().then(() => {
   wireControls();
   startRuns();
   poll(refreshHead, 5000);
+  mountEnvironment("env-table", zoneID);
   setInterval(() => {
     if (range === "shift") drawCharts();
   }, 30000);

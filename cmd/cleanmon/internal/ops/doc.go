@@ -28,6 +28,7 @@ type Error struct {
 	Err   error // the cause
 }
 
+// Error gives the lines joined, for logs and tests.
 func (e *Error) Error() string { return strings.Join(e.Lines, "; ") }
 
 // Unwrap gives the cause, so callers can test for a store's errors.

@@ -81,7 +81,7 @@ var (
 	// mayImport lists every project package an internal package may
 	// import, for those that have such a list.
 	mayImport = map[string][]string{
-		internal + "ops": {"classify", "collector", "store", "alerts", internal + "site",
+		internal + "ops": {"classify", "collector", "store", internal + "site",
 			internal + "api", internal + "daemon", internal + "report"},
 	}
 )

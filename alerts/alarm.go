@@ -45,10 +45,10 @@ type Alarm struct {
 	Kind     string   `json:"kind"`
 	Level    string   `json:"level"`
 	State    string   `json:"state"`
-	Location string   `json:"location,omitempty"`
+	Location string   `json:"location"`
 	Counter  string   `json:"counter,omitempty"`
 	Sensor   string   `json:"sensor,omitempty"`
-	SizeUM   *float64 `json:"size_um,omitempty"`
+	SizeUM   *float64 `json:"size_um"`
 	// Since is when the condition was first seen (the start of the delay).
 	Since       time.Time  `json:"since"`
 	ActiveSince *time.Time `json:"active_since,omitempty"`

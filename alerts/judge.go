@@ -93,6 +93,12 @@ func (j *Judge) Observe(ctx context.Context, in Input) error {
 	return nil
 }
 
+// ObserveIntegrity raises (fault) or clears the integrity alarm of the
+// store (see Engine.ObserveIntegrity).
+func (j *Judge) ObserveIntegrity(ctx context.Context, fault bool, reason string, at time.Time) error {
+	return j.e.ObserveIntegrity(ctx, fault, reason, at)
+}
+
 // Tick runs the rules time drives (delays running out, silence, windows
 // moving on). Call it every second or so.
 func (j *Judge) Tick(ctx context.Context) error { return j.e.Tick(ctx) }

@@ -174,6 +174,7 @@ func TestDeployFilesPresent(t *testing.T) {
 		"prometheus/prometheus.yml",
 		"prometheus/federation.yml",
 		"prometheus/cleanmon-rules.yml",
+		"prometheus/cleanmon-alarm-rules.yml",
 		"prometheus/cleanmon-rules.test.yml",
 		"alertmanager/alertmanager.yml",
 		"grafana/cleanmon-dashboard.json",
@@ -695,14 +696,22 @@ type deployRuleFile struct {
 	} `yaml:"groups"`
 }
 
+// deployValueless are the alerts that say something is missing (a scrape,
+// a notifier, a judgement, an instrument): they have no value to show.
+var deployValueless = map[string]bool{"CleanmonDown": true, "CleanmonNotifierDown": true, "CleanmonZoneStateUnknown": true, "CleanmonInstrumentNeverReported": true}
+
 // TestDeployRules checks what promtool does not: the rules use only
 // metrics cleanmon exports, label every alert for the Alertmanager routes,
 // and each alert has a unit test.
 func TestDeployRules(t *testing.T) {
 	exported := deployExportedMetrics(t)
 	var rf deployRuleFile
-	if err := yaml.Unmarshal(deployRead(t, "prometheus", "cleanmon-rules.yml"), &rf); err != nil {
-		t.Fatal(err)
+	for _, name := range []string{"cleanmon-rules.yml", "cleanmon-alarm-rules.yml"} {
+		var one deployRuleFile
+		if err := yaml.Unmarshal(deployRead(t, "prometheus", name), &one); err != nil {
+			t.Fatalf("%s: %v", name, err)
+		}
+		rf.Groups = append(rf.Groups, one.Groups...)
 	}
 	var tf struct {
 		Tests []struct {
@@ -754,6 +763,11 @@ func TestDeployRules(t *testing.T) {
 			if r.Annotations["summary"] == "" || r.Annotations["description"] == "" {
 				t.Errorf("%s: want summary and description annotations", where)
 			}
+			// A reader is shown the value with its unit, except where the
+			// alert is that something is missing.
+			if r.Annotations["value"] == "" && !deployValueless[r.Alert] {
+				t.Errorf("%s: no value annotation (the value with its unit)", where)
+			}
 			if !fires[r.Alert] {
 				t.Errorf("%s: no unit test in cleanmon-rules.test.yml where it fires", where)
 			}
@@ -787,6 +801,11 @@ func TestDeployPrometheusConfig(t *testing.T) {
 	}
 	if !slices.Contains(cfg.RuleFiles, "cleanmon-rules.yml") {
 		t.Errorf("rule_files %v does not load cleanmon-rules.yml", cfg.RuleFiles)
+	}
+	// One paging path by default: the daemon's own notifier. The rules that
+	// judge the same events are the alternative, not loaded beside it.
+	if slices.Contains(cfg.RuleFiles, "cleanmon-alarm-rules.yml") {
+		t.Errorf("rule_files %v loads cleanmon-alarm-rules.yml beside the daemon's notifier: one event would page twice", cfg.RuleFiles)
 	}
 	for _, sc := range cfg.ScrapeConfigs {
 		if sc.JobName != "cleanmon" {
@@ -841,6 +860,7 @@ func TestDeployPromtool(t *testing.T) {
 		want []string // in the output
 	}{
 		{"check rules", []string{"check", "rules", filepath.Join(prom, "cleanmon-rules.yml")}, []string{"SUCCESS"}},
+		{"check alarm rules", []string{"check", "rules", filepath.Join(prom, "cleanmon-alarm-rules.yml")}, []string{"SUCCESS"}},
 		{"test rules", []string{"test", "rules", filepath.Join(prom, "cleanmon-rules.test.yml")}, []string{"SUCCESS"}},
 		{"check config syntax", []string{"check", "config", "--syntax-only", filepath.Join(prom, "prometheus.yml")}, []string{"SUCCESS"}},
 		{"check config with its rules", []string{"check", "config", filepath.Join(dir, "prometheus.yml")}, []string{"cleanmon-rules.yml", "SUCCESS"}},
@@ -895,10 +915,20 @@ func TestDeployAlertmanager(t *testing.T) {
 		labels   []string
 		receiver string
 	}{
-		{[]string{"alertname=CleanmonZoneOutOfClass", "level=action", "severity=critical", "zone=assembly", "kind=out-of-class"}, "cleanroom-pager"},
-		{[]string{"alertname=CleanmonZoneStateUnknown", "level=action", "severity=warning", "zone=gowning", "kind=monitoring"}, "cleanroom-pager-low"},
-		{[]string{"level=action", "zone=coating-hood", "kind=pressure-reversal"}, "cleanroom-pager"}, // the daemon's own notifier sets no severity
-		{[]string{"alertname=CleanmonZoneAboveAlertLevel", "level=alert", "severity=warning", "zone=assembly", "kind=excursion"}, "cleanroom-chat"},
+		// The daemon's own alarms: the one paging path by default.
+		{[]string{"alertname=cleanmon_out-of-class", "level=action", "severity=action", "zone=assembly", "kind=out-of-class", "site=veldmark-photonics", "suite=building-c"}, "cleanroom-pager"},
+		{[]string{"alertname=cleanmon_pressure-reversal", "level=action", "severity=action", "zone=coating-hood", "kind=pressure-reversal"}, "cleanroom-pager"},
+		{[]string{"alertname=cleanmon_excursion", "level=alert", "severity=alert", "zone=assembly", "kind=excursion"}, "cleanroom-chat"},
+		// Its heartbeat, to the dead-man's switch, whatever its severity.
+		{[]string{"alertname=cleanmon_heartbeat", "severity=action", "site=veldmark-photonics", "suite=building-c"}, "monitoring-deadman"},
+		{[]string{"alertname=cleanmon_heartbeat", "severity=alert"}, "monitoring-deadman"},
+		// The Prometheus rules that judge the same events are not sent.
+		{[]string{"alertname=CleanmonZoneOutOfClass", "level=action", "severity=critical", "zone=assembly", "kind=out-of-class"}, "not-sent"},
+		{[]string{"alertname=CleanmonZoneStateUnknown", "level=action", "severity=warning", "zone=gowning", "kind=monitoring"}, "not-sent"},
+		{[]string{"alertname=CleanmonPressureReversal", "level=action", "severity=critical", "kind=pressure-reversal"}, "not-sent"},
+		{[]string{"alertname=CleanmonDown", "level=alert", "severity=warning", "kind=monitoring"}, "cleanroom-chat"},
+		{[]string{"level=action", "severity=warning", "zone=gowning"}, "cleanroom-pager-low"},
+		{[]string{"alertname=CleanmonZoneAboveAlertLevel", "level=alert", "severity=warning", "zone=assembly", "kind=excursion"}, "not-sent"},
 		{[]string{"level=alert", "zone=metrology", "kind=stale"}, "cleanroom-chat"},
 		{[]string{"alertname=SomethingElse"}, "cleanroom-chat"},
 	}

@@ -59,7 +59,7 @@ func TestZoneClassification(t *testing.T) {
 	if m := rep.Locations[0].MeanPerM3["0.5"]; math.Abs(m-perL(50)) > 1e-6 {
 		t.Errorf("mean %v, want %v", m, perL(50))
 	}
-	if !strings.Contains(strings.Join(rep.Warnings, "|"), "1 readings with a fault status left out") {
+	if !strings.Contains(strings.Join(rep.Warnings, "|"), "1 untrusted readings (fault status") {
 		t.Errorf("warnings %q", rep.Warnings)
 	}
 

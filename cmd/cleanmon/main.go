@@ -27,7 +27,8 @@ type command struct {
 func commands() []command {
 	return []command{
 		{"serve", "run the monitoring daemon (--config FILE, or --demo)", runServe},
-		{"check-config", "validate a site configuration without starting the daemon", runCheckConfig},
+		{"lint", "check a site configuration without starting the daemon", runLint},
+		{"check-config", "deprecated name of lint", runCheckConfig},
 		{"limits", "print ISO 14644-1 class limits or EU GMP grade limits", runLimits},
 		{"plan", "print the sampling plan for a zone: locations, volume, time", runPlan},
 		{"certify", "evaluate planned samples against a class and print the verdict", runCertify},

@@ -115,8 +115,10 @@ func (s *Server) ackAlarm(w http.ResponseWriter, r *http.Request) {
 		httpx.WriteJSON(w, http.StatusOK, s.withSignatures([]alerts.Alarm{a})[0])
 	case errors.Is(err, alerts.ErrNoAlarm):
 		httpx.WriteError(w, http.StatusNotFound, err.Error())
-	case errors.Is(err, alerts.ErrAlreadyAcked), errors.Is(err, alerts.ErrAlarmCleared), errors.Is(err, alerts.ErrAlarmPending):
+	case errors.Is(err, alerts.ErrAlreadyAcked), errors.Is(err, alerts.ErrAlarmCleared), errors.Is(err, alerts.ErrAlarmDelayed):
 		httpx.WriteError(w, http.StatusConflict, err.Error())
+	case errors.Is(err, alerts.ErrCommentRequired):
+		httpx.WriteFieldError(w, "comment", "missing: an action alarm is acknowledged with what was found or done")
 	case errors.Is(err, alerts.ErrAck):
 		httpx.WriteError(w, http.StatusBadRequest, err.Error())
 	default:

@@ -25,7 +25,7 @@ var Errors = httpx.Table{
 	{Err: alerts.ErrNoAlarm, Status: http.StatusNotFound},
 	{Err: alerts.ErrAlreadyAcked, Status: http.StatusConflict},
 	{Err: alerts.ErrAlarmCleared, Status: http.StatusConflict},
-	{Err: alerts.ErrAlarmPending, Status: http.StatusConflict},
+	{Err: alerts.ErrAlarmDelayed, Status: http.StatusConflict},
 	{Err: alerts.ErrAck, Status: http.StatusBadRequest},
 	{Err: alerts.ErrOperatingState, Status: http.StatusBadRequest},
 }

@@ -27,30 +27,46 @@ import (
 // behaviour it is about.
 
 type fakeZones struct {
-	zones    func() []alerts.ZoneView
-	zone     func(id string) (alerts.ZoneView, bool)
-	setState func(alerts.OperatingChange, func(alerts.OperatingChange) error) (alerts.ZoneView, error)
+	zones    func() []alerts.ZoneReport
+	zone     func(id string) (alerts.ZoneReport, bool)
+	setState func(alerts.OperatingChange, func(alerts.OperatingChange) error) (alerts.ZoneReport, error)
+	opAt     func(zone string, at time.Time) alerts.StateAt
+	sensors  func() []alerts.SensorView
 }
 
-func (f fakeZones) Zones() []alerts.ZoneView {
+func (f fakeZones) Zones() []alerts.ZoneReport {
 	if f.zones == nil {
 		return nil
 	}
 	return f.zones()
 }
 
-func (f fakeZones) Zone(id string) (alerts.ZoneView, bool) {
+func (f fakeZones) Zone(id string) (alerts.ZoneReport, bool) {
 	if f.zone == nil {
-		return alerts.ZoneView{ID: id}, true
+		return alerts.ZoneReport{ZoneView: alerts.ZoneView{ID: id}}, true
 	}
 	return f.zone(id)
 }
 
-func (f fakeZones) SetOperatingState(ch alerts.OperatingChange, persist func(alerts.OperatingChange) error) (alerts.ZoneView, error) {
+func (f fakeZones) SetOperatingState(_ context.Context, ch alerts.OperatingChange, persist func(alerts.OperatingChange) error) (alerts.ZoneReport, error) {
 	if f.setState == nil {
-		return alerts.ZoneView{ID: ch.Zone, OperatingState: ch.State}, persist(ch)
+		return alerts.ZoneReport{ZoneView: alerts.ZoneView{ID: ch.Zone, OperatingState: ch.State}}, persist(ch)
 	}
 	return f.setState(ch, persist)
+}
+
+func (f fakeZones) OperatingAt(zone string, at time.Time) alerts.StateAt {
+	if f.opAt == nil {
+		return alerts.StateAt{Operating: alerts.InOperation, Limits: alerts.InOperation, Judged: true}
+	}
+	return f.opAt(zone, at)
+}
+
+func (f fakeZones) Sensors() []alerts.SensorView {
+	if f.sensors == nil {
+		return nil
+	}
+	return f.sensors()
 }
 
 type fakeStore struct {

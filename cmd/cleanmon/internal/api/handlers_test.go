@@ -116,12 +116,12 @@ func TestPutZoneStateRecordsFirst(t *testing.T) {
 					recorded = append(recorded, st)
 					return c.err
 				}},
-				Zones: fakeZones{setState: func(ch alerts.OperatingChange, persist func(alerts.OperatingChange) error) (alerts.ZoneView, error) {
+				Zones: fakeZones{setState: func(ch alerts.OperatingChange, persist func(alerts.OperatingChange) error) (alerts.ZoneReport, error) {
 					if err := persist(ch); err != nil {
-						return alerts.ZoneView{}, err
+						return alerts.ZoneReport{}, err
 					}
 					applied = true
-					return alerts.ZoneView{ID: ch.Zone, OperatingState: ch.State}, nil
+					return alerts.ZoneReport{ZoneView: alerts.ZoneView{ID: ch.Zone, OperatingState: ch.State}}, nil
 				}},
 			})
 			status, body := call(t, h, "PUT", "/api/v1/zones/hood/state", "application/json", `{"state":"in-operation","by":"j.marsh","reason":"shift start"}`)
@@ -149,8 +149,9 @@ func TestAckAnswers(t *testing.T) {
 		{alerts.ErrNoAlarm, http.StatusNotFound},
 		{alerts.ErrAlreadyAcked, http.StatusConflict},
 		{alerts.ErrAlarmCleared, http.StatusConflict},
-		{alerts.ErrAlarmPending, http.StatusConflict},
+		{alerts.ErrAlarmDelayed, http.StatusConflict},
 		{alerts.ErrAck, http.StatusBadRequest},
+		{fmt.Errorf("%w: %w", alerts.ErrAck, alerts.ErrCommentRequired), http.StatusBadRequest},
 		{errors.New("journal down"), http.StatusServiceUnavailable},
 	} {
 		var gotID, gotBy string
@@ -164,6 +165,11 @@ func TestAckAnswers(t *testing.T) {
 		}
 		if gotID != "hood:excursion" || gotBy != "j.marsh" {
 			t.Errorf("%v: ack of %q by %q", c.err, gotID, gotBy)
+		}
+		// The refusal of an action alarm's acknowledgement without a
+		// comment names the field to fill in.
+		if errors.Is(c.err, alerts.ErrCommentRequired) && body["field"] != "comment" {
+			t.Errorf("%v: field %v, want comment", c.err, body["field"])
 		}
 	}
 }
@@ -204,8 +210,8 @@ func TestReadyzWhileWritesFail(t *testing.T) {
 // A zone without a class or grade cannot be certified, and the pages get
 // the same answer, byte for byte, as the API route.
 func TestCertifyStoredMatchesRoute(t *testing.T) {
-	for _, zone := range []alerts.ZoneView{{ID: "hood"}} {
-		s := newTestServer(t, Options{Zones: fakeZones{zone: func(string) (alerts.ZoneView, bool) { return zone, true }}})
+	for _, zone := range []alerts.ZoneReport{{ZoneView: alerts.ZoneView{ID: "hood"}}} {
+		s := newTestServer(t, Options{Zones: fakeZones{zone: func(string) (alerts.ZoneReport, bool) { return zone, true }}})
 		status, body, rep := s.CertifyStored(context.Background(), "hood", "2026-03-01T00:00:00Z", "2026-03-02T00:00:00Z")
 		if status != http.StatusBadRequest || rep != nil || !strings.Contains(string(body), "unclassified") {
 			t.Errorf("CertifyStored: %d %s %v", status, body, rep)
@@ -228,30 +234,29 @@ func TestCertifyStoredMatchesRoute(t *testing.T) {
 	}
 }
 
-// A DP sensor is "ok" only on a fresh value at or above its minimum; a
-// stale or missing value is "unknown", never fine.
+// GET /api/v1/sensors shows the judge's status of each sensor: a silent
+// one (no sample within its allowed silence, or none at all) is
+// "unknown" with no number, never fine.
 func TestSensorStates(t *testing.T) {
 	for _, c := range []struct {
-		name  string
-		pa    float64
-		age   time.Duration
-		found bool
-		want  string
+		name   string
+		status string
+		pa     float64
+		heard  bool
+		want   string
 	}{
-		{"fresh, above the minimum", 12.5, 5 * time.Second, true, "ok"},
-		{"fresh, at the minimum", 10, 5 * time.Second, true, "ok"},
-		{"fresh, below the minimum", 6, 5 * time.Second, true, "low"},
-		{"fresh, below zero", -1.5, 5 * time.Second, true, "reversed"},
-		// three intervals of 10 s without a sample: the value is shown but
-		// not trusted
-		{"stale", 12.5, 31 * time.Second, true, "unknown"},
-		{"stale and reversed", -3, time.Hour, true, "unknown"},
-		{"never reported", 0, 0, false, "unknown"},
+		{"ok", alerts.SensorOK, 12.5, true, "ok"},
+		{"low", alerts.SensorLow, 6, true, "low"},
+		{"reversed", alerts.SensorReversed, -1.5, true, "reversed"},
+		{"silent after a sample", alerts.SensorSilent, 0, true, "unknown"},
+		{"never reported", alerts.SensorSilent, 0, false, "unknown"},
 	} {
 		t.Run(c.name, func(t *testing.T) {
-			h := newTestAPI(t, Options{Store: fakeStore{latestDP: func(string) (store.Pressure, bool, error) {
-				return store.Pressure{Sensor: "dp-hood", Time: testNow.Add(-c.age), Pa: c.pa}, c.found, nil
-			}}})
+			v := alerts.SensorView{SensorDP: alerts.SensorDP{Sensor: "dp-hood", High: "hood", Low: "corridor", MinPa: 10, Pa: c.pa}, Status: c.status, DoorOpenings: 3}
+			if c.heard {
+				v.Time = testNow.Add(-time.Minute)
+			}
+			h := newTestAPI(t, Options{Zones: fakeZones{sensors: func() []alerts.SensorView { return []alerts.SensorView{v} }}})
 			req := httptest.NewRequest("GET", "/api/v1/sensors", nil)
 			rec := httptest.NewRecorder()
 			h.ServeHTTP(rec, req)
@@ -259,19 +264,29 @@ func TestSensorStates(t *testing.T) {
 			if err := json.Unmarshal(rec.Body.Bytes(), &out); err != nil || rec.Code != http.StatusOK || len(out) != 1 {
 				t.Fatalf("%d %s", rec.Code, rec.Body.String())
 			}
-			if out[0]["state"] != c.want || out[0]["id"] != "dp-hood" {
+			if out[0]["state"] != c.want || out[0]["id"] != "dp-hood" || out[0]["door_openings"] != 3.0 {
 				t.Errorf("%v, want state %s", out[0], c.want)
 			}
-			if (out[0]["pa"] != nil) != c.found {
-				t.Errorf("pa %v with found %v", out[0]["pa"], c.found)
+			if (out[0]["pa"] != nil) != (c.status != alerts.SensorSilent) {
+				t.Errorf("pa %v with status %s", out[0]["pa"], c.status)
+			}
+			if (out[0]["time"] != nil) != c.heard {
+				t.Errorf("time %v, heard %v", out[0]["time"], c.heard)
 			}
 		})
 	}
-	// A store that fails is the daemon's fault: 503, not an empty list.
-	h := newTestAPI(t, Options{Store: fakeStore{latestDP: func(string) (store.Pressure, bool, error) {
-		return store.Pressure{}, false, errors.New("disk read")
-	}}})
-	if status, _ := call(t, h, "GET", "/api/v1/sensors", "", ""); status != http.StatusServiceUnavailable {
-		t.Errorf("failing store: %d", status)
+	// A sensor the judge does not know is unknown too.
+	h := newTestAPI(t, Options{})
+	if status, body := callList(t, h, "/api/v1/sensors"); status != http.StatusOK || len(body) != 1 || body[0]["state"] != "unknown" {
+		t.Errorf("no view: %d %v", status, body)
 	}
+}
+
+func callList(t *testing.T, h http.Handler, path string) (int, []map[string]any) {
+	t.Helper()
+	rec := httptest.NewRecorder()
+	h.ServeHTTP(rec, httptest.NewRequest("GET", path, nil))
+	var out []map[string]any
+	json.Unmarshal(rec.Body.Bytes(), &out)
+	return rec.Code, out
 }

@@ -11,14 +11,19 @@ import (
 	"cleanmon/store"
 )
 
-// Zones is the live zone state the API shows and changes (the judge's
-// zone tracker).
+// Zones is the judge as the API reads and changes it: zone reports (the
+// particle state, attention, open alarms, DP sensors and counters of each
+// zone), the operating state in time, and every DP sensor.
 type Zones interface {
-	Zones() []alerts.ZoneView
-	Zone(id string) (alerts.ZoneView, bool)
+	Zones() []alerts.ZoneReport
+	Zone(id string) (alerts.ZoneReport, bool)
 	// SetOperatingState calls persist and, only when it succeeds, applies
-	// the change.
-	SetOperatingState(ch alerts.OperatingChange, persist func(alerts.OperatingChange) error) (alerts.ZoneView, error)
+	// the change; the alarm rules follow it.
+	SetOperatingState(ctx context.Context, ch alerts.OperatingChange, persist func(alerts.OperatingChange) error) (alerts.ZoneReport, error)
+	// OperatingAt is the operating state, and whose limits, in force in a
+	// zone at a time: stored readings are classified by it.
+	OperatingAt(zone string, at time.Time) alerts.StateAt
+	Sensors() []alerts.SensorView
 }
 
 // Store is what the API reads from and writes to the store.
@@ -66,13 +71,12 @@ type Ingest interface {
 	PostPressure(ctx context.Context, contentType string, declaredLength int64, body io.Reader) (collector.Result, error)
 }
 
-// Alarms is the judge's alarm side: the open alarms, acknowledgement, the
-// operating state the rules follow, and the health of the notifiers.
+// Alarms is the judge's alarm side: the open alarms, acknowledgement and
+// the health of the notifiers.
 type Alarms interface {
 	// Active lists the alarms not cleared.
 	Active() []alerts.Alarm
 	Ack(ctx context.Context, id, by, comment string) (alerts.Alarm, error)
-	SetOperatingState(ctx context.Context, zone, state string) error
 	Notifiers() []alerts.NotifierHealth
 }
 
@@ -87,9 +91,6 @@ func (NoAlarms) Active() []alerts.Alarm { return nil }
 func (NoAlarms) Ack(context.Context, string, string, string) (alerts.Alarm, error) {
 	return alerts.Alarm{}, alerts.ErrNoAlarm
 }
-
-// SetOperatingState has no rules to tell.
-func (NoAlarms) SetOperatingState(context.Context, string, string) error { return nil }
 
 // Notifiers is empty.
 func (NoAlarms) Notifiers() []alerts.NotifierHealth { return nil }

@@ -36,7 +36,7 @@ func (s *Server) zoneRecovery(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	v, _ := s.zones.Zone(z.ID)
-	size, target, p := recoveryParams(r, v)
+	size, target, p := recoveryParams(r, v.ZoneView)
 	if p != nil {
 		p.write(w)
 		return

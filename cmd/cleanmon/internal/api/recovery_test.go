@@ -42,9 +42,9 @@ func recoveryStore(counts []uint64, start time.Time, status string) fakeStore {
 	}}
 }
 
-func hoodView(string) (alerts.ZoneView, bool) {
+func hoodView(string) (alerts.ZoneReport, bool) {
 	five := 5.0
-	return alerts.ZoneView{ID: "hood", Class: &five, Sizes: []float64{0.5}, AreaM2: 2, LimitsState: "at-rest"}, true
+	return alerts.ZoneReport{ZoneView: alerts.ZoneView{ID: "hood", Class: &five, Sizes: []float64{0.5}, AreaM2: 2, LimitsState: "at-rest"}}, true
 }
 
 func TestZoneRecovery(t *testing.T) {

@@ -1,6 +1,7 @@
 package api
 
 import (
+	"cleanmon/alerts"
 	"fmt"
 	"net/http"
 	"strconv"
@@ -25,14 +26,16 @@ type sensorJSON struct {
 	Pa    *float64   `json:"pa"`
 	Time  *time.Time `json:"time"`
 	// State is "ok", "low" (below the minimum), "reversed" (below zero) or
-	// "unknown" (no sample yet, or none within three sample periods).
-	State string `json:"state"`
+	// "unknown" (silent: no sample yet, or none within its allowed
+	// silence; Pa is then null, Time the last one heard), as the judge
+	// sees it; DoorOpenings the dips shorter than the delay.
+	State        string `json:"state"`
+	DoorOpenings uint64 `json:"door_openings"`
 }
 
-// sensorObject is the sensor with its latest value. Its state is
-// unknown while the value is stale or missing, so that a silent sensor is
-// never shown as fine.
-func (s *Server) sensorObject(p collector.Sensor, now time.Time) (sensorJSON, error) {
+// sensorObject is the configured sensor with the judge's view of it. A
+// silent sensor shows no number and the state unknown, never fine.
+func sensorObject(p collector.Sensor, v alerts.SensorView) sensorJSON {
 	o := sensorJSON{ID: p.ID, High: p.High, Low: p.Low, MinPa: p.MinPa, Delay: httpx.FormatDuration(time.Duration(p.Delay)), State: "unknown"}
 	if o.Delay == "0s" {
 		o.Delay = httpx.FormatDuration(collector.DefaultSensorDelay)
@@ -41,41 +44,24 @@ func (s *Server) sensorObject(p collector.Sensor, now time.Time) (sensorJSON, er
 		v := p.MaxPa
 		o.MaxPa = &v
 	}
-	last, found, err := s.store.LatestPressure(p.ID)
-	if err != nil || !found {
-		return o, err
+	j := sensorView(v)
+	o.Pa, o.Time, o.DoorOpenings = j.Pa, j.Time, v.DoorOpenings
+	if v.Status != alerts.SensorSilent && v.Sensor == p.ID {
+		o.State = v.Status
 	}
-	pa, t := last.Pa, last.Time.UTC()
-	o.Pa, o.Time = &pa, &t
-	every := time.Duration(p.Interval)
-	if every <= 0 {
-		every = collector.DefaultSensorInterval
-	}
-	switch {
-	case now.Sub(t) > 3*every:
-		// A stale value is shown, but the state says it cannot be trusted.
-	case pa < 0:
-		o.State = "reversed"
-	case pa < p.MinPa:
-		o.State = "low"
-	default:
-		o.State = "ok"
-	}
-	return o, nil
+	return o
 }
 
 // listSensors is GET /api/v1/sensors: every DP sensor with its latest
 // value against its minimum, in configuration order.
 func (s *Server) listSensors(w http.ResponseWriter, r *http.Request) {
+	views := map[string]alerts.SensorView{}
+	for _, v := range s.zones.Sensors() {
+		views[v.Sensor] = v
+	}
 	out := make([]sensorJSON, 0, len(s.cfg.PressureSensors))
-	now := s.now()
 	for _, p := range s.cfg.PressureSensors {
-		o, err := s.sensorObject(p, now)
-		if err != nil {
-			Errors.Write(w, "reading the store: ", err)
-			return
-		}
-		out = append(out, o)
+		out = append(out, sensorObject(p, views[p.ID]))
 	}
 	httpx.WriteJSON(w, http.StatusOK, out)
 }

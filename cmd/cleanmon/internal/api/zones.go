@@ -28,17 +28,26 @@ type zoneJSON struct {
 	StateChange    *stateChangeJSON `json:"operating_state_change"`
 	// LimitsState is the operating state whose limits apply (in
 	// maintenance, the state the zone ran in before).
-	LimitsState  string              `json:"limits_state"`
-	State        string              `json:"state"`
-	LimitsPerM3  map[string]*float64 `json:"limits_per_m3"`
-	AlertPerM3   map[string]*float64 `json:"alert_levels_per_m3"`
-	ActionPerM3  map[string]*float64 `json:"action_levels_per_m3"`
-	Locations    []locationJSON      `json:"locations"`
-	ActiveAlarms []alerts.Alarm      `json:"active_alarms"`
-	Window       string              `json:"window"`
-	StaleAfter   string              `json:"stale_after"`
-	Notes        []string            `json:"notes"`
-	EvaluatedAt  time.Time           `json:"evaluated_at"`
+	LimitsState string `json:"limits_state"`
+	// CleanUpUntil is set while the clean-up period after a switch to
+	// at-rest runs: until then the zone is judged by its previous limits.
+	CleanUpUntil *time.Time `json:"clean_up_until"`
+	State        string     `json:"state"`
+	// Attention is the worst of State, the open alarms, the DP sensors on
+	// the zone's boundary and its counters; the reasons say what.
+	Attention        string              `json:"attention"`
+	AttentionReasons []string            `json:"attention_reasons"`
+	LimitsPerM3      map[string]*float64 `json:"limits_per_m3"`
+	AlertPerM3       map[string]*float64 `json:"alert_levels_per_m3"`
+	ActionPerM3      map[string]*float64 `json:"action_levels_per_m3"`
+	Locations        []locationJSON      `json:"locations"`
+	ActiveAlarms     []alerts.Alarm      `json:"active_alarms"`
+	Sensors          []zoneSensorJSON    `json:"sensors"`
+	Instruments      []instrumentJSON    `json:"instruments"`
+	Window           string              `json:"window"`
+	StaleAfter       string              `json:"stale_after"`
+	Notes            []string            `json:"notes"`
+	EvaluatedAt      time.Time           `json:"evaluated_at"`
 }
 
 type stateChangeJSON struct {
@@ -57,13 +66,61 @@ type locationJSON struct {
 	MeanPerM3          map[string]float64 `json:"mean_per_m3"`
 	Samples            int                `json:"samples"`
 	Fresh              bool               `json:"fresh"`
-	State              string             `json:"state"`
+	// Trusted is false while the newest reading cannot be trusted (over
+	// the counter's range, a fault, a flow off nominal); Untrusted says
+	// why, and the location is unknown until a trusted reading follows.
+	Trusted   bool   `json:"trusted"`
+	Untrusted string `json:"untrusted,omitempty"`
+	State     string `json:"state"`
 }
 
-func zoneObject(v alerts.ZoneView) zoneJSON {
+// zoneSensorJSON is a DP sensor on a zone's boundary as the judge sees it:
+// no number while it is silent.
+type zoneSensorJSON struct {
+	ID           string     `json:"id"`
+	High         string     `json:"high"`
+	Low          string     `json:"low"`
+	MinPa        float64    `json:"min_pa"`
+	Pa           *float64   `json:"pa"`
+	Time         *time.Time `json:"time"`
+	Status       string     `json:"status"`
+	DoorOpenings uint64     `json:"door_openings"`
+}
+
+// instrumentJSON is a counter of the zone as the judge sees it.
+type instrumentJSON struct {
+	Counter   string     `json:"counter"`
+	Location  string     `json:"location"`
+	Time      *time.Time `json:"time"`
+	Status    string     `json:"status"`
+	Untrusted string     `json:"untrusted,omitempty"`
+}
+
+func optTime(t time.Time) *time.Time {
+	if t.IsZero() {
+		return nil
+	}
+	u := t.UTC()
+	return &u
+}
+
+// sensorView is a DP sensor of the judge in JSON.
+func sensorView(v alerts.SensorView) zoneSensorJSON {
+	o := zoneSensorJSON{ID: v.Sensor, High: v.High, Low: v.Low, MinPa: v.MinPa, Time: optTime(v.Time), Status: v.Status, DoorOpenings: v.DoorOpenings}
+	if v.Status != alerts.SensorSilent {
+		pa := v.Pa
+		o.Pa = &pa
+	}
+	return o
+}
+
+func zoneObject(r alerts.ZoneReport) zoneJSON {
+	v := r.ZoneView
 	z := zoneJSON{
 		ID: v.ID, Name: v.Name, Class: v.Class, OperatingState: v.OperatingState,
-		LimitsState: v.LimitsState, State: string(v.State),
+		LimitsState: v.LimitsState, State: string(v.State), CleanUpUntil: optTime(v.CleanUpUntil),
+		Attention: string(r.Attention), AttentionReasons: append([]string{}, r.AttentionReasons...),
+		Sensors: []zoneSensorJSON{}, Instruments: []instrumentJSON{},
 		LimitsPerM3: map[string]*float64{}, AlertPerM3: map[string]*float64{}, ActionPerM3: map[string]*float64{},
 		Locations: []locationJSON{}, ActiveAlarms: []alerts.Alarm{},
 		Window: httpx.FormatDuration(v.Window), StaleAfter: httpx.FormatDuration(v.StaleAfter),
@@ -90,7 +147,7 @@ func zoneObject(v alerts.ZoneView) zoneJSON {
 	for _, l := range v.Locations {
 		lj := locationJSON{
 			ID: l.ID, Name: l.Name, Counter: l.Counter, ConcentrationPerM3: l.PerM3, Status: l.Status,
-			MeanPerM3: l.MeanPerM3, Samples: l.Samples, Fresh: l.Fresh, State: string(l.State),
+			MeanPerM3: l.MeanPerM3, Samples: l.Samples, Fresh: l.Fresh, Trusted: l.Trusted, Untrusted: l.Untrusted, State: string(l.State),
 		}
 		if !l.Time.IsZero() {
 			t := l.Time.UTC()
@@ -98,13 +155,15 @@ func zoneObject(v alerts.ZoneView) zoneJSON {
 		}
 		z.Locations = append(z.Locations, lj)
 	}
-	return z
-}
-
-// zoneObject is the zone object with its open alarms.
-func (s *Server) zoneObject(v alerts.ZoneView) zoneJSON {
-	z := zoneObject(v)
-	z.ActiveAlarms = zoneAlarms(s.alarms.Active(), v.ID)
+	for _, sv := range r.Sensors {
+		z.Sensors = append(z.Sensors, sensorView(sv))
+	}
+	for _, c := range r.Instruments {
+		z.Instruments = append(z.Instruments, instrumentJSON{Counter: c.Counter, Location: c.Location, Time: optTime(c.Time), Status: c.Status, Untrusted: c.Untrusted})
+	}
+	// Every open alarm of the zone, latched ones included, newest first.
+	z.ActiveAlarms = append(z.ActiveAlarms, r.ActiveAlarms...)
+	sort.SliceStable(z.ActiveAlarms, func(i, j int) bool { return z.ActiveAlarms[i].Since.After(z.ActiveAlarms[j].Since) })
 	return z
 }
 
@@ -113,7 +172,7 @@ func (s *Server) listZones(w http.ResponseWriter, r *http.Request) {
 	views := s.zones.Zones()
 	out := make([]zoneJSON, len(views))
 	for i, v := range views {
-		out[i] = s.zoneObject(v)
+		out[i] = zoneObject(v)
 	}
 	httpx.WriteJSON(w, http.StatusOK, out)
 }
@@ -125,7 +184,7 @@ func (s *Server) getZone(w http.ResponseWriter, r *http.Request) {
 		httpx.WriteError(w, http.StatusNotFound, fmt.Sprintf("unknown zone %q", zoneOf(r).ID))
 		return
 	}
-	httpx.WriteJSON(w, http.StatusOK, s.zoneObject(v))
+	httpx.WriteJSON(w, http.StatusOK, zoneObject(v))
 }
 
 // stateRequest is the body of PUT /api/v1/zones/{zone}/state.
@@ -166,7 +225,7 @@ func (s *Server) putZoneState(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	ch := alerts.OperatingChange{Zone: id, State: req.State, By: act.who, Reason: req.Reason, Time: now}
-	v, err := s.zones.SetOperatingState(ch, func(ch alerts.OperatingChange) error {
+	v, err := s.zones.SetOperatingState(r.Context(), ch, func(ch alerts.OperatingChange) error {
 		return s.store.SetOperatingState(r.Context(), store.OperatingState{Zone: ch.Zone, State: ch.State, By: ch.By, Reason: ch.Reason, Time: ch.Time})
 	})
 	if err != nil {
@@ -182,24 +241,6 @@ func (s *Server) putZoneState(w http.ResponseWriter, r *http.Request) {
 		}
 		return
 	}
-	// The change is on record; the rules follow it (maintenance silences
-	// excursions). A failure here is the rules' journal, not the change,
-	// so it is logged rather than undone.
-	if err := s.alarms.SetOperatingState(r.Context(), id, req.State); err != nil {
-		s.log.Error("alarm rules did not take the operating state", "zone", id, "err", err)
-	}
 	s.log.Info("operating state changed", "zone", id, "state", req.State, "by", req.By, "reason", req.Reason, "token", httpx.IdentityOf(r).Token)
-	httpx.WriteJSON(w, http.StatusOK, s.zoneObject(v))
-}
-
-// zoneAlarms are the open alarms of one zone, newest first.
-func zoneAlarms(active []alerts.Alarm, zone string) []alerts.Alarm {
-	out := []alerts.Alarm{}
-	for _, a := range active {
-		if a.Zone == zone {
-			out = append(out, a)
-		}
-	}
-	sort.Slice(out, func(i, j int) bool { return out[i].Since.After(out[j].Since) })
-	return out
+	httpx.WriteJSON(w, http.StatusOK, zoneObject(v))
 }

@@ -2,6 +2,7 @@ package daemon
 
 import (
 	"cleanmon/alerts"
+	"cleanmon/cmd/cleanmon/internal/api"
 	"cleanmon/cmd/cleanmon/internal/people"
 	"cleanmon/collector"
 	"cleanmon/store"
@@ -196,24 +197,30 @@ func (c auditCollector) Collect(ch chan<- prometheus.Metric) {
 
 // Active implements api.Alarms: the alarms not cleared, with an
 // integrity alarm the damaged store could not take (trust.go).
-func (s *alarmService) Active() []alerts.Alarm { return s.withUnjournaled(s.eng.Alarms(false)) }
+func (s *alarmService) Active() []alerts.Alarm { return s.withUnjournaled(s.judge.Alarms(false)) }
 
 // Alarms implements alerts.AlarmLister for the alarm metrics, the same way.
-func (s *alarmService) Alarms(all bool) []alerts.Alarm { return s.withUnjournaled(s.eng.Alarms(all)) }
+func (s *alarmService) Alarms(all bool) []alerts.Alarm { return s.withUnjournaled(s.judge.Alarms(all)) }
 
 // Ack implements api.Alarms.
 func (s *alarmService) Ack(ctx context.Context, id, by, comment string) (alerts.Alarm, error) {
-	return s.eng.Ack(ctx, id, by, comment)
-}
-
-// SetOperatingState implements api.Alarms: the rules follow the zone's
-// operating state (maintenance silences excursions).
-func (s *alarmService) SetOperatingState(ctx context.Context, zone, state string) error {
-	return s.eng.SetOperatingState(ctx, zone, state)
+	return s.judge.Ack(ctx, id, by, comment)
 }
 
 // Notifiers implements api.Alarms: the health of every notifier.
 func (s *alarmService) Notifiers() []alerts.NotifierHealth { return s.disp.HealthList() }
+
+// The adapters satisfy what their consumers define.
+var (
+	_ collector.Sink         = storeSink{}
+	_ collector.MarkingSink  = storeSink{}
+	_ alerts.Journal         = alarmStore{}
+	_ alerts.Outbox          = alarmStore{}
+	_ api.Alarms             = (*alarmService)(nil)
+	_ api.Zones              = (*alerts.Judge)(nil)
+	_ collector.DeviceEvents = (*alarmService)(nil)
+	_ prometheus.Collector   = auditCollector{}
+)
 
 // accountStore keeps people's accounts in the store for the people
 // package; the two Account types match field for field.

@@ -5,7 +5,6 @@ import (
 	"fmt"
 	"log/slog"
 	"net/http"
-	"sort"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -18,19 +17,21 @@ import (
 	"cleanmon/store"
 )
 
-// alarmStore adapts the bbolt store to what the alarm engine (Journal) and
-// the dispatcher (Outbox, QueueCounter) need: transitions and alarm
-// engineConfig is the alarm engine's view of the site configuration.
-func engineConfig(cfg *site.Config, notifiers []string, zones *alerts.ZoneTracker) alerts.EngineConfig {
+// engineConfig is the judge's view of the site configuration. The
+// counters come from the registry, whose defaults (the nominal flow, the
+// sample interval) are the ones the ingest path checks volumes with, so
+// the flow check and the sample volume cannot disagree.
+func engineConfig(cfg *site.Config, reg *collector.Registry, notifiers []string) alerts.EngineConfig {
 	ec := alerts.EngineConfig{
-		Zones: cfg.Zones, Notifiers: notifiers, Tracker: zones,
+		Zones: cfg.Zones, Notifiers: notifiers,
 		Consecutive: cfg.Alarms.Consecutive, TrendRun: cfg.Alarms.TrendRun, TrendBaseline: cfg.Alarms.TrendBaseline, Latch: cfg.Alarms.Latch,
+		CountRuleCounts: cfg.Alarms.CountRuleCounts, CountRuleSamples: cfg.Alarms.CountRuleSamples,
 	}
-	for _, k := range cfg.Counters {
+	for _, k := range reg.Counters() {
 		ec.Counters = append(ec.Counters, alerts.CounterRule{
-			ID: k.ID, Zone: k.Zone, Location: site.CounterLocation(k),
+			ID: k.ID, Zone: k.Zone, Location: site.CounterLocation(k.Counter),
 			NominalFlowLPM: k.FlowLPM, MaxPerM3: k.MaxPerM3, Interval: time.Duration(k.Interval),
-		})
+		}.WithDefaults())
 	}
 	for _, p := range cfg.PressureSensors {
 		ec.Sensors = append(ec.Sensors, alerts.SensorRule{
@@ -41,21 +42,20 @@ func engineConfig(cfg *site.Config, notifiers []string, zones *alerts.ZoneTracke
 	return ec
 }
 
-// alarmService runs the alarm engine beside the ingest path: readings are
-// handed over after their commit, in order, through a bounded queue, so a
-// slow rule never delays an acknowledgement and a burst is absorbed (the
-// queue pushes back on ingest only when it is full).
+// alarmService runs the judge beside the ingest path: readings, DP samples
+// and device events are handed over after their commit, in order, through
+// a bounded queue, so a slow rule never delays an acknowledgement and a
+// burst is absorbed (the queue pushes back on ingest only when it is full).
 type alarmService struct {
-	eng       *alerts.Engine
+	judge     *alerts.Judge
 	disp      *alerts.Dispatcher
 	notifiers []alerts.Notifier
+	heartbeat time.Duration
+	now       func() time.Time
 	log       *slog.Logger
 	work      chan func(context.Context)
 
 	busy atomic.Int32 // a queued task is running
-
-	mu sync.Mutex
-	dp map[string]alerts.SensorDP // latest DP per sensor, for metrics
 
 	// unjournaled is the integrity alarm when the damaged store could not
 	// record it (trust.go): shown and sent all the same.
@@ -64,7 +64,7 @@ type alarmService struct {
 
 const alarmQueue = 4096
 
-func newAlarmService(cfg *site.Config, st *store.Store, zones *alerts.ZoneTracker, now func() time.Time, log *slog.Logger) (*alarmService, error) {
+func newAlarmService(cfg *site.Config, reg *collector.Registry, st *store.Store, now func() time.Time, log *slog.Logger) (*alarmService, error) {
 	notifiers, err := alerts.BuildNotifiers(cfg.Notifications, &http.Client{Timeout: 30 * time.Second}, log)
 	if err != nil {
 		return nil, err
@@ -72,66 +72,41 @@ func newAlarmService(cfg *site.Config, st *store.Store, zones *alerts.ZoneTracke
 	opt := cfg.Notifications.DispatcherOptions()
 	opt.Now, opt.Logger = now, log
 	disp := alerts.NewDispatcher(alarmStore{st}, notifiers, opt)
-	eng, err := alerts.NewEngine(engineConfig(cfg, disp.Names(), zones), alarmStore{st}, now)
+	judge, err := alerts.NewJudge(engineConfig(cfg, reg, disp.Names()), alarmStore{st}, now)
 	if err != nil {
 		return nil, err
 	}
-	eng.Subscribe(func([]alerts.Transition) { disp.Kick() })
-	s := &alarmService{eng: eng, disp: disp, notifiers: notifiers, log: log, work: make(chan func(context.Context), alarmQueue), dp: map[string]alerts.SensorDP{}}
-	for _, p := range cfg.PressureSensors {
-		s.dp[p.ID] = alerts.SensorDP{Sensor: p.ID, High: p.High, Low: p.Low, MinPa: p.MinPa}
-		if v, ok, err := st.LatestPressure(p.ID); err == nil && ok {
-			d := s.dp[p.ID]
-			d.Pa, d.Time = v.Pa, v.Time
-			s.dp[p.ID] = d
-		}
-	}
-	return s, nil
+	judge.Subscribe(func([]alerts.Transition) { disp.Kick() })
+	return &alarmService{judge: judge, disp: disp, notifiers: notifiers, heartbeat: cfg.Notifications.HeartbeatEvery(),
+		now: now, log: log, work: make(chan func(context.Context), alarmQueue)}, nil
 }
 
-// start restores the engine (history first, so the consecutive and trend
-// rules continue; then the open alarms) and runs the queue worker, the
-// one-second tick of the time-driven rules, the dispatcher and the
-// Alertmanager resenders until ctx ends.
-// On a store found damaged (damaged set) a failed restore is logged and
-// the rules run all the same: the integrity alarm must get out.
-func (s *alarmService) start(ctx context.Context, wg *sync.WaitGroup, history []alerts.Observation, states map[string]string, damaged bool) error {
-	if err := s.eng.Prime(history); err != nil {
-		return fmt.Errorf("alarm engine history: %w", err)
-	}
-	if err := s.eng.Restore(ctx); err != nil {
+// restore brings the judge back after a start: the operating-state
+// history and the open alarms first, then the stored readings of each
+// window, which raise nothing. On a store found damaged a failed restore
+// of the alarms is logged and the judge runs all the same: the integrity
+// alarm must get out.
+func (s *alarmService) restore(ctx context.Context, changes []alerts.OperatingChange, history []alerts.Observation, damaged bool) error {
+	if err := s.judge.Restore(ctx, changes); err != nil {
 		if !damaged {
-			return fmt.Errorf("restoring alarms: %w", err)
+			return fmt.Errorf("restoring the judge: %w", err)
 		}
 		s.log.Error("open alarms not restored from the damaged store: the alarms shown may be incomplete", "err", err)
 	}
-	for zone, st := range states {
-		if err := s.eng.SetOperatingState(ctx, zone, st); err != nil {
-			s.log.Warn("operating state not applied to the alarm rules", "zone", zone, "err", err)
-		}
+	if err := s.judge.Prime(history); err != nil {
+		return fmt.Errorf("judge history: %w", err)
 	}
-	wg.Add(3)
+	return nil
+}
+
+// start runs the queue worker, the one-second tick of the time-driven
+// rules, the dispatcher, the heartbeat and the Alertmanager resenders
+// until ctx ends.
+func (s *alarmService) start(ctx context.Context, wg *sync.WaitGroup) {
+	wg.Add(4)
 	go func() {
 		defer wg.Done()
-		for {
-			select {
-			case <-ctx.Done():
-				// Drain what is queued so that no committed reading goes
-				// unjudged at a clean stop.
-				for {
-					select {
-					case f := <-s.work:
-						f(context.Background())
-					default:
-						return
-					}
-				}
-			case f := <-s.work:
-				s.busy.Store(1)
-				f(ctx)
-				s.busy.Store(0)
-			}
-		}
+		s.worker(ctx)
 	}()
 	go func() {
 		defer wg.Done()
@@ -143,7 +118,7 @@ func (s *alarmService) start(ctx context.Context, wg *sync.WaitGroup, history []
 				return
 			case <-t.C:
 				s.enqueue(ctx, func(ctx context.Context) {
-					if err := s.eng.Tick(ctx); err != nil && ctx.Err() == nil {
+					if err := s.judge.Tick(ctx); err != nil && ctx.Err() == nil {
 						s.log.Error("alarm rules tick failed", "err", err)
 					}
 				})
@@ -156,16 +131,43 @@ func (s *alarmService) start(ctx context.Context, wg *sync.WaitGroup, history []
 			s.log.Error("notification dispatcher stopped", "err", err)
 		}
 	}()
+	go func() {
+		defer wg.Done()
+		// Its silence after ctx ends is what a receiver's dead-man's
+		// switch notices.
+		alerts.RunHeartbeat(ctx, s.notifiers, s.heartbeat, s.Active, s.now)
+	}()
 	for _, n := range s.notifiers {
 		if r, ok := n.(alerts.Resender); ok {
 			wg.Add(1)
 			go func() {
 				defer wg.Done()
-				r.Run(ctx, func() []alerts.Alarm { return s.eng.Alarms(false) })
+				r.Run(ctx, s.Active)
 			}()
 		}
 	}
-	return nil
+}
+
+// worker runs the queued tasks in order until ctx ends, then drains what
+// is queued so that no committed reading goes unjudged at a clean stop.
+func (s *alarmService) worker(ctx context.Context) {
+	for {
+		select {
+		case <-ctx.Done():
+			for {
+				select {
+				case f := <-s.work:
+					f(context.Background())
+				default:
+					return
+				}
+			}
+		case f := <-s.work:
+			s.busy.Store(1)
+			f(ctx)
+			s.busy.Store(0)
+		}
+	}
 }
 
 func (s *alarmService) enqueue(ctx context.Context, f func(context.Context)) {
@@ -175,69 +177,42 @@ func (s *alarmService) enqueue(ctx context.Context, f func(context.Context)) {
 	}
 }
 
-// observeReadings hands committed readings to the rules.
+// observe hands one committed batch to the judge.
+func (s *alarmService) observe(what string, n int, in alerts.Input) {
+	s.enqueue(context.Background(), func(ctx context.Context) {
+		if err := s.judge.Observe(ctx, in); err != nil {
+			s.log.Error("the judge could not take committed "+what, "count", n, "err", err)
+		}
+	})
+}
+
+// observeReadings hands committed readings to the judge.
 func (s *alarmService) observeReadings(rs []collector.Reading) {
 	crs := make([]alerts.CounterReading, len(rs))
 	for i := range rs {
 		crs[i] = alerts.CounterReading{Observation: observation(&rs[i]), FlowLPM: rs[i].FlowLPM}
 	}
-	s.enqueue(context.Background(), func(ctx context.Context) {
-		if err := s.eng.ObserveCounterReadings(ctx, crs); err != nil {
-			s.log.Error("alarm rules could not judge readings", "readings", len(crs), "err", err)
-		}
-	})
+	s.observe("readings", len(crs), alerts.Input{Readings: crs})
 }
 
-// observePressure hands committed DP samples to the rules.
+// observePressure hands committed DP samples to the judge.
 func (s *alarmService) observePressure(ps []collector.Pressure) {
 	obs := make([]alerts.PressureObservation, len(ps))
-	s.mu.Lock()
 	for i, p := range ps {
 		obs[i] = alerts.PressureObservation{Sensor: p.Sensor, Time: p.Time, Pa: p.Pa}
-		if d, ok := s.dp[p.Sensor]; ok && !p.Time.Before(d.Time) {
-			d.Pa, d.Time = p.Pa, p.Time
-			s.dp[p.Sensor] = d
-		}
 	}
-	s.mu.Unlock()
-	s.enqueue(context.Background(), func(ctx context.Context) {
-		if err := s.eng.ObservePressure(ctx, obs); err != nil {
-			s.log.Error("alarm rules could not judge DP samples", "samples", len(obs), "err", err)
-		}
-	})
+	s.observe("DP samples", len(obs), alerts.Input{Pressure: obs})
 }
 
 // Fault implements collector.DeviceEvents: a polled instrument that fails
 // raises an instrument alarm.
 func (s *alarmService) Fault(id, reason string, t time.Time) {
-	s.enqueue(context.Background(), func(ctx context.Context) {
-		if err := s.eng.ObserveDevice(ctx, id, true, reason, t); err != nil {
-			s.log.Error("alarm rules could not judge a device fault", "device", id, "err", err)
-		}
-	})
+	s.observe("device events", 1, alerts.Input{Devices: []alerts.DeviceObservation{{ID: id, Fault: true, Reason: reason, Time: t}}})
 }
 
 // Recovered implements collector.DeviceEvents.
 func (s *alarmService) Recovered(id string, t time.Time) {
-	s.enqueue(context.Background(), func(ctx context.Context) {
-		if err := s.eng.ObserveDevice(ctx, id, false, "", t); err != nil {
-			s.log.Error("alarm rules could not judge a device recovery", "device", id, "err", err)
-		}
-	})
-}
-
-// LatestDP is the newest DP per sensor, for the pressure metrics.
-func (s *alarmService) LatestDP() []alerts.SensorDP {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	out := make([]alerts.SensorDP, 0, len(s.dp))
-	for _, d := range s.dp {
-		if !d.Time.IsZero() {
-			out = append(out, d)
-		}
-	}
-	sort.Slice(out, func(i, j int) bool { return out[i].Sensor < out[j].Sensor })
-	return out
+	s.observe("device events", 1, alerts.Input{Devices: []alerts.DeviceObservation{{ID: id, Time: t}}})
 }
 
 var descRulesQueue = prometheus.NewDesc("cleanmon_rules_queue", "Batches of committed readings and DP samples waiting for the alarm rules.", nil, nil)
@@ -250,5 +225,3 @@ func (s *alarmService) Describe(ch chan<- *prometheus.Desc) { ch <- descRulesQue
 func (s *alarmService) Collect(ch chan<- prometheus.Metric) {
 	ch <- prometheus.MustNewConstMetric(descRulesQueue, prometheus.GaugeValue, float64(len(s.work)+int(s.busy.Load())))
 }
-
-// zoneAlarms are the open alarms of one zone, newest first.

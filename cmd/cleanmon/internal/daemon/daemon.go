@@ -74,14 +74,10 @@ type Daemon struct {
 	now   func() time.Time
 	audit auditLog
 
-	reg    *collector.Registry
-	zones  *alerts.ZoneTracker
-	ingest *collector.Ingest
-	alarms *alarmService
-	dm     *demoModbus
-	// history and states are what the store held at start, for the rules.
-	history []alerts.Observation
-	states  map[string]string
+	reg     *collector.Registry
+	ingest  *collector.Ingest
+	alarms  *alarmService // the judge, its queue and its notifiers
+	dm      *demoModbus
 	auth    *access.Authorizer
 	certs   access.CertReloader
 	metrics *prometheus.Registry
@@ -258,22 +254,20 @@ func (d *Daemon) startJudge() error {
 	if d.reg, err = d.reg.WithBounds(d.cfg.Bounds()); err != nil {
 		return asUsage(err)
 	}
-	if d.zones, err = alerts.NewZoneTracker(d.cfg.Zones, d.cfg.Bindings(), alerts.ZoneTrackerOptions{Now: d.now}); err != nil {
+	if d.alarms, err = newAlarmService(d.cfg, d.reg, d.st, d.now, d.log); err != nil {
 		return asUsage(err)
 	}
-	if d.history, d.states, err = restoreZones(d.st, d.zones, d.cfg, d.now(), d.log); err != nil {
+	changes, history, err := storedHistory(d.st, d.cfg, d.now(), d.log)
+	if err != nil {
 		if !d.damaged() {
-			return fmt.Errorf("restoring zone state from the store: %w", err)
+			return fmt.Errorf("reading the judge's history from the store: %w", err)
 		}
 		// A damaged store still serves what it can: the zones start
 		// without history, so they show unknown until readings come.
 		d.log.Error("zone state not restored from the damaged store: zones start unknown", "err", err)
-		d.history, d.states = nil, nil
+		changes, history = nil, nil
 	}
-	if d.alarms, err = newAlarmService(d.cfg, d.st, d.zones, d.now, d.log); err != nil {
-		return asUsage(err)
-	}
-	return nil
+	return d.alarms.restore(context.Background(), changes, history, d.damaged())
 }
 
 // startIngest builds the ingest path (store first, then the judge), the
@@ -281,17 +275,10 @@ func (d *Daemon) startJudge() error {
 func (d *Daemon) startIngest() error {
 	ingestMetrics := alerts.NewIngestMetrics(counterIDs(d.cfg))
 	d.ingest = collector.NewIngest(d.reg, storeSink{d.st, ingestMetrics, d.log, &d.gate}, collector.IngestOptions{Retention: d.cfg.RetentionOrDefault(), Now: d.now})
-	d.ingest.OnReadings(func(rs []collector.Reading) {
-		obs := make([]alerts.Observation, len(rs))
-		for i := range rs {
-			obs[i] = observation(&rs[i])
-		}
-		d.zones.Observe(obs...)
-		d.alarms.observeReadings(rs)
-	})
+	d.ingest.OnReadings(d.alarms.observeReadings)
 	d.ingest.OnPressure(d.alarms.observePressure)
 	d.ingest.OnRejected(func(rj collector.Rejection) {
-		if rj.Kind == "reading" {
+		if rj.Kind == "readings" { // collector.Rejection.Kind: "readings" or "pressure"
 			ingestMetrics.Count(rj.ID, alerts.IngestRejected, 1)
 		}
 		// Bad input is the sender's to fix and is answered as such; a
@@ -310,13 +297,14 @@ func (d *Daemon) startIngest() error {
 		collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}), collectors.NewGoCollector(),
 		auditCollector{d.st},
 		d.alarms,
-		alerts.NewZoneCollector(d.zones),
-		alerts.NewPressureCollector(d.alarms),
+		alerts.NewZoneCollector(d.alarms.judge.Tracker()),
+		alerts.NewJudgeCollector(d.alarms.judge),
+		alerts.NewPressureCollector(alerts.SensorDPFunc(d.alarms.judge.LatestDP)),
 		alerts.NewAlarmCollector(d.alarms, zoneIDs(d.cfg)),
 		ingestMetrics,
 		alerts.NewNotifierCollector(d.alarms.disp),
 	)
-	d.api = api.New(api.Options{Site: d.cfg, Zones: d.zones, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
+	d.api = api.New(api.Options{Site: d.cfg, Zones: d.alarms.judge, Store: d.st, Ingest: d.ingest, Alarms: d.alarms,
 		Access: d.auth, Metrics: d.metrics, Log: d.log, Now: d.now, Signatures: d.people,
 		MaxRawRange: time.Duration(d.cfg.Queries.MaxRawRange), HeavyPerToken: d.cfg.Queries.HeavyPerToken})
 	d.gate.mu.Lock()
@@ -338,9 +326,7 @@ func (d *Daemon) startBackground() error {
 		defer d.wg.Done()
 		d.audit.watchClock(bg)
 	}()
-	if err := d.alarms.start(bg, &d.wg, d.history, d.states, d.damaged()); err != nil {
-		return err
-	}
+	d.alarms.start(bg, &d.wg)
 	stopModbus, err := startModbus(bg, d.reg, d.ingest, d.log, modbusHooks{Metrics: d.metrics, Now: d.now, Events: d.alarms})
 	if err != nil {
 		return usage("Modbus: %v", err)
@@ -457,7 +443,7 @@ func (d *Daemon) Run(ctx context.Context) error {
 		if err := demoRuns(d.bg, d.st, d.now()); err != nil {
 			d.log.Warn("demo: production runs not recorded", "err", err)
 		}
-		if err := startDemo(d.bg, &d.wg, d.reg, d.zones, d.ingest, live, d.now, d.o.Speed, d.log); err != nil {
+		if err := startDemo(d.bg, &d.wg, d.reg, d.alarms.judge.Tracker(), d.ingest, live, d.now, d.o.Speed, d.log); err != nil {
 			return fmt.Errorf("demo simulator: %w", err)
 		}
 	}

@@ -14,71 +14,55 @@ import (
 	"time"
 )
 
-// restoreZones brings the live zone state back after a start: the
-// operating states on record and the readings within each zone's window.
-// It returns those readings and states for the alarm rules as well.
-func restoreZones(st *store.Store, zones *alerts.ZoneTracker, cfg *site.Config, now time.Time, log *slog.Logger) ([]alerts.Observation, map[string]string, error) {
-	stored, err := st.OperatingStates()
+// storedHistory reads what the judge needs back after a start: every
+// recorded operating-state change of the configured zones (the judge
+// judges each reading by the state of its time), and each counter's
+// readings within its zone's window plus its newest reading, which fill
+// the windows and baselines without raising anything.
+func storedHistory(st *store.Store, cfg *site.Config, now time.Time, log *slog.Logger) ([]alerts.OperatingChange, []alerts.Observation, error) {
+	latest, err := st.OperatingStates()
 	if err != nil {
 		return nil, nil, err
 	}
-	states := map[string]string{}
-	var history []alerts.Observation
-	for zone, s := range stored {
-		if _, ok := zones.Zone(zone); !ok {
+	var changes []alerts.OperatingChange
+	for zone, s := range latest {
+		if _, ok := cfg.Zone(zone); !ok {
 			log.Warn("stored operating state of a zone no longer configured", "zone", zone, "state", s.State)
 			continue
 		}
-		if s.State == alerts.Maintenance {
-			// Maintenance is judged against the limits of the state before
-			// it: find that state in the history and apply it first.
-			var before *store.OperatingState
-			err := st.OperatingStateHistory(zone, func(h store.OperatingState) error {
-				if h.State != alerts.Maintenance {
-					h := h
-					before = &h
-				}
-				return nil
-			})
-			if err != nil {
-				return nil, nil, err
-			}
-			if before != nil {
-				zones.RestoreOperatingState(opChange(zone, *before))
-			}
-		}
-		if err := zones.RestoreOperatingState(opChange(zone, s)); err != nil {
-			log.Warn("stored operating state not restored", "zone", zone, "err", err)
-		} else {
-			states[zone] = s.State
-		}
-	}
-	windows := map[string]time.Duration{} // a zone view per zone, not per counter
-	for _, v := range zones.Zones() {
-		windows[v.ID] = v.Window
-	}
-	for _, k := range cfg.Counters {
-		window, ok := windows[k.Zone]
-		if !ok {
-			continue
-		}
-		if r, found, err := st.LatestReading(k.ID); err != nil {
-			return nil, nil, err
-		} else if found {
-			zones.Observe(storedObservation(r))
-		}
-		var obs []alerts.Observation
-		err := st.ScanReadings(k.ID, now.Add(-window), time.Time{}, func(r store.Reading) error {
-			obs = append(obs, storedObservation(r))
+		err := st.OperatingStateHistory(zone, func(h store.OperatingState) error {
+			changes = append(changes, opChange(zone, h))
 			return nil
 		})
 		if err != nil {
 			return nil, nil, err
 		}
-		zones.Observe(obs...)
-		history = append(history, obs...)
 	}
-	return history, states, nil
+	var history []alerts.Observation
+	for _, k := range cfg.Counters {
+		z, ok := cfg.Zone(k.Zone)
+		if !ok {
+			continue
+		}
+		window := time.Duration(z.Window)
+		if window <= 0 {
+			window = alerts.DefaultWindow
+		}
+		from := now.Add(-window)
+		if r, found, err := st.LatestReading(k.ID); err != nil {
+			return nil, nil, err
+		} else if found && r.Time.Before(from) {
+			history = append(history, storedObservation(r))
+		}
+		err := st.ScanReadings(k.ID, from, time.Time{}, func(r store.Reading) error {
+			history = append(history, storedObservation(r))
+			return nil
+		})
+		if err != nil {
+			return nil, nil, err
+		}
+	}
+	return changes, history, nil
 }
 
 func counterIDs(cfg *site.Config) []string {

@@ -193,7 +193,7 @@ func (d *Daemon) raiseIntegrity() {
 	}
 	at := d.now()
 	d.alarms.enqueue(d.bg, func(ctx context.Context) {
-		if err := d.alarms.eng.ObserveIntegrity(ctx, true, msg, at); err != nil {
+		if err := d.alarms.judge.ObserveIntegrity(ctx, true, msg, at); err != nil {
 			d.log.Error("the integrity alarm could not be recorded in the damaged store; it is shown and sent without its record", "err", err)
 			d.alarms.raiseUnjournaled(ctx, msg, at, d.log)
 		}

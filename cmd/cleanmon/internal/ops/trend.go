@@ -14,8 +14,8 @@ import (
 	"strings"
 	"time"
 
-	"cleanmon/alerts"
 	"cleanmon/cmd/cleanmon/internal/api"
+	"cleanmon/cmd/cleanmon/internal/daemon"
 	"cleanmon/cmd/cleanmon/internal/report"
 	"cleanmon/cmd/cleanmon/internal/site"
 	"cleanmon/store"
@@ -142,9 +142,12 @@ func storedTrend(data, config, zone, month string) (int, []byte, error) {
 		return 0, nil, fault(err)
 	}
 	defer st.Close()
-	zones, err := alerts.NewZoneTracker(cfg.Zones, cfg.Bindings(), alerts.ZoneTrackerOptions{Now: time.Now})
+	zones, err := daemon.OfflineJudge(cfg, st, time.Now)
 	if err != nil {
-		return 0, nil, usage(err)
+		if errors.Is(err, daemon.ErrUsage) {
+			return 0, nil, usage(err)
+		}
+		return 0, nil, fault(err)
 	}
 	srv := api.New(api.Options{Site: cfg, Zones: zones, Store: st, Ingest: api.NoIngest{}, Alarms: api.NoAlarms{},
 		Log: slog.New(slog.NewTextHandler(io.Discard, nil)), Now: time.Now})

@@ -7,7 +7,7 @@ import (
 	"testing"
 )
 
-func TestCheckConfigCommand(t *testing.T) {
+func TestLintCommand(t *testing.T) {
 	broken := filepath.Join(t.TempDir(), "unreadable.yaml")
 	cases := []struct {
 		name   string
@@ -33,15 +33,15 @@ func TestCheckConfigCommand(t *testing.T) {
 			"../../testdata/site-broken.yaml:27:24: counters[2].zone:",
 			"../../testdata/site-broken.yaml:29:44: pressure_sensors[0].low:",
 		}},
-		{"missing file", []string{"--config", broken}, exitUsage, "", []string{"cleanmon check-config: invalid configuration: open " + broken}},
+		{"missing file", []string{"--config", broken}, exitUsage, "", []string{"cleanmon lint: invalid configuration: open " + broken}},
 		{"no flag", nil, exitUsage, "", []string{"--config FILE is required"}},
 		{"stray argument", []string{"--config", "x.yaml", "y"}, exitUsage, "", []string{`unexpected argument "y"`}},
-		{"help", []string{"-h"}, exitOK, "", []string{"usage: cleanmon check-config --config FILE"}},
+		{"help", []string{"-h"}, exitOK, "", []string{"usage: cleanmon lint --config FILE"}},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
 			var out, errb bytes.Buffer
-			code := runCheckConfig(c.args, &out, &errb)
+			code := runLint(c.args, &out, &errb)
 			if code != c.code {
 				t.Fatalf("exit %d, want %d; stderr:\n%s", code, c.code, errb.String())
 			}
@@ -62,5 +62,25 @@ func TestCheckConfigCommand(t *testing.T) {
 				}
 			}
 		})
+	}
+}
+
+// The former name still works, with the same output and exit status, and
+// says once on stderr that it is deprecated.
+func TestCheckConfigIsLint(t *testing.T) {
+	for _, args := range [][]string{
+		{"--config", "../../deploy/cleanmon.example.yaml"},
+		{"--config", "../../testdata/site-broken.yaml"},
+	} {
+		var lo, le, co, ce bytes.Buffer
+		lc := runLint(args, &lo, &le)
+		cc := run(append([]string{"check-config"}, args...), &co, &ce)
+		if lc != cc || lo.String() != co.String() {
+			t.Errorf("%v: lint %d %q, check-config %d %q", args, lc, lo.String(), cc, co.String())
+		}
+		first, rest, _ := strings.Cut(ce.String(), "\n")
+		if first != checkConfigNotice || rest != le.String() {
+			t.Errorf("%v: check-config stderr %q, want the notice then lint's %q", args, ce.String(), le.String())
+		}
 	}
 }

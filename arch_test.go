@@ -67,15 +67,23 @@ func TestDependencyDirection(t *testing.T) {
 // The daemon's own packages, below cmd/cleanmon/internal: api and web are
 // mounted by the daemon (and the serve command) only, and never reach
 // into each other; report and httpx are leaves that know no project
-// package but classify.
+// package but classify. ops, the work of the offline commands, serves
+// package main alone and reaches only what those commands need.
 const internal = "cmd/cleanmon/internal/"
 
 var (
 	onlyImportedBy = map[string][]string{
-		internal + "api": {"cmd/cleanmon", internal + "daemon"},
+		internal + "api": {"cmd/cleanmon", internal + "daemon", internal + "ops"},
 		internal + "web": {"cmd/cleanmon", internal + "daemon"},
+		internal + "ops": {"cmd/cleanmon"},
 	}
 	leaves = map[string]bool{internal + "report": true, internal + "httpx": true}
+	// mayImport lists every project package an internal package may
+	// import, for those that have such a list.
+	mayImport = map[string][]string{
+		internal + "ops": {"classify", "collector", "store", internal + "site",
+			internal + "api", internal + "daemon", internal + "report"},
+	}
 )
 
 // violation says why a file in the directory dir may not import p, or ""
@@ -112,15 +120,22 @@ func internalViolation(dir, p string) string {
 	if leaves[dir] && pkg != "classify" {
 		return dir + " may import no project package but classify"
 	}
-	if users, ok := onlyImportedBy[pkg]; ok {
-		for _, u := range users {
-			if dir == u {
-				return ""
-			}
-		}
-		return pkg + " is mounted only by " + strings.Join(users, " and ")
+	if rules, ok := mayImport[dir]; ok && !contains(rules, pkg) {
+		return dir + " may import only " + strings.Join(rules, ", ") + " of the project"
+	}
+	if users, ok := onlyImportedBy[pkg]; ok && !contains(users, dir) {
+		return pkg + " is imported only by " + strings.Join(users, " and ")
 	}
 	return ""
+}
+
+func contains(list []string, s string) bool {
+	for _, v := range list {
+		if v == s {
+			return true
+		}
+	}
+	return false
 }
 
 func TestTopLevelLayout(t *testing.T) {
@@ -157,6 +172,14 @@ func TestDependencyRuleBites(t *testing.T) {
 		{"cmd/cleanmon/internal/report", "cleanmon/classify", false, false},
 		{"cmd/cleanmon/internal/httpx", "cleanmon/cmd/cleanmon/internal/access", false, true},
 		{"cmd/cleanmon/internal/api", "cleanmon/cmd/cleanmon/internal/httpx", false, false},
+		{"cmd/cleanmon", "cleanmon/cmd/cleanmon/internal/ops", false, false},
+		{"cmd/cleanmon/internal/daemon", "cleanmon/cmd/cleanmon/internal/ops", false, true},
+		{"cmd/cleanmon/internal/web", "cleanmon/cmd/cleanmon/internal/ops", true, true},
+		{"cmd/cleanmon/internal/ops", "cleanmon/cmd/cleanmon/internal/api", false, false},
+		{"cmd/cleanmon/internal/ops", "cleanmon/cmd/cleanmon/internal/report", false, false},
+		{"cmd/cleanmon/internal/ops", "cleanmon/store", false, false},
+		{"cmd/cleanmon/internal/ops", "cleanmon/cmd/cleanmon/internal/web", false, true},
+		{"cmd/cleanmon/internal/ops", "cleanmon/cmd/cleanmon/internal/loadtest", false, true},
 		{"classify", "gonum.org/v1/gonum/stat", false, true},
 		{"classify", "gonum.org/v1/gonum/stat", true, false},
 		{"store", "cleanmon/classify", false, false},

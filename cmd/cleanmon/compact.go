@@ -1,11 +1,10 @@
 package main
 
 import (
-	"fmt"
 	"io"
 	"time"
 
-	"cleanmon/store"
+	"cleanmon/cmd/cleanmon/internal/ops"
 )
 
 // runCompact rewrites a stopped store without its free pages. Exit 0 when
@@ -19,15 +18,5 @@ func runCompact(args []string, stdout, stderr io.Writer) int {
 	if err != nil {
 		return exitUsage
 	}
-	if len(pos) > 0 || *data == "" {
-		return fail(stderr, "compact", fmt.Errorf("give --data DIR and nothing else"))
-	}
-	res, err := store.CompactFile(*data, *wait)
-	if err != nil {
-		fmt.Fprintf(stderr, "cleanmon compact: %s\n", oneLine(err.Error()))
-		return exitFail
-	}
-	fmt.Fprintf(stdout, "ok: %s compacted, %.1f MB → %.1f MB on disk in %s\n", *data,
-		float64(res.Before)/1e6, float64(res.After)/1e6, res.Took.Round(time.Millisecond))
-	return exitOK
+	return exit(stderr, "compact", ops.Compact(*data, *wait, pos, stdout))
 }

@@ -1,18 +1,14 @@
 package main
 
 import (
-	"encoding/json"
 	"errors"
 	"flag"
 	"fmt"
 	"io"
-	"os"
-	"path/filepath"
 	"strings"
-)
 
-// errUsage marks an error already explained to the user.
-var errUsage = errors.New("usage")
+	"cleanmon/cmd/cleanmon/internal/ops"
+)
 
 // newFlags builds a flag set for a sub-command whose -h output lists every
 // flag under a one-line synopsis.
@@ -51,42 +47,19 @@ func fail(stderr io.Writer, cmd string, err error) int {
 	return exitUsage
 }
 
+// exit prints what an offline operation's error says, each line prefixed
+// by the command, and maps it to the exit status.
+func exit(stderr io.Writer, cmd string, err error) int {
+	if err == nil {
+		return exitOK
+	}
+	for _, l := range ops.Lines(err) {
+		fmt.Fprintf(stderr, "cleanmon %s: %s\n", cmd, l)
+	}
+	if errors.Is(err, ops.ErrUsage) {
+		return exitUsage
+	}
+	return exitFail
+}
+
 func oneLine(s string) string { return strings.Join(strings.Fields(s), " ") }
-
-// writeOutput writes the output to the named file atomically (a temporary
-// file in the same directory, synced, then renamed) so a reader never sees
-// half a report, or to stdout when name is empty.
-func writeOutput(name string, stdout io.Writer, write func(io.Writer) error) error {
-	if name == "" || name == "-" {
-		return write(stdout)
-	}
-	dir := filepath.Dir(name)
-	f, err := os.CreateTemp(dir, "."+filepath.Base(name)+".tmp-*")
-	if err != nil {
-		return err
-	}
-	tmp := f.Name()
-	defer os.Remove(tmp)
-	if err := write(f); err != nil {
-		f.Close()
-		return err
-	}
-	if err := f.Sync(); err != nil {
-		f.Close()
-		return err
-	}
-	if err := f.Close(); err != nil {
-		return err
-	}
-	return os.Rename(tmp, name)
-}
-
-// printJSON writes v as indented JSON, the form of every --json output.
-func printJSON(w io.Writer, v any) int {
-	enc := json.NewEncoder(w)
-	enc.SetIndent("", "  ")
-	if err := enc.Encode(v); err != nil {
-		return exitFail
-	}
-	return exitOK
-}

@@ -1,19 +1,13 @@
 package main
 
 import (
-	"context"
-	"errors"
 	"fmt"
 	"io"
-	"net/http"
-	"os"
-	"strings"
-	"time"
+
+	"cleanmon/cmd/cleanmon/internal/ops"
 )
 
-// runRuns dispatches `cleanmon runs import FILE --url URL`: a runs CSV
-// (columns id, zone, start, end, product, lot) posted to a running daemon,
-// all or none.
+// runRuns dispatches `cleanmon runs import FILE --url URL` (ops.RunsImport).
 func runRuns(args []string, stdout, stderr io.Writer) int {
 	if len(args) == 0 || args[0] != "import" {
 		if len(args) > 0 && (args[0] == "-h" || args[0] == "--help") {
@@ -30,45 +24,5 @@ func runRuns(args []string, stdout, stderr io.Writer) int {
 	if err != nil {
 		return exitUsage
 	}
-	switch {
-	case len(pos) != 1:
-		return fail(stderr, "runs import", errors.New("give one CSV file"))
-	case *base == "":
-		return fail(stderr, "runs import", errors.New("--url is required"))
-	}
-	body, err := os.ReadFile(pos[0])
-	if err != nil {
-		return fail(stderr, "runs import", err)
-	}
-	token, err := readToken(*tokenFile)
-	if err != nil {
-		return fail(stderr, "runs import", err)
-	}
-	ctx, cancel := context.WithTimeout(context.Background(), time.Minute)
-	defer cancel()
-	req, err := http.NewRequestWithContext(ctx, http.MethodPost, strings.TrimRight(*base, "/")+"/api/v1/runs", strings.NewReader(string(body)))
-	if err != nil {
-		return fail(stderr, "runs import", err)
-	}
-	req.Header.Set("Content-Type", "text/csv")
-	if token != "" {
-		req.Header.Set("Authorization", "Bearer "+token)
-	}
-	resp, err := http.DefaultClient.Do(req)
-	if err != nil {
-		fmt.Fprintf(stderr, "cleanmon runs import: %s\n", oneLine(err.Error()))
-		return exitFail
-	}
-	defer resp.Body.Close()
-	b, _ := io.ReadAll(io.LimitReader(resp.Body, 1<<20))
-	if resp.StatusCode != http.StatusOK {
-		// The daemon names the line and column; the file's name is ours.
-		fmt.Fprintf(stderr, "cleanmon runs import: %s: %s\n", pos[0], oneLine(strings.Replace(string(b), `"body:`, `"`, 1)))
-		if resp.StatusCode == http.StatusBadRequest || resp.StatusCode == http.StatusConflict {
-			return exitUsage
-		}
-		return exitFail
-	}
-	fmt.Fprintf(stdout, "cleanmon runs import: %s\n", oneLine(string(b)))
-	return exitOK
+	return exit(stderr, "runs import", ops.RunsImport(*base, *tokenFile, pos, stdout))
 }

@@ -9,6 +9,7 @@ import (
 	"strings"
 
 	"cleanmon/cmd/cleanmon/internal/daemon"
+	"cleanmon/cmd/cleanmon/internal/ops"
 )
 
 // runUser is `cleanmon user add|disable|enable|unlock|reset|role NAME`:
@@ -50,18 +51,5 @@ func runUser(args []string, stdout, stderr io.Writer) int {
 		fmt.Fprintf(stderr, "cleanmon user: unexpected argument %q\n", fs.Arg(0))
 		return exitUsage
 	}
-	pw, err := daemon.ManageAccountOffline(context.Background(), c)
-	if err != nil {
-		fmt.Fprintf(stderr, "cleanmon user %s %s: %s\n", c.Op.Op, c.Op.Name, strings.TrimPrefix(err.Error(), "people: "))
-		if errors.Is(err, daemon.ErrUsage) {
-			return exitUsage
-		}
-		return exitFail
-	}
-	if pw != "" {
-		fmt.Fprintf(stdout, "password of %s (shown once): %s\n", c.Op.Name, pw)
-	} else {
-		fmt.Fprintf(stdout, "%s %s: done\n", c.Op.Op, c.Op.Name)
-	}
-	return exitOK
+	return exit(stderr, "user "+c.Op.Op+" "+c.Op.Name, ops.User(context.Background(), c, stdout))
 }

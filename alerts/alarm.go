@@ -5,7 +5,7 @@ import (
 	"time"
 )
 
-// Alarm kinds (DESIGN.md §5), plus trend from the control-chart run rule.
+// Alarm kinds (README, "Alarms"), plus trend from the control-chart run rule.
 const (
 	KindExcursion        = "excursion"
 	KindConsecutive      = "consecutive"
@@ -38,7 +38,7 @@ const (
 
 // Alarm is one alarm condition on one subject (a zone's location and size,
 // a DP sensor, a counter): the engine keeps one alarm per condition, not
-// one per sample. Its JSON form is the alarm object of DESIGN.md §4.
+// one per sample. Its JSON form is the alarm object of the API.
 type Alarm struct {
 	ID       string   `json:"id"`
 	Zone     string   `json:"zone"`

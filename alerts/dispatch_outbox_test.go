@@ -154,7 +154,7 @@ func (c *ntClock) recorded() []time.Duration {
 	return append([]time.Duration(nil), c.waits...)
 }
 
-// ntT0 is a time at the invented demo site (DESIGN.md §6).
+// ntT0 is a time at the invented demo site.
 var ntT0 = time.Date(2026, 3, 2, 10, 0, 0, 0, time.UTC)
 
 func ntSize(v float64) *float64 { return &v }

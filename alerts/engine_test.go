@@ -125,10 +125,10 @@ var engT0 = time.Date(2026, 3, 2, 10, 0, 0, 0, time.UTC)
 
 func ptrf(v float64) *float64 { return &v }
 
-// engineZones is part of the demo site (DESIGN.md §6) plus an invented
+// engineZones is part of the invented demo site plus an invented
 // grade B filling room. Limits, ISO 14644-1:2015 Table 1: ISO 7 352 000
 // /m³ at ≥0.5 µm and 2 930 /m³ at ≥5 µm. Grade B at rest, EU GMP Annex 1
-// (2022) monitoring (DESIGN.md §3): 3 520 /m³ and 29 /m³.
+// (2022) monitoring: 3 520 /m³ and 29 /m³.
 func engineZones() []ZoneConfig {
 	return []ZoneConfig{
 		{ID: "assembly", Name: "Assembly hall", Class: ptrf(7), OperatingState: InOperation, AreaM2: 60,

@@ -80,7 +80,7 @@ func ntLint(t *testing.T, c prometheus.Collector) {
 	}
 }
 
-// ntSite is two zones of the demo site (DESIGN.md §6). Limits, ISO
+// ntSite is two zones of the invented demo site. Limits, ISO
 // 14644-1:2015 Table 1: ISO 7 352 000 /m³ at ≥0.5 µm and 2 930 at ≥5 µm;
 // ISO 8 3 520 000 and 29 300.
 func ntSite(t *testing.T, now func() time.Time) *ZoneTracker {
@@ -476,7 +476,7 @@ func TestExpositionPassesPromtool(t *testing.T) {
 }
 
 func TestMetricNamesAreTheDesignOnes(t *testing.T) {
-	// DESIGN.md §4 MUST names, with their label sets.
+	// the documented metric names, kept stable, with their label sets.
 	want := map[string][]string{
 		"cleanmon_particle_concentration_per_cubic_meter":    {"zone", "location", "size_um"},
 		"cleanmon_class_limit_per_cubic_meter":               {"zone", "size_um"},

@@ -630,7 +630,7 @@ func TestMaintenance(t *testing.T) {
 
 func TestLimitsFollowOperatingState(t *testing.T) {
 	// Grade B monitoring limits at 0.5 µm, EU GMP Annex 1 (2022) as recalled
-	// in DESIGN.md §3: 3 520 /m³ at rest, 352 000 /m³ in operation.
+	// in EU GMP Annex 1 (2022): 3 520 /m³ at rest, 352 000 /m³ in operation.
 	h := newHarness(t, nil)
 	h.feed(reading("pc-fill", h.clk.Now(), 10000, 0))
 	if a := h.one(KindExcursion); a.Threshold != 3520 || a.Level != LevelAction {

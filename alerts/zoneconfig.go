@@ -13,7 +13,7 @@ import (
 	"github.com/prometheus/common/model"
 )
 
-// Operating states of a zone (DESIGN.md §4). Maintenance is only ever set at
+// Operating states of a zone (the documented API). Maintenance is only ever set at
 // run time; a configuration names the state the zone normally runs in.
 const (
 	AtRest      = "at-rest"

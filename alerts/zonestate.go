@@ -12,7 +12,7 @@ import (
 	"cleanmon/classify"
 )
 
-// ZoneStatus is the judgement of a zone (DESIGN.md §4 `state`).
+// ZoneStatus is the judgement of a zone (the API's `state`).
 type ZoneStatus string
 
 // Zone states, from best to worst; StatusUnknown stands apart: the zone

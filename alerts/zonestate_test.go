@@ -172,7 +172,7 @@ func TestZoneStateOverTime(t *testing.T) {
 }
 
 // gradeB is a GMP grade B zone. Monitoring limits, EU GMP Annex 1 (2022)
-// as recalled in DESIGN.md §3: at rest 3 520 /m³ (0.5 µm) and 29 /m³
+// as recalled (from memory): at rest 3 520 /m³ (0.5 µm) and 29 /m³
 // (5 µm); in operation 352 000 and 2 930.
 func gradeB() ZoneConfig {
 	return ZoneConfig{ID: "fill", Name: "Filling room", Grade: "B", OperatingState: AtRest, AreaM2: 20,
@@ -281,7 +281,7 @@ func TestUnclassifiedAndGradeDInOperation(t *testing.T) {
 	corridor := ZoneConfig{ID: "corridor", Name: "Corridor", Sizes: []string{"0.5"}, Locations: []LocationConfig{{ID: "c-1"}},
 		Levels: map[string]Levels{"0.5": {Action: fp(1e6)}}}
 	// Grade D in operation: "not predetermined" (EU GMP Annex 1 (2022),
-	// DESIGN.md §3), so only levels are judged.
+	// from memory), so only levels are judged.
 	gradeD := ZoneConfig{ID: "pack", Grade: "D", OperatingState: InOperation, AreaM2: 30, Sizes: []string{"0.5", "5"}, Locations: []LocationConfig{{ID: "p-1"}}}
 	tr := newTracker(t, clk, []ZoneConfig{corridor, gradeD, {ID: "empty"}}, []Binding{{"pc-c", "corridor", "c-1"}, {"pc-p", "pack", "p-1"}})
 	tr.Observe(obs("pc-c", t0, 5000, 1), obs("pc-p", t0, 5000, 1))

@@ -14,7 +14,7 @@ import (
 var demoZones = map[string]bool{"coating-hood": true, "assembly": true, "metrology": true, "gowning": true, "corridor": true}
 
 // siteYAML is the collector part of a site configuration for the demo site
-// of DESIGN.md §6.
+// of the invented demo site.
 const siteYAML = `
 counters:
   - id: pc-hood
@@ -66,7 +66,7 @@ func TestConfigFromYAML(t *testing.T) {
 	if !ok {
 		t.Fatal("pc-hood missing")
 	}
-	// Defaults: 28.3 L/min (DESIGN.md §3, from memory), cumulative, push,
+	// Defaults: 28.3 L/min (ISO 21501-4 practice, from memory), cumulative, push,
 	// location = id.
 	if hood.FlowLPM != DefaultFlowLPM || hood.Mode != ModeCumulative || hood.Source != SourcePush || hood.Location != "pc-hood" || time.Duration(hood.Interval) != time.Minute {
 		t.Errorf("pc-hood defaults: %+v", hood.Counter)

@@ -84,8 +84,7 @@ var errDiskFull = errors.New("disk full")
 // testNow is the fixed clock of the tests.
 var testNow = time.Date(2026, 3, 2, 10, 1, 0, 0, time.UTC)
 
-// demoCounters and demoSensors follow the invented demo site of DESIGN.md
-// §6 ("Veldmark Photonics, building C").
+// demoCounters and demoSensors follow the invented demo site of the project ("Veldmark Photonics, building C").
 func demoCounters() []Counter {
 	return []Counter{
 		{ID: "pc-hood", Zone: "coating-hood", Sizes: []string{"0.3", "0.5", "5"}, Interval: model.Duration(time.Minute), MaxPerM3: 4e6},
@@ -107,7 +106,7 @@ func demoSensors() []Sensor {
 }
 
 // demoLimits are the ISO 14644-1:2015 Table 1 limits (particles/m³) of each
-// demo counter's zone, as quoted in DESIGN.md §3: coating-hood ISO 5,
+// demo counter's zone, as configured: coating-hood ISO 5,
 // assembly ISO 7, metrology ISO 6, gowning ISO 8. Blank cells are left out.
 func demoLimits() map[string]map[float64]float64 {
 	iso5 := map[float64]float64{0.3: 10200, 0.5: 3520, 1: 832}

@@ -96,7 +96,7 @@ func (p *Pressure) Raw() RawPressure {
 }
 
 // RawReading is a particle-count reading as sent to POST /api/v1/readings
-// (DESIGN.md §4), before validation:
+// (the documented API), before validation:
 //
 //	{"counter":"pc-asm-1","time":"2026-03-02T10:00:00Z","volume_l":28.3,
 //	 "counts":{"0.3":1200,"0.5":310,"5":2},"mode":"cumulative",

@@ -189,7 +189,7 @@ func TestSimulatorPlausible(t *testing.T) {
 			for i, c := range r.Cumulative() {
 				counts[i] += c
 			}
-			// ISO 21501-4 keeps the flow within ±5 % of nominal (DESIGN.md §3).
+			// ISO 21501-4 keeps the flow within ±5 % of nominal.
 			if math.Abs(r.FlowLPM-ci.FlowLPM) > 0.05*ci.FlowLPM {
 				t.Fatalf("%s: flow %g L/min, nominal %g", ci.ID, r.FlowLPM, ci.FlowLPM)
 			}
@@ -203,7 +203,7 @@ func TestSimulatorPlausible(t *testing.T) {
 			t.Errorf("%s: median at %g µm is %.3f of the limit, want 0.05–0.20", ci.ID, ci.SizesUM[ref], m)
 		}
 		// The size distribution falls roughly as the class formula,
-		// (D1/D2)^2.08 (ISO 14644-1, DESIGN.md §3), ±0.15 on the exponent.
+		// (D1/D2)^2.08 (ISO 14644-1), ±0.15 on the exponent.
 		// Ratios of summed counts, so that channels with a fraction of a
 		// particle per sample still count.
 		for i := 1; i < len(ci.SizesUM); i++ {

@@ -20,7 +20,7 @@ import (
 	bolt "go.etcd.io/bbolt"
 )
 
-// notifierNames are the notifier kinds of DESIGN §5.
+// notifierNames are the notifier kinds of the README.
 var notifierNames = []string{"webhook", "alertmanager", "log"}
 
 // alarmRec is a transition of alarm id to state to at time at, with a

@@ -14,7 +14,7 @@ var (
 	// Threshold sizes of ISO 14644-1:2015 Table 1 columns, µm.
 	isoSizes = []float64{0.3, 0.5, 1, 5}
 	// One minute at 28.3 L/min, the usual counter flow (EU GMP Annex 1,
-	// from memory, DESIGN §3).
+	// from memory).
 	oneMinuteL = 28.3
 	t0         = time.Date(2026, 3, 2, 10, 0, 0, 0, time.UTC)
 )

@@ -11,7 +11,7 @@ import (
 func TestPressure(t *testing.T) {
 	s := quick(t)
 	ctx := context.Background()
-	// 12.4 Pa and a reversal of -3 Pa: DESIGN §3 (≥10 Pa between grades is
+	// 12.4 Pa and a reversal of -3 Pa: EU GMP Annex 1 guidance, from memory (≥10 Pa between grades is
 	// guidance, a negative DP is a reversal; from memory).
 	ps := []Pressure{
 		{Sensor: "dp-asm-gown", Time: t0, Pa: 12.4},

@@ -53,7 +53,7 @@ func TestReadingDerived(t *testing.T) {
 		perM3 []float64
 	}{
 		// Arithmetic: 1 m³ = 1000 L; differential counts summed from the
-		// largest channel down (DESIGN §4, samples CSV).
+		// largest channel down (the samples CSV).
 		{"cumulative in 1 m³", Reading{VolumeL: 1000, Sizes: []float64{0.5, 5}, Counts: []uint64{3520, 29}},
 			[]uint64{3520, 29}, []float64{3520, 29}},
 		{"differential in 28.3 L", Reading{VolumeL: 28.3, Differential: true, Sizes: []float64{0.3, 0.5, 5}, Counts: []uint64{700, 290, 10}},

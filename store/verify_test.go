@@ -26,7 +26,7 @@ func verifyFixtureOpt(t *testing.T, opt Options) string {
 	appendOK(t, s, series("pc-asm-1", t0, 300))
 	met := series("pc-met", t0, 50)
 	for i := range met {
-		met[i].VolumeL, met[i].FlowLPM = 2.83, 2.83 // its 2.83 L/min (DESIGN §6)
+		met[i].VolumeL, met[i].FlowLPM = 2.83, 2.83 // its 2.83 L/min (the invented demo site)
 	}
 	appendOK(t, s, met)
 	ctx := t.Context()

@@ -4,6 +4,8 @@ import (
 	"context"
 	"errors"
 	"os"
+	"path/filepath"
+	"syscall"
 	"testing"
 	"time"
 )
@@ -80,11 +82,23 @@ func TestDiskFullENOSPC(t *testing.T) {
 		}
 		t.Skip("CLEANMON_TEST_SMALLFS not set: no small file system to fill")
 	}
+	// The daemon's disk-full test fills the same file system from another
+	// package's test binary: one filler at a time.
+	lock, err := os.OpenFile(filepath.Join(root, ".fill-lock"), os.O_CREATE|os.O_RDWR, 0o600)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := syscall.Flock(int(lock.Fd()), syscall.LOCK_EX); err != nil {
+		t.Fatal(err)
+	}
 	dir, err := os.MkdirTemp(root, "store-enospc-")
 	if err != nil {
 		t.Fatal(err)
 	}
-	t.Cleanup(func() { _ = os.RemoveAll(dir) })
+	t.Cleanup(func() {
+		_ = os.RemoveAll(dir)
+		_ = lock.Close() // releases the lock
+	})
 	s := openTest(t, dir, Options{})
 	acked, failed := fillUntilFull(t, s)
 	usableAfterFull(t, s, acked, failed)

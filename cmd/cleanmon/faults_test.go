@@ -9,6 +9,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"strings"
+	"syscall"
 	"testing"
 	"time"
 
@@ -66,11 +67,24 @@ func smallFS(t *testing.T) string {
 		}
 		t.Skip("CLEANMON_TEST_SMALLFS not set: no small file system to fill (mount -t tmpfs -o size=8m tmpfs DIR)")
 	}
+	// Other packages' tests fill the same file system (go test runs
+	// packages at once): one filler at a time, or each sees the other's
+	// full disk at the wrong moment.
+	lock, err := os.OpenFile(filepath.Join(root, ".fill-lock"), os.O_CREATE|os.O_RDWR, 0o600)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := syscall.Flock(int(lock.Fd()), syscall.LOCK_EX); err != nil {
+		t.Fatal(err)
+	}
 	dir, err := os.MkdirTemp(root, "daemon-")
 	if err != nil {
 		t.Fatal(err)
 	}
-	t.Cleanup(func() { os.RemoveAll(dir) })
+	t.Cleanup(func() {
+		os.RemoveAll(dir)
+		lock.Close() // releases the lock
+	})
 	return dir
 }
 

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"os"
 
 	"cleanmon/cmd/cleanmon/internal/people"
 	"cleanmon/cmd/cleanmon/internal/site"
@@ -41,6 +42,12 @@ func ManageAccountOffline(ctx context.Context, c AccountCommand) (string, error)
 	}
 	if dir == "" {
 		return "", usage("no data directory: give --data DIR (or --config FILE with data_dir)")
+	}
+	// A new site may make its first account before the daemon's first
+	// start, in a directory it created; a mistyped directory must not
+	// become a new, empty store holding the account.
+	if fi, err := os.Stat(dir); err != nil || !fi.IsDir() {
+		return "", usage("no data directory %s: create it first for a new site", dir)
 	}
 	st, err := store.Open(dir, store.Options{LockTimeout: storeLockWait})
 	switch {

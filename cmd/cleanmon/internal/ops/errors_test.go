@@ -20,6 +20,7 @@ func TestErrorLinesAndUsage(t *testing.T) {
 		usage bool
 	}{
 		{"compact without --data", Compact("", 0, nil, io.Discard), []string{"give --data DIR and nothing else"}, true},
+		{"compact a directory without a store", Compact(missing, 0, nil, io.Discard), nil, true},
 		{"keygen extra argument", Keygen("k", []string{"x"}, io.Discard), []string{`unexpected argument "x"`}, true},
 		{"verify two stores", Verify(VerifyOptions{Paths: []string{"a", "b"}}, io.Discard),
 			[]string{"name exactly one store: --data DIR, --file PATH, or a data directory or database file as the argument"}, true},

@@ -63,6 +63,11 @@ func Compact(data string, wait time.Duration, args []string, stdout io.Writer) e
 	if len(args) > 0 || data == "" {
 		return usage(fmt.Errorf("give --data DIR and nothing else"))
 	}
+	// A mistyped directory must not come back as "compacted": there is
+	// nothing there to compact, and nothing is created.
+	if _, err := os.Stat(filepath.Join(data, store.FileName)); err != nil {
+		return usage(fmt.Errorf("no store in %s: %w", data, err))
+	}
 	res, err := store.CompactFile(data, wait)
 	if err != nil {
 		return fault(err)

@@ -200,7 +200,7 @@ func (d *decoder) uvarint(what string) uint64 {
 		return 0
 	}
 	v, n := binary.Uvarint(d.b)
-	if n <= 0 {
+	if n <= 0 || !minimalVarint(d.b[:n]) {
 		d.fail("%s: bad varint", what)
 		return 0
 	}
@@ -208,12 +208,18 @@ func (d *decoder) uvarint(what string) uint64 {
 	return v
 }
 
+// minimalVarint reports whether an encoded varint has no redundant high
+// zero byte. The encoder never writes one; refusing it keeps one value one
+// byte string, so a value rewritten in another spelling cannot pass as
+// the stored one.
+func minimalVarint(b []byte) bool { return len(b) == 1 || b[len(b)-1] != 0 }
+
 func (d *decoder) varint(what string) int64 {
 	if d.err != nil {
 		return 0
 	}
 	v, n := binary.Varint(d.b)
-	if n <= 0 {
+	if n <= 0 || !minimalVarint(d.b[:n]) {
 		d.fail("%s: bad varint", what)
 		return 0
 	}

@@ -414,54 +414,9 @@ func TestAlertmanagerResendLoop(t *testing.T) {
 // Against a real Alertmanager, when one is installed: the alarm shows as
 // an active alert with its labels, and goes once cleared.
 func TestAlertmanagerAgainstRealAlertmanager(t *testing.T) {
-	bin := ""
-	for _, name := range []string{"alertmanager", "prometheus-alertmanager"} {
-		if p, err := exec.LookPath(name); err == nil {
-			bin = p
-			break
-		}
-	}
-	if bin == "" {
-		if os.Getenv("CLEANMON_REQUIRE_TOOLS") != "" {
-			t.Fatal("no alertmanager binary on PATH (Debian: prometheus-alertmanager) and CLEANMON_REQUIRE_TOOLS is set")
-		}
-		t.Skip("no alertmanager binary on PATH (Debian: prometheus-alertmanager)")
-	}
-	dir := t.TempDir()
-	cfg := filepath.Join(dir, "am.yml")
-	if err := os.WriteFile(cfg, []byte("route:\n  receiver: none\nreceivers:\n  - name: none\n"), 0o600); err != nil {
-		t.Fatal(err)
-	}
-	l, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
-	addr := l.Addr().String()
-	l.Close()
+	base := startRealAlertmanager(t)
 	ctx, cancel := context.WithTimeout(context.Background(), 60*time.Second)
 	defer cancel()
-	cmd := exec.CommandContext(ctx, bin, "--config.file="+cfg, "--storage.path="+dir, "--web.listen-address="+addr, "--cluster.listen-address=")
-	var logs strings.Builder
-	cmd.Stdout, cmd.Stderr = &logs, &logs
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	defer func() {
-		cancel()
-		_ = cmd.Wait()
-		if t.Failed() {
-			t.Logf("alertmanager output:\n%s", logs.String())
-		}
-	}()
-	base := "http://" + addr
-	ntWaitFor(t, 30*time.Second, "alertmanager to be ready", func() bool {
-		resp, err := http.Get(base + "/-/ready")
-		if err != nil {
-			return false
-		}
-		resp.Body.Close()
-		return resp.StatusCode == http.StatusOK
-	})
 	type gettable struct {
 		Labels   map[string]string `json:"labels"`
 		StartsAt time.Time         `json:"startsAt"`
@@ -495,7 +450,7 @@ func TestAlertmanagerAgainstRealAlertmanager(t *testing.T) {
 		t.Fatalf("post: %v", err)
 	}
 	got := list()
-	t.Logf("%s lists %+v", filepath.Base(bin), got)
+	t.Logf("alertmanager lists %+v", got)
 	if len(got) != 1 || got[0].Labels["alertname"] != "cleanmon_excursion" || got[0].Labels["zone"] != "assembly" ||
 		got[0].Labels["size_um"] != "0.5" || got[0].Status.State != "active" || !got[0].StartsAt.Equal(active) {
 		t.Fatalf("alertmanager shows %+v", got)
@@ -512,4 +467,60 @@ func TestAlertmanagerAgainstRealAlertmanager(t *testing.T) {
 			t.Errorf("still firing after the clear: %+v", g)
 		}
 	}
+}
+
+// startRealAlertmanager runs the installed Alertmanager on a free
+// loopback port for the test and returns its base URL once it is ready;
+// it skips (or fails under CLEANMON_REQUIRE_TOOLS) when none is installed.
+func startRealAlertmanager(t *testing.T) string {
+	t.Helper()
+	bin := ""
+	for _, name := range []string{"alertmanager", "prometheus-alertmanager"} {
+		if p, err := exec.LookPath(name); err == nil {
+			bin = p
+			break
+		}
+	}
+	if bin == "" {
+		if os.Getenv("CLEANMON_REQUIRE_TOOLS") != "" {
+			t.Fatal("no alertmanager binary on PATH (Debian: prometheus-alertmanager) and CLEANMON_REQUIRE_TOOLS is set")
+		}
+		t.Skip("no alertmanager binary on PATH (Debian: prometheus-alertmanager)")
+	}
+	dir := t.TempDir()
+	cfg := filepath.Join(dir, "am.yml")
+	if err := os.WriteFile(cfg, []byte("route:\n  receiver: none\nreceivers:\n  - name: none\n"), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	l, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	addr := l.Addr().String()
+	l.Close()
+	ctx, cancel := context.WithTimeout(context.Background(), 60*time.Second)
+	t.Cleanup(cancel)
+	cmd := exec.CommandContext(ctx, bin, "--config.file="+cfg, "--storage.path="+dir, "--web.listen-address="+addr, "--cluster.listen-address=")
+	var logs strings.Builder
+	cmd.Stdout, cmd.Stderr = &logs, &logs
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() {
+		cancel()
+		_ = cmd.Wait()
+		if t.Failed() {
+			t.Logf("alertmanager output:\n%s", logs.String())
+		}
+	})
+	base := "http://" + addr
+	ntWaitFor(t, 30*time.Second, "alertmanager to be ready", func() bool {
+		resp, err := http.Get(base + "/-/ready")
+		if err != nil {
+			return false
+		}
+		resp.Body.Close()
+		return resp.StatusCode == http.StatusOK
+	})
+	return base
 }

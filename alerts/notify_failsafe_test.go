@@ -3,12 +3,8 @@ package alerts
 import (
 	"context"
 	"encoding/json"
-	"net"
 	"net/http"
 	"net/http/httptest"
-	"os"
-	"os/exec"
-	"path/filepath"
 	"strings"
 	"sync"
 	"testing"
@@ -233,54 +229,9 @@ func TestHeartbeat(t *testing.T) {
 // while the heartbeat ends within three periods, so a dead-man's switch
 // routed on it fires.
 func TestRealAlertmanagerKeepsAlarmsOfAStoppedDaemon(t *testing.T) {
-	bin := ""
-	for _, name := range []string{"alertmanager", "prometheus-alertmanager"} {
-		if p, err := exec.LookPath(name); err == nil {
-			bin = p
-			break
-		}
-	}
-	if bin == "" {
-		if os.Getenv("CLEANMON_REQUIRE_TOOLS") != "" {
-			t.Fatal("no alertmanager binary on PATH (Debian: prometheus-alertmanager) and CLEANMON_REQUIRE_TOOLS is set")
-		}
-		t.Skip("no alertmanager binary on PATH (Debian: prometheus-alertmanager)")
-	}
-	dir := t.TempDir()
-	cfg := filepath.Join(dir, "am.yml")
-	if err := os.WriteFile(cfg, []byte("route:\n  receiver: none\nreceivers:\n  - name: none\n"), 0o600); err != nil {
-		t.Fatal(err)
-	}
-	l, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
-	addr := l.Addr().String()
-	l.Close()
+	base := startRealAlertmanager(t)
 	ctx, cancel := context.WithTimeout(context.Background(), 60*time.Second)
 	defer cancel()
-	cmd := exec.CommandContext(ctx, bin, "--config.file="+cfg, "--storage.path="+dir, "--web.listen-address="+addr, "--cluster.listen-address=")
-	var logs strings.Builder
-	cmd.Stdout, cmd.Stderr = &logs, &logs
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	defer func() {
-		cancel()
-		_ = cmd.Wait()
-		if t.Failed() {
-			t.Logf("alertmanager output:\n%s", logs.String())
-		}
-	}()
-	base := "http://" + addr
-	ntWaitFor(t, 30*time.Second, "alertmanager to be ready", func() bool {
-		resp, err := http.Get(base + "/-/ready")
-		if err != nil {
-			return false
-		}
-		resp.Body.Close()
-		return resp.StatusCode == http.StatusOK
-	})
 	a, err := NewAlertmanager(AlertmanagerConfig{URLs: []string{base}, Labels: map[string]string{"site": "veldmark-c"}}, nil)
 	if err != nil {
 		t.Fatal(err)

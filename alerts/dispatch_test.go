@@ -269,6 +269,11 @@ func TestDeadReceiverDelaysNoOther(t *testing.T) {
 	ntWaitFor(t, 10*time.Second, "the live notifier to count all three", func() bool {
 		return d.Health()["facilities"].Delivered == 3
 	})
+	// The two notifiers run independently, so the hanging request may reach
+	// its receiver after the live one has finished: wait for it, bounded.
+	ntWaitFor(t, 10*time.Second, "the dead receiver to hold one request", func() bool {
+		return hung.Load() >= 1
+	})
 	if n := hung.Load(); n != 1 {
 		t.Errorf("dead receiver saw %d requests, want the one still hanging", n)
 	}

@@ -671,7 +671,12 @@ func TestModbusPollerConnectionBound(t *testing.T) {
 		defer busy.Add(-1)
 		for m := most.Load(); n > m && !most.CompareAndSwap(m, n); m = most.Load() {
 		}
-		time.Sleep(80 * time.Millisecond) // within the 100 ms timeout
+		// Hold the request until a second one is in flight (bounded), so
+		// the bound is reached however slowly the machine schedules us.
+		for end := time.Now().Add(150 * time.Millisecond); busy.Load() < 2 && time.Now().Before(end); {
+			time.Sleep(2 * time.Millisecond)
+		}
+		time.Sleep(20 * time.Millisecond)
 		return nil
 	}
 	var cs []Counter
@@ -680,6 +685,7 @@ func TestModbusPollerConnectionBound(t *testing.T) {
 	for i := 0; i < 4; i++ {
 		c := mbCounter()
 		c.ID, c.Location = fmt.Sprintf("pc-%d", i), fmt.Sprintf("loc-%d", i)
+		c.Interval, c.Modbus.Poll, c.Modbus.Timeout = model.Duration(2*time.Second), model.Duration(time.Second), model.Duration(time.Second) // a slow machine is not a failed poll
 		s := startSlave(t, &c)
 		s.hook = slowAnswer
 		p := startProxy(t, s.Addr())

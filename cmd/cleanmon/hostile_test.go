@@ -139,6 +139,13 @@ func TestHostileRequests(t *testing.T) {
 	if len(cases) < 60 {
 		t.Fatalf("%d cases; at least 60 are wanted", len(cases))
 	}
+	waitStartSweep(t, func(path string) (int, []byte) {
+		code, b, err := apiDo(context.Background(), http.MethodGet, d.url+path, nil, "")
+		if err != nil {
+			t.Fatal(err)
+		}
+		return code, b
+	})
 	before := auditHead(t, d.url)
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {

@@ -61,6 +61,10 @@ func TestIngestRefusesBadRequests(t *testing.T) {
 		_, _, b := d.do("GET", "/api/v1/audit/head", secretViewer, "", nil)
 		return string(b)
 	}
+	waitStartSweep(t, func(path string) (int, []byte) {
+		code, _, b := d.do("GET", path, secretAdmin, "", nil)
+		return code, b
+	})
 	before := head()
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {

@@ -116,3 +116,23 @@ var trustBase = time.Now().UTC().Add(-10 * time.Hour).Truncate(time.Minute)
 func readingTime(i int) string {
 	return trustBase.Add(time.Duration(i) * time.Minute).Format(time.RFC3339)
 }
+
+// waitStartSweep waits, bounded, for the retention sweep the daemon runs
+// just after it starts to be on the audit chain: a test that compares the
+// chain's head before and after refused requests must begin after it.
+func waitStartSweep(t *testing.T, get func(path string) (int, []byte)) {
+	t.Helper()
+	for end := time.Now().Add(20 * time.Second); ; {
+		code, b := get("/api/v1/audit?action=sweep")
+		if code != http.StatusOK {
+			t.Fatalf("audit trail: %d %s", code, b)
+		}
+		if strings.Contains(string(b), `"action":"sweep"`) {
+			return
+		}
+		if time.Now().After(end) {
+			t.Fatal("the start's retention sweep is not on the audit chain after 20 s")
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+}

@@ -109,6 +109,10 @@ func parseRTU(s string) (ModbusAddress, error) {
 		return a, fmt.Errorf("%q: give the serial device as a path after rtu://, e.g. rtu:///dev/ttyUSB0 (three slashes)", s)
 	case !strings.HasPrefix(a.Port, "/"):
 		return a, fmt.Errorf("%q: the serial device path is missing, e.g. rtu:///dev/ttyUSB0", s)
+	case strings.ContainsFunc(a.Port, func(r rune) bool { return r <= ' ' || r == 0x7f || strings.ContainsRune("?#%", r) }):
+		// No device node is named so, and the address must read back as
+		// it was written (in the configuration, in logs).
+		return a, fmt.Errorf("%q: the serial device path %q holds a space, a control character or one of ? # %%", s, a.Port)
 	}
 	q := u.Query()
 	for k := range q {

@@ -77,6 +77,11 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 			if readings, err = sweepKind(tx.Bucket(bucketReadings), limit, &budget); err != nil {
 				return err
 			}
+			logged, err := sweepLog(tx, s.head, limit, &budget)
+			if err != nil {
+				return err
+			}
+			readings += logged
 			chunked, err := sweepChunks(tx.Bucket(bucketChunks), limit, &budget)
 			if err != nil {
 				return err

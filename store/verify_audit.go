@@ -44,7 +44,7 @@ func (v *verifier) audit(tx *bolt.Tx) {
 	if b == nil {
 		return
 	}
-	a := &auditCheck{verifier: v, tx: tx, chunked: newChunkCache(tx), series: map[seriesID]*seriesCover{}}
+	a := &auditCheck{verifier: v, tx: tx, chunked: newChunkCache(tx, v.hv), series: map[seriesID]*seriesCover{}}
 	v.guarded(string(bucketAudit), func() { a.chain(b) })
 	if !a.blind {
 		v.guarded("audit coverage", a.coverage)
@@ -259,7 +259,7 @@ func (a *auditCheck) coverage() {
 		}
 		switch kind {
 		case coverReadings:
-			forEachReadingKey(a.tx, name, count)
+			forEachReadingKey(a.tx, a.chunked.hv, name, count)
 		case coverPressure:
 			forEachKey(a.tx, bucketPressure, bucketPChunks, name, count)
 		default:
@@ -281,7 +281,7 @@ func (a *auditCheck) coverage() {
 			a.add("%d records in %s older than the audit chain, more than the %d it started with", before-sc.before, seriesName(kind, name), sc.base.count)
 		}
 	}
-	for _, name := range readingCounters(a.tx) {
+	for _, name := range readingCounters(a.tx, a.chunked.hv) {
 		check(coverReadings, name, nil)
 	}
 	for _, name := range pressureSensors(a.tx) {

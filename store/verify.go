@@ -158,6 +158,7 @@ func (v *verifier) run(tx *bolt.Tx) error {
 	})
 	v.chunks(tx)
 	v.pchunks(tx)
+	v.echunks(tx) // verify_echunk.go
 	v.walk(tx, bucketEnvironment, func(name string, k, val []byte) error {
 		_, err := decodeEnv(name, k, val)
 		return err
@@ -201,6 +202,9 @@ func (v *verifier) schema(tx *bolt.Tx) uint64 {
 // never had.
 func (v *verifier) olderLayout(tx *bolt.Tx, name []byte) bool {
 	if bytes.Equal(name, bucketAuditSig) { // files written before signing was known have no signatures
+		return true
+	}
+	if bytes.Equal(name, bucketEChunks) { // files written before environment samples were chunked; Open adds it
 		return true
 	}
 	return v.schema(tx) == 1 && (bytes.Equal(name, bucketChunks) || bytes.Equal(name, bucketEnvironment) || bytes.Equal(name, bucketPChunks) ||

@@ -25,7 +25,7 @@ var (
 	knownBuckets    = [][]byte{
 		bucketMeta, bucketReadings, bucketPressure, bucketRollup1h, bucketOpState,
 		bucketJournal, bucketJournalAt, bucketAlarms, bucketAlarmsAt, bucketOutbox, bucketAudit, bucketRuns, bucketAccounts,
-		bucketAuditSig, bucketChunks, bucketEnvironment, bucketPChunks, bucketHeadLog,
+		bucketAuditSig, bucketChunks, bucketEnvironment, bucketPChunks, bucketEChunks, bucketHeadLog,
 	}
 	metaSchema      = []byte("schema")       // uvarint schemaVersion
 	metaSweptBefore = []byte("swept_before") // 8-byte key: latest Sweep horizon

@@ -43,8 +43,8 @@ const (
 
 // CompactResult reports what a compaction pass moved.
 type CompactResult struct {
-	Counters int // counters and DP sensors whose head records moved
-	Readings int // readings and pressure samples moved into chunks
+	Counters int // counters, DP and environment sensors whose head records moved
+	Readings int // readings, pressure and environment samples moved into chunks
 	Chunks   int // chunks written (rewritten ones included)
 }
 
@@ -70,10 +70,11 @@ func (s *Store) compact(ctx context.Context, minHead int) (CompactResult, error)
 	type item struct {
 		pressure bool
 		name     string
+		env      bool // an environment sensor (echunk.go)
 	}
 	var pending []item
 	err := s.view(func(tx *bolt.Tx, _ *guard) error {
-		for _, kind := range [][]byte{bucketReadings, bucketPressure} {
+		for _, kind := range [][]byte{bucketReadings, bucketPressure, bucketEnvironment} {
 			root := tx.Bucket(kind)
 			err := root.ForEachBucket(func(name []byte) error {
 				c := root.Bucket(name).Cursor()
@@ -82,7 +83,7 @@ func (s *Store) compact(ctx context.Context, minHead int) (CompactResult, error)
 					n++
 				}
 				if n >= minHead && n > 0 {
-					pending = append(pending, item{bytes.Equal(kind, bucketPressure), string(name)})
+					pending = append(pending, item{bytes.Equal(kind, bucketPressure), string(name), bytes.Equal(kind, bucketEnvironment)})
 				}
 				return nil
 			})
@@ -114,6 +115,9 @@ func (s *Store) compact(ctx context.Context, minHead int) (CompactResult, error)
 				move := compactCounter
 				if it.pressure {
 					move = compactSensor
+				}
+				if it.env {
+					move = compactEnvSensor
 				}
 				moved, chunks, err := move(tx, counter)
 				if errors.Is(err, ErrCorrupt) || errors.Is(err, errChunkOverlap) {

@@ -64,10 +64,17 @@
 //
 // Pressure samples take the same path into their own chunks (pchunk.go:
 // values as millipascal deltas when every sample of a chunk is a whole
-// number of them, as XORed float bits otherwise). Environment samples
-// (temperature, humidity, air velocity, any subset; environment.go) are
-// stored one value per sample and are not yet chunked nor covered by the
-// audit chain.
+// number of them, as XORed float bits otherwise). So do environment
+// samples (temperature, humidity, air velocity, any subset;
+// environment.go), into echunks/<sensor>/<time of the last sample>
+// (echunk.go): the set of quantities each sample carries run-length
+// coded, each quantity as deltas of whole thousandths of its unit (m°C,
+// 0.001 %RH, mm/s) over their common divisor, or as XORed float bits
+// when a value of the chunk is no whole thousandth, and a tag per sample.
+// A probe sending 21.3 °C and 45.2 %RH once a minute costs about three
+// bytes a sample at rest, against thirty in the head. Chunked pressure
+// and environment samples turn back into the bytes their head values
+// had, so the audit chain covers them as it covers readings.
 //
 // # Older files
 //
@@ -97,19 +104,20 @@
 // entry's SHA-256 covers its content and the hash of the entry before.
 // The store writes its own entries inside the transaction of the change
 // they record, so neither exists without the other: one per
-// AppendReadings or AppendPressure call that stored anything (listing the
-// stored keys with a SHA-256 over their keys and values), per operating
-// state change, per alarm record (acknowledgements included), per Sweep
-// chunk (its horizon and counts), and after each backup. The daemon adds
-// start, stop and configuration loads with AppendAudit. Verify recomputes
-// every link and names the first broken one, recomputes every covered
-// record's digest, and counts that every stored reading, pressure sample,
-// state change and journal entry is covered once, so a record edited,
-// removed or added behind the store's back shows, not only an edited
-// audit entry. A chain rewritten consistently from the edit onwards is
-// caught only by a copy of an earlier AuditHead kept outside the daemon.
-// Listing the keys costs about two bytes a reading at a steady sample
-// period.
+// AppendReadings, AppendPressure or AppendEnvironment call that stored
+// anything (listing the stored keys with a SHA-256 over their keys and
+// values), per operating state change, per alarm record
+// (acknowledgements included), per Sweep chunk (its horizon and counts),
+// and after each backup. The daemon adds start, stop and configuration
+// loads with AppendAudit. Verify recomputes every link and names the
+// first broken one, recomputes every covered record's digest, and counts
+// that every stored reading, pressure and environment sample (head or
+// chunk), state change and journal entry is covered once, so a record
+// edited, removed or added behind the store's back shows, not only an
+// edited audit entry. A chain rewritten consistently from the edit
+// onwards is caught only by a copy of an earlier AuditHead kept outside
+// the daemon. Listing the keys costs about two bytes a reading at a
+// steady sample period.
 //
 // # Damage
 //

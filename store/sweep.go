@@ -98,6 +98,11 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 			if env, err = sweepKind(tx.Bucket(bucketEnvironment), limit, &budget); err != nil {
 				return err
 			}
+			echunked, err := sweepEChunks(tx.Bucket(bucketEChunks), limit, &budget)
+			if err != nil {
+				return err
+			}
+			env += echunked
 			for _, st := range rollupSteps {
 				lim := limit - int64(st.step) + 1 // Start+Step ≤ before
 				if lim <= 0 {

@@ -161,6 +161,7 @@ func (v *verifier) run(tx *bolt.Tx) error {
 	v.headLog(tx)
 	v.chunks(tx)
 	v.pchunks(tx)
+	v.echunks(tx) // verify_echunk.go
 	v.walk(tx, bucketEnvironment, func(name string, k, val []byte) error {
 		_, err := decodeEnv(name, k, val)
 		return err
@@ -206,7 +207,9 @@ func (v *verifier) olderLayout(tx *bolt.Tx, name []byte) bool {
 	if bytes.Equal(name, bucketAuditSig) { // files written before signing was known have no signatures
 		return true
 	}
-	if bytes.Equal(name, bucketHeadLog) { // files before schema 3 keep their head in readings
+	// Files before schema 3 keep their head one value per reading and
+	// their environment samples unchunked; Open adds both buckets.
+	if bytes.Equal(name, bucketHeadLog) || bytes.Equal(name, bucketEChunks) {
 		return v.schema(tx) < 3
 	}
 	return v.schema(tx) == 1 && (bytes.Equal(name, bucketChunks) || bytes.Equal(name, bucketEnvironment) || bytes.Equal(name, bucketPChunks) ||

@@ -197,6 +197,8 @@ func (a *auditCheck) records(e *AuditEntry, cv *covered) {
 			val = a.chunked.value(name, key)
 		case coverPressure:
 			val = a.chunked.pressure(name, key)
+		case coverEnv:
+			val = a.chunked.env(name, key)
 		case coverJournal:
 			val = root.Get(key)
 		default:
@@ -262,6 +264,8 @@ func (a *auditCheck) coverage() {
 			forEachReadingKey(a.tx, a.chunked.hv, name, count)
 		case coverPressure:
 			forEachKey(a.tx, bucketPressure, bucketPChunks, name, count)
+		case coverEnv:
+			forEachKey(a.tx, bucketEnvironment, bucketEChunks, name, count)
 		default:
 			c := b.Cursor()
 			for k, _ := c.First(); k != nil; k, _ = c.Next() {
@@ -287,13 +291,12 @@ func (a *auditCheck) coverage() {
 	for _, name := range pressureSensors(a.tx) {
 		check(coverPressure, name, nil)
 	}
-	for _, kind := range []byte{coverOpState, coverEnv} {
-		root := a.tx.Bucket(coverBucket(kind))
-		if root == nil {
-			continue
-		}
+	for _, name := range envSensors(a.tx) {
+		check(coverEnv, name, nil)
+	}
+	if root := a.tx.Bucket(bucketOpState); root != nil {
 		_ = root.ForEachBucket(func(name []byte) error {
-			check(kind, string(name), root.Bucket(name))
+			check(coverOpState, string(name), root.Bucket(name))
 			return nil
 		})
 	}

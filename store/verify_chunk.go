@@ -182,6 +182,7 @@ type chunkCache struct {
 	m    map[string]*cachedChunk
 	head map[string]*bolt.Bucket // read transactions do not cache nested buckets
 	p    map[string][]pchunkSample
+	e    map[string][]echunkSample // verify_echunk.go
 }
 
 type cachedChunk struct {

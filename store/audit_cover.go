@@ -356,6 +356,18 @@ func chainStartDetail(tx *bolt.Tx) ([]byte, error) {
 func baselineDetail(tx *bolt.Tx, kinds []byte, journal bool) ([]byte, error) {
 	var out []baseline
 	for _, kind := range kinds {
+		if kind == coverEnv {
+			// Counted in head and chunks: an AuditEnvStart that failed at
+			// one start is written at a later one, after compactions.
+			for _, name := range envSensors(tx) {
+				s := baseline{kind: kind, name: name, last: -1}
+				forEachKey(tx, bucketEnvironment, bucketEChunks, name, func(ns int64) { s.last, s.count = max(s.last, ns), s.count+1 })
+				if s.count > 0 && s.last >= 0 {
+					out = append(out, s)
+				}
+			}
+			continue
+		}
 		root := tx.Bucket(coverBucket(kind))
 		if root == nil {
 			continue

@@ -194,7 +194,7 @@ func rewriteReading(tx *bolt.Tx, es []AuditEntry) []AuditEntry {
 		for j, r := range cv.recs {
 			name := cv.names[r.name]
 			key := seqKey(uint64(r.key))
-			b := tx.Bucket(bucketReadings).Bucket([]byte(name))
+			b := headOf(tx, name)
 			val := b.Get(key)
 			if j == 0 {
 				rd, err := decodeReading(name, key, val)

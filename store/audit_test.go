@@ -287,7 +287,7 @@ func TestVerifyAuditTampering(t *testing.T) {
 			return tx.Bucket(bucketAudit).Delete(seqKey(12))
 		}, `audit chain: first broken link at entry #12: the chain ends at entry #11, but 12 were issued`},
 		{"reading edited, checksum redone", func(tx *bolt.Tx) error {
-			b := tx.Bucket(bucketReadings).Bucket([]byte("pc-asm-1"))
+			b := headOf(tx, "pc-asm-1")
 			k := timeKey(t0.Add(42 * time.Minute))
 			r, err := decodeReading("pc-asm-1", k, b.Get(k))
 			if err != nil {
@@ -297,12 +297,12 @@ func TestVerifyAuditTampering(t *testing.T) {
 			return b.Put(k, encodeReading(k, &r))
 		}, `: the records it covers (300) were changed after they were stored`},
 		{"reading removed", func(tx *bolt.Tx) error {
-			return tx.Bucket(bucketReadings).Bucket([]byte("pc-met")).Delete(timeKey(t0.Add(7 * time.Minute)))
+			return headOf(tx, "pc-met").Delete(timeKey(t0.Add(7 * time.Minute)))
 		}, `reading of counter "pc-met" at 2026-03-02T10:07:00Z is missing`},
 		{"reading added outside the store", func(tx *bolt.Tx) error {
 			r := reading("pc-met", t0.Add(-time.Hour), 50)
 			k := timeKey(r.Time)
-			return tx.Bucket(bucketReadings).Bucket([]byte("pc-met")).Put(k, encodeReading(k, &r))
+			return headOf(tx, "pc-met").Put(k, encodeReading(k, &r))
 		}, `1 of 51 records in the readings of counter "pc-met" are not covered by the audit chain`},
 		{"pressure edited, checksum redone", func(tx *bolt.Tx) error {
 			k := timeKey(t0)
@@ -432,8 +432,14 @@ func TestChainStartOnOlderFile(t *testing.T) {
 	recordOK(t, s, []AlarmRecord{alarmRec("a-1", t0, "active")}, nil)
 	path := s.Path()
 	_ = s.Close()
-	// Make it an older file: no audit bucket at all.
-	rawUpdate(t, path, func(tx *bolt.Tx) error { return tx.DeleteBucket(bucketAudit) })
+	// Make it an older file: no audit bucket at all, and the head one
+	// value per reading.
+	rawUpdate(t, path, func(tx *bolt.Tx) error {
+		if err := logToLegacy(tx); err != nil {
+			return err
+		}
+		return tx.DeleteBucket(bucketAudit)
+	})
 	s = openTest(t, dir, Options{NoSync: true})
 	es := auditAll(t, s)
 	if len(es) != 1 || es[0].Action != AuditChainStart {

@@ -4,13 +4,13 @@ import "time"
 
 // schemaVersion is stored under metaSchema. Bump it when the layout or a
 // value encoding changes in a way older binaries cannot read.
-const schemaVersion = 2
+const schemaVersion = 3
 
 // Top-level buckets, one per kind of record. A new kind is added here, to
 // knownBuckets, and to Verify; initSchema creates it in older files.
 var (
 	bucketMeta      = []byte("meta")               // schema version, sweep horizon
-	bucketReadings  = []byte("readings")           // counter → time → reading
+	bucketReadings  = []byte("readings")           // legacy head: counter → time → reading (files before the head log)
 	bucketPressure  = []byte("pressure")           // sensor → time → pressure
 	bucketRollup1m  = []byte("rollups_1m")         // schema 1 only: dropped by the upgrade
 	bucketRollup1h  = []byte("rollups_1h")         // counter → bucket start → rollup
@@ -25,7 +25,7 @@ var (
 	knownBuckets    = [][]byte{
 		bucketMeta, bucketReadings, bucketPressure, bucketRollup1h, bucketOpState,
 		bucketJournal, bucketJournalAt, bucketAlarms, bucketAlarmsAt, bucketOutbox, bucketAudit, bucketRuns, bucketAccounts,
-		bucketAuditSig, bucketChunks, bucketEnvironment, bucketPChunks,
+		bucketAuditSig, bucketChunks, bucketEnvironment, bucketPChunks, bucketEChunks, bucketHeadLog,
 	}
 	metaSchema      = []byte("schema")       // uvarint schemaVersion
 	metaSweptBefore = []byte("swept_before") // 8-byte key: latest Sweep horizon

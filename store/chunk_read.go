@@ -20,21 +20,18 @@ type readingIter struct {
 	ci     int
 	cdone  bool
 
-	head     *bolt.Cursor
-	hk, hv   []byte
-	hdone    bool
+	head     []headVal // the head's readings in [lo, hi), in time order
+	hi2      int       // next of head
 	err      error
 	template map[*byte]Reading // decoded shape of each run, by its first byte
 }
 
-func newReadingIter(tx *bolt.Tx, counter string, lo, hi int64) *readingIter {
-	it := &readingIter{counter: counter, lo: lo, hi: hi, cdone: true, hdone: true, template: map[*byte]Reading{}}
-	if b := tx.Bucket(bucketReadings).Bucket([]byte(counter)); b != nil {
-		it.head = b.Cursor()
-		it.hk, it.hv = it.head.Seek(nanosKey(lo))
-		it.hdone = false
-		it.headCheck()
-	}
+// newReadingIter walks counter's chunks and the head of hv; a nil hv
+// leaves the head log out (the hourly rollups count only what compaction
+// moved into chunks, and the legacy head).
+func newReadingIter(tx *bolt.Tx, hv *headView, counter string, lo, hi int64) *readingIter {
+	it := &readingIter{counter: counter, lo: lo, hi: hi, cdone: true, template: map[*byte]Reading{}}
+	it.head = hv.values(tx, counter, lo, hi)
 	if root := tx.Bucket(bucketChunks); root != nil {
 		if b := root.Bucket([]byte(counter)); b != nil {
 			it.chunks = b.Cursor()
@@ -44,16 +41,6 @@ func newReadingIter(tx *bolt.Tx, counter string, lo, hi int64) *readingIter {
 		}
 	}
 	return it
-}
-
-func (it *readingIter) headCheck() {
-	if it.hk == nil {
-		it.hdone = true
-		return
-	}
-	if ns, ok := keyNanos(it.hk); !ok || ns >= it.hi {
-		it.hdone = true
-	}
 }
 
 // loadChunk decodes the chunk at k and positions on its first reading
@@ -94,13 +81,13 @@ func (it *readingIter) loadChunk(k, v []byte) {
 func (it *readingIter) next() (cr chunkReading, ok bool) {
 	for it.err == nil {
 		cOK := !it.cdone
-		hOK := !it.hdone
+		hOK := it.hi2 < len(it.head)
 		if !cOK && !hOK {
 			return cr, false
 		}
 		var hns int64 = math.MaxInt64
 		if hOK {
-			hns, _ = keyNanos(it.hk)
+			hns = it.head[it.hi2].ns
 		}
 		if cOK && it.ck[it.ci].ns <= hns {
 			cr = it.ck[it.ci]
@@ -116,12 +103,13 @@ func (it *readingIter) next() (cr chunkReading, ok bool) {
 			}
 			return cr, true
 		}
-		shape, counts, err := splitV1(it.hk, it.hv)
+		hk, hv := nanosKey(hns), it.head[it.hi2].val
+		shape, counts, err := splitV1(hk, hv)
 		if err != nil {
-			_, derr := decodeReading(it.counter, it.hk, it.hv)
+			_, derr := decodeReading(it.counter, hk, hv)
 			it.err = derr
 			if derr == nil {
-				it.err = fmt.Errorf("%w: reading of counter %q at %s: %v", ErrCorrupt, it.counter, keyString(it.hk), err)
+				it.err = fmt.Errorf("%w: reading of counter %q at %s: %v", ErrCorrupt, it.counter, keyString(hk), err)
 			}
 			return cr, false
 		}
@@ -132,9 +120,13 @@ func (it *readingIter) next() (cr chunkReading, ok bool) {
 	return cr, false
 }
 
+// advanceHead steps past the current head reading and any repeat of its
+// time (a damaged file could hold one in two places; it counts once).
 func (it *readingIter) advanceHead() {
-	it.hk, it.hv = it.head.Next()
-	it.headCheck()
+	ns := it.head[it.hi2].ns
+	for it.hi2 < len(it.head) && it.head[it.hi2].ns == ns {
+		it.hi2++
+	}
 }
 
 // shared is reading without copies: Sizes is the run's own slice, shared
@@ -193,7 +185,8 @@ func (it *readingIter) reading(cr *chunkReading) (Reading, error) {
 }
 
 // storedValue returns the schema-1 value of counter's reading at key,
-// from the head or from a chunk; nil when there is none.
+// from the legacy head or from a chunk; nil when there is none. The head
+// log is looked up by its callers (the writer's index, or a headView).
 func storedValue(tx *bolt.Tx, counter string, key []byte) ([]byte, error) {
 	if b := tx.Bucket(bucketReadings).Bucket([]byte(counter)); b != nil {
 		if v := b.Get(key); v != nil {
@@ -246,9 +239,21 @@ func lastChunkNanos(tx *bolt.Tx, counter string) int64 {
 	return -1
 }
 
-// readingCounters lists the counters with readings in the head or in
-// chunks, in byte order.
-func readingCounters(tx *bolt.Tx) []string { return seriesNames(tx, bucketReadings, bucketChunks) }
+// readingCounters lists the counters with readings in the legacy head,
+// in chunks, or in the head records of hv, in byte order.
+func readingCounters(tx *bolt.Tx, hv *headView) []string {
+	names := seriesNames(tx, bucketReadings, bucketChunks)
+	if hv == nil {
+		return names
+	}
+	for _, n := range hv.counters() {
+		if _, found := slices.BinarySearch(names, n); !found {
+			names = append(names, n)
+		}
+	}
+	slices.Sort(names)
+	return names
+}
 
 // pressureSensors lists the DP sensors with samples in the head or in
 // chunks, in byte order.

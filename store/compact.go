@@ -5,6 +5,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"slices"
 	"time"
 
 	bolt "go.etcd.io/bbolt"
@@ -21,10 +22,16 @@ const (
 	// DefaultCompactEvery is how often the daemon's background pass runs
 	// when Options.CompactEvery is zero.
 	DefaultCompactEvery = time.Minute
-	// compactMinHead is how many head readings a counter gathers before a
-	// background pass moves them: fewer would rewrite its last chunk for
-	// little gain. Close moves every reading regardless.
+	// compactMinHead is how many legacy head readings a counter (or DP
+	// sensor) gathers before a background pass moves them: fewer would
+	// rewrite its last chunk for little gain. Close moves every reading
+	// regardless.
 	compactMinHead = 256
+	// compactMinLog is how many readings the head log gathers before a
+	// background pass moves it: at 200 counters, some twenty readings a
+	// counter, so each rewrite of a counter's last chunk adds a fair part
+	// to it. Close and an early pass move every record regardless.
+	compactMinLog = 4 << 10
 	// compactTxReadings bounds the readings one compaction transaction
 	// moves, so that appends wait for it a few tens of milliseconds at most.
 	compactTxReadings = 32 << 10
@@ -36,8 +43,8 @@ const (
 
 // CompactResult reports what a compaction pass moved.
 type CompactResult struct {
-	Counters int // counters and DP sensors whose head records moved
-	Readings int // readings and pressure samples moved into chunks
+	Counters int // counters, DP and environment sensors whose head records moved
+	Readings int // readings, pressure and environment samples moved into chunks
 	Chunks   int // chunks written (rewritten ones included)
 }
 
@@ -63,10 +70,11 @@ func (s *Store) compact(ctx context.Context, minHead int) (CompactResult, error)
 	type item struct {
 		pressure bool
 		name     string
+		env      bool // an environment sensor (echunk.go)
 	}
 	var pending []item
 	err := s.view(func(tx *bolt.Tx, _ *guard) error {
-		for _, kind := range [][]byte{bucketReadings, bucketPressure} {
+		for _, kind := range [][]byte{bucketReadings, bucketPressure, bucketEnvironment} {
 			root := tx.Bucket(kind)
 			err := root.ForEachBucket(func(name []byte) error {
 				c := root.Bucket(name).Cursor()
@@ -75,7 +83,7 @@ func (s *Store) compact(ctx context.Context, minHead int) (CompactResult, error)
 					n++
 				}
 				if n >= minHead && n > 0 {
-					pending = append(pending, item{bytes.Equal(kind, bucketPressure), string(name)})
+					pending = append(pending, item{bytes.Equal(kind, bucketPressure), string(name), bytes.Equal(kind, bucketEnvironment)})
 				}
 				return nil
 			})
@@ -86,6 +94,9 @@ func (s *Store) compact(ctx context.Context, minHead int) (CompactResult, error)
 		return nil
 	})
 	if err != nil {
+		return res, err
+	}
+	if err := s.compactLog(ctx, minHead, &res); err != nil {
 		return res, err
 	}
 	for len(pending) > 0 {
@@ -104,6 +115,9 @@ func (s *Store) compact(ctx context.Context, minHead int) (CompactResult, error)
 				move := compactCounter
 				if it.pressure {
 					move = compactSensor
+				}
+				if it.env {
+					move = compactEnvSensor
 				}
 				moved, chunks, err := move(tx, counter)
 				if errors.Is(err, ErrCorrupt) || errors.Is(err, errChunkOverlap) {
@@ -393,4 +407,171 @@ func sweepChunked(root *bolt.Bucket, limit int64, budget *int, cut func(name str
 		}
 	}
 	return deleted, nil
+}
+
+// compactLog moves the head log into chunks, whole records at a time, up
+// to compactTxReadings a transaction: per counter, the readings of the
+// records taken are merged into its chunks (as compactCounter does), added
+// to the hourly rollups, and the records deleted, all in one transaction.
+// A background pass (minHead above 1) leaves a log of fewer than
+// compactMinLog readings alone. A record that does not decode stays where
+// it is (Verify names it) and the others go on.
+func (s *Store) compactLog(ctx context.Context, minHead int, res *CompactResult) error {
+	for {
+		if err := ctx.Err(); err != nil {
+			return err
+		}
+		var part CompactResult
+		more := false
+		err := s.update(func(tx *bolt.Tx) error {
+			part, more = CompactResult{}, false
+			log := tx.Bucket(bucketHeadLog)
+			if log == nil {
+				return nil
+			}
+			hv := viewHead(tx, s.head)
+			for _, bad := range hv.bad {
+				s.log.Error("store: compaction passes over a damaged head record", "error", bad.Error())
+			}
+			total := hv.size()
+			if total == 0 || (minHead > 1 && total < compactMinLog) {
+				return nil
+			}
+			var take []*headRec
+			n := 0
+			for _, r := range hv.recs {
+				if n >= compactTxReadings {
+					more = true
+					break
+				}
+				take = append(take, r)
+				n += r.n
+			}
+			fresh := map[string][]headVal{}
+			for _, r := range take {
+				for name, vs := range r.by {
+					fresh[name] = append(fresh[name], vs...)
+				}
+			}
+			names := make([]string, 0, len(fresh))
+			for name := range fresh {
+				names = append(names, name)
+			}
+			slices.Sort(names)
+			rollups := newRollupSet(tx, s.log)
+			kept := map[string][]headVal{} // damaged counters' readings: they stay in the head
+			for _, name := range names {
+				moved, chunks, err := s.compactLogCounter(tx, rollups, name, fresh[name])
+				if errors.Is(err, ErrCorrupt) || errors.Is(err, errChunkOverlap) {
+					// Found before anything of this counter changed: its
+					// readings stay in the head (Verify names the damage),
+					// and the other counters go on.
+					s.log.Error("store: compaction passes over a damaged counter", "counter", name, "error", err.Error())
+					kept[name] = fresh[name]
+					continue
+				}
+				if err != nil {
+					return err
+				}
+				part.Counters++
+				part.Readings += moved
+				part.Chunks += chunks
+				if compactHook != nil {
+					if err := compactHook(name); err != nil {
+						return err
+					}
+				}
+			}
+			if err := rollups.flush(); err != nil {
+				return err
+			}
+			for _, r := range take {
+				if err := log.Delete(seqKey(r.seq)); err != nil {
+					return err
+				}
+			}
+			if len(kept) > 0 {
+				// Records are never changed: what stays goes into a new one.
+				seq, err := log.NextSequence()
+				if err != nil {
+					return err
+				}
+				key := seqKey(seq)
+				if err := log.Put(key, encodeHeadRec(key, kept)); err != nil {
+					return err
+				}
+				more = false // the kept record would be taken again at once
+			}
+			return nil
+		})
+		if err != nil {
+			return err
+		}
+		res.Counters += part.Counters
+		res.Readings += part.Readings
+		res.Chunks += part.Chunks
+		if !more {
+			return nil
+		}
+	}
+}
+
+// compactLogCounter merges vs, counter's readings from head records, into
+// its chunks and its hourly rollups.
+func (s *Store) compactLogCounter(tx *bolt.Tx, rollups *rollupSet, counter string, vs []headVal) (moved, chunks int, err error) {
+	sortHeadVals(vs)
+	fresh := make([]chunkReading, 0, len(vs))
+	preps := make([]preparedReading, 0, len(vs))
+	for i, v := range vs {
+		if i > 0 && v.ns == vs[i-1].ns {
+			// Two records hold one reading: only a damaged file gets here
+			// (appends check the head); the first counts, as scans do.
+			continue
+		}
+		key := nanosKey(v.ns)
+		r, err := decodeReading(counter, key, v.val)
+		if err != nil {
+			return 0, 0, err
+		}
+		shape, counts, err := splitV1(key, v.val)
+		if err != nil {
+			return 0, 0, fmt.Errorf("%w: reading of counter %q at %s: %v", ErrCorrupt, counter, keyString(key), err)
+		}
+		fresh = append(fresh, chunkReading{ns: v.ns, shape: slices.Clone(shape), counts: counts, tag: tagOf(v.val), hasTag: true})
+		preps = append(preps, preparedReading{counter: counter, ns: v.ns, sizes: r.Sizes, perM3: r.PerM3()})
+	}
+	cb, err := tx.Bucket(bucketChunks).CreateBucketIfNotExists([]byte(counter))
+	if err != nil {
+		return 0, 0, fmt.Errorf("store: chunks of %q: %w", counter, err)
+	}
+	cb.FillPercent = fillPercent
+	old, oldKeys, err := chunksFrom(cb, counter, fresh[0].ns)
+	if err != nil {
+		return 0, 0, err
+	}
+	merged, err := mergeChunkReadings(counter, old, fresh)
+	if err != nil {
+		return 0, 0, err
+	}
+	for _, k := range oldKeys {
+		if err := cb.Delete(k); err != nil {
+			return 0, 0, err
+		}
+	}
+	for i := 0; i < len(merged); i += maxChunkReadings {
+		part := merged[i:min(i+maxChunkReadings, len(merged))]
+		key := nanosKey(part[len(part)-1].ns)
+		if err := cb.Put(key, encodeChunk(key, part)); err != nil {
+			return 0, 0, fmt.Errorf("store: put chunk of %q: %w", counter, err)
+		}
+		chunks++
+	}
+	// The chunks now hold the readings: a damaged rollup rebuilt from
+	// them already counts them.
+	for i := range preps {
+		if err := rollups.add(&preps[i]); err != nil {
+			return 0, 0, err
+		}
+	}
+	return len(fresh), chunks, nil
 }

@@ -51,6 +51,12 @@ func checkEnv(e *EnvSample) (field, reason string) {
 	if why := checkTime(e.Time); why != "" {
 		return "Time", why
 	}
+	return checkEnvValues(e)
+}
+
+// checkEnvValues checks what a sample carries, not where it belongs: the
+// part a chunk (echunk.go) checks for each sample it holds.
+func checkEnvValues(e *EnvSample) (field, reason string) {
 	if e.Has == 0 {
 		return "Has", "no quantity: a sample carries temperature, humidity or velocity"
 	}
@@ -147,12 +153,26 @@ func (s *Store) AppendEnvironment(ctx context.Context, es []EnvSample) (accepted
 		acc, dup = 0, 0
 		series := newSeriesBuckets(tx, bucketEnvironment)
 		cov := newCoverage(coverEnv)
+		chunked := map[string]int64{} // newest chunked time per sensor (echunk.go)
 		for i := range prep {
 			b, err := series.get(prep[i].sensor)
 			if err != nil {
 				return err
 			}
-			if b.Get(prep[i].key) != nil {
+			old := b.Get(prep[i].key)
+			if old == nil {
+				last, ok := chunked[prep[i].sensor]
+				if !ok {
+					last = lastEChunkNanos(tx, prep[i].sensor)
+					chunked[prep[i].sensor] = last
+				}
+				if ns, _ := keyNanos(prep[i].key); ns <= last {
+					if old, err = envValue(tx, prep[i].sensor, prep[i].key); err != nil {
+						return err
+					}
+				}
+			}
+			if old != nil {
 				dup++
 				continue
 			}
@@ -171,14 +191,73 @@ func (s *Store) AppendEnvironment(ctx context.Context, es []EnvSample) (accepted
 }
 
 // ScanEnvironment calls fn with each sample of sensor in [from, to),
-// oldest first, with the same rules as ScanReadings.
+// oldest first, with the same rules as ScanReadings (head and chunks
+// merged).
 func (s *Store) ScanEnvironment(sensor string, from, to time.Time, fn func(EnvSample) error) error {
-	return scanSeries(s, bucketEnvironment, sensor, from, to, decodeEnv, fn)
+	if err := s.enter(); err != nil {
+		return err
+	}
+	defer s.exit()
+	if reason := checkName(sensor); reason != "" {
+		return fmt.Errorf("%w: name %q: %s", ErrInvalid, sensor, reason)
+	}
+	lo, hi, ok, err := keyRange(from, to)
+	if err != nil || !ok {
+		return err
+	}
+	loN, _ := keyNanos(lo)
+	hiN, _ := keyNanos(hi)
+	return s.view(func(tx *bolt.Tx, g *guard) error {
+		it := newEnvIter(tx, sensor, loN, hiN)
+		for {
+			e, ok := it.next()
+			if !ok {
+				return it.err
+			}
+			if err := g.call(func() error { return fn(e) }); err != nil {
+				return err
+			}
+		}
+	})
 }
 
-// LatestEnvironment returns the newest sample of sensor; false if none.
+// LatestEnvironment returns the newest sample of sensor, head or chunk;
+// false if none.
 func (s *Store) LatestEnvironment(sensor string) (EnvSample, bool, error) {
-	return latestSeries(s, bucketEnvironment, sensor, decodeEnv)
+	if err := s.enter(); err != nil {
+		return EnvSample{}, false, err
+	}
+	defer s.exit()
+	if reason := checkName(sensor); reason != "" {
+		return EnvSample{}, false, fmt.Errorf("%w: name %q: %s", ErrInvalid, sensor, reason)
+	}
+	var out EnvSample
+	found := false
+	err := s.view(func(tx *bolt.Tx, _ *guard) error {
+		var headNs int64 = -1
+		if b := tx.Bucket(bucketEnvironment).Bucket([]byte(sensor)); b != nil {
+			if k, v := b.Cursor().Last(); k != nil {
+				e, err := decodeEnv(sensor, k, v)
+				if err != nil {
+					return err
+				}
+				out, found, headNs = e, true, e.Time.UnixNano()
+			}
+		}
+		last := lastEChunkNanos(tx, sensor)
+		if last <= headNs {
+			return nil
+		}
+		it := newEnvIter(tx, sensor, last, last+1)
+		if e, ok := it.next(); ok {
+			out, found = e, true
+		}
+		return it.err
+	})
+	if err != nil {
+		return EnvSample{}, false, err
+	}
+	return out, found, nil
 }
 
 // EnvStat summarises one quantity over a rollup bucket.

@@ -292,8 +292,8 @@ func TestCheckFullFindsChangedReading(t *testing.T) {
 		t.Fatal(err)
 	}
 	err = db.Update(func(tx *bolt.Tx) error {
-		b := tx.Bucket(bucketReadings).Bucket([]byte("pc-asm-1"))
-		k, v := b.Cursor().First()
+		b := headOf(tx, "pc-asm-1")
+		k, v := b.First()
 		rd, err := decodeReading("pc-asm-1", k, v)
 		if err != nil {
 			return err

@@ -136,9 +136,9 @@ func prepareReadings(rs []Reading) ([]preparedReading, error) {
 	return out, nil
 }
 
-// AppendReadings stores rs in one durable transaction and updates the
-// minute and hour rollups in it, with an AuditReadings entry covering
-// the readings it stored. A reading whose counter and time are
+// AppendReadings stores rs in one durable transaction, as one record of
+// the head log, with an AuditReadings entry covering the readings it
+// stored (compaction later moves them into chunks and hourly rollups). A reading whose counter and time are
 // already stored, or repeated within rs, is counted in duplicates and not
 // stored again; its content is not compared. Any invalid reading fails
 // the call with a *RecordError and nothing is stored.
@@ -199,17 +199,20 @@ func (s *Store) appendReadings(ctx context.Context, rs []Reading, mark bool) (ac
 }
 
 func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int, stored []Outcome) error {
-	series := newSeriesBuckets(tx, bucketReadings)
-	rollups := newRollupSet(tx, s.log)
+	h := s.head
+	h.begin(tx)
+	legacy := tx.Bucket(bucketReadings)
 	cov := newCoverage(coverReadings)
 	chunked := map[string]int64{} // newest chunked time per counter
+	batch := map[string][]headVal{}
 	for i := range prep {
 		p := &prep[i]
-		b, err := series.get(p.counter)
-		if err != nil {
-			return err
+		old := h.lookup(p.counter, p.ns)
+		if old == nil {
+			if b := legacy.Bucket([]byte(p.counter)); b != nil {
+				old = b.Get(p.key)
+			}
 		}
-		old := b.Get(p.key)
 		if old == nil {
 			last, ok := chunked[p.counter]
 			if !ok {
@@ -217,6 +220,7 @@ func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int, 
 				chunked[p.counter] = last
 			}
 			if p.ns <= last {
+				var err error
 				if old, err = storedValue(tx, p.counter, p.key); err != nil {
 					return err
 				}
@@ -233,20 +237,24 @@ func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int, 
 			}
 			continue
 		}
-		if err := b.Put(p.key, p.val); err != nil {
-			return fmt.Errorf("store: put reading of %q: %w", p.counter, err)
-		}
+		h.put(p.counter, p.ns, p.val)
+		batch[p.counter] = append(batch[p.counter], headVal{ns: p.ns, val: p.val})
 		*acc++
 		if stored != nil {
 			stored[i] = Stored
 		}
 		cov.add(p.counter, p.key, p.val)
-		if err := rollups.add(b, p); err != nil {
-			return err
-		}
 	}
-	if err := rollups.flush(); err != nil {
-		return err
+	if len(batch) > 0 {
+		log := tx.Bucket(bucketHeadLog)
+		seq, err := log.NextSequence()
+		if err != nil {
+			return fmt.Errorf("store: head record: %w", err)
+		}
+		key := seqKey(seq)
+		if err := log.Put(key, encodeHeadRec(key, batch)); err != nil {
+			return fmt.Errorf("store: put head record: %w", err)
+		}
 	}
 	return auditBatch(tx, cov, AuditReadings, "readings")
 }
@@ -301,7 +309,7 @@ func (s *Store) scanReadings(counter string, from, to time.Time, fn func(*readin
 	loN, _ := keyNanos(lo)
 	hiN, _ := keyNanos(hi)
 	return s.view(func(tx *bolt.Tx, g *guard) error {
-		it := newReadingIter(tx, counter, loN, hiN)
+		it := newReadingIter(tx, viewHead(tx, s.head), counter, loN, hiN)
 		for {
 			cr, ok := it.next()
 			if !ok {
@@ -335,6 +343,18 @@ func (s *Store) LatestReading(counter string) (Reading, bool, error) {
 				}
 				out, found, headNs = r, true, r.Time.UnixNano()
 			}
+		}
+		for _, rec := range viewHead(tx, s.head).recs {
+			vs := rec.by[counter]
+			if len(vs) == 0 || vs[len(vs)-1].ns <= headNs {
+				continue
+			}
+			last := vs[len(vs)-1]
+			r, err := decodeReading(counter, nanosKey(last.ns), last.val)
+			if err != nil {
+				return err
+			}
+			out, found, headNs = r, true, last.ns
 		}
 		last := lastChunkNanos(tx, counter)
 		if last <= headNs {

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"fmt"
 	"log/slog"
+	"math"
 	"time"
 
 	bolt "go.etcd.io/bbolt"
@@ -129,9 +130,10 @@ type rollupKey struct {
 }
 
 type rollupEntry struct {
-	b   *bolt.Bucket
-	key []byte
-	acc *rollupAcc
+	b       *bolt.Bucket
+	key     []byte
+	acc     *rollupAcc
+	rebuilt bool
 }
 
 func newRollupSet(tx *bolt.Tx, log *slog.Logger) *rollupSet {
@@ -142,13 +144,15 @@ func newRollupSet(tx *bolt.Tx, log *slog.Logger) *rollupSet {
 	return rs
 }
 
-// add counts p, already put in readings, into its minute and hour buckets.
-func (rs *rollupSet) add(readings *bolt.Bucket, p *preparedReading) error {
+// add counts p, already in its chunk, into its hourly bucket.
+func (rs *rollupSet) add(p *preparedReading) error {
 	for si, st := range rollupSteps {
 		start := p.ns - p.ns%int64(st.step)
 		k := rollupKey{p.counter, si, start}
 		if e := rs.m[k]; e != nil {
-			e.acc.add(p.sizes, p.perM3)
+			if !e.rebuilt {
+				e.acc.add(p.sizes, p.perM3)
+			}
 			continue
 		}
 		b, err := rs.buckets[si].get(p.counter)
@@ -169,10 +173,11 @@ func (rs *rollupSet) add(readings *bolt.Bucket, p *preparedReading) error {
 			e.acc.add(p.sizes, p.perM3)
 			continue
 		}
-		// A damaged rollup must not stop ingestion: rebuild it from the
-		// raw readings, which already include p.
+		// A damaged rollup must not stop compaction: rebuild it from the
+		// chunks, which already include p and the rest of this pass.
 		rs.log.Warn("store: rebuilding damaged rollup from raw readings", "counter", p.counter, "step", st.step, "start", time.Unix(0, start).UTC(), "error", err)
 		e.acc = rebuildRollup(rs.log, rs.tx, p.counter, start, st.step)
+		e.rebuilt = true // from chunks that already hold every reading this pass adds
 	}
 	return nil
 }
@@ -190,7 +195,7 @@ func (rs *rollupSet) flush() error {
 // Readings that do not decode are left out (Verify reports them).
 func rebuildRollup(log *slog.Logger, tx *bolt.Tx, counter string, start int64, step time.Duration) *rollupAcc {
 	acc := &rollupAcc{start: start}
-	it := newReadingIter(tx, counter, start, start+int64(step))
+	it := newReadingIter(tx, nil, counter, start, start+int64(step)) // chunks (and legacy head): what rollups count
 	for {
 		cr, ok := it.next()
 		if !ok {
@@ -241,35 +246,28 @@ func (s *Store) ScanRollups(counter string, step time.Duration, from, to time.Ti
 	hiN, _ := keyNanos(hi)
 	return s.view(func(tx *bolt.Tx, g *guard) error {
 		emit := func(r Rollup) error { return g.call(func() error { return fn(r) }) }
+		hv := viewHead(tx, s.head)
 		if step < time.Hour {
-			return rawRollups(tx, counter, step, loN, hiN, emit)
+			return rawRollups(tx, hv, counter, step, loN, hiN, emit)
 		}
 		h := int64(time.Hour)
 		first := ceilTo(loN, h)
 		last := hiN - hiN%h
 		if first >= last {
-			return rawRollups(tx, counter, step, loN, hiN, emit)
+			return rawRollups(tx, hv, counter, step, loN, hiN, emit)
 		}
 		// The partial hours at either edge come from the readings; the
-		// whole hours between from the kept rollups. A bucket that spans
-		// an edge gathers both before it is sent; hours go straight out.
-		if step == time.Hour {
-			if err := rawRollups(tx, counter, step, loN, first, emit); err != nil {
-				return err
-			}
-			if err := keptRollups(tx, counter, first, last, emit); err != nil {
-				return err
-			}
-			return rawRollups(tx, counter, step, last, hiN, emit)
-		}
+		// whole hours between from the kept rollups plus the head log's
+		// readings (not rolled up before compaction). A bucket that spans
+		// an edge gathers both before it is sent.
 		agg := &rollupRows{step: step, lo: loN, hi: hiN, emit: emit}
-		if err := rawRollups(tx, counter, time.Hour, loN, first, agg.add); err != nil {
+		if err := rawRollups(tx, hv, counter, time.Hour, loN, first, agg.add); err != nil {
 			return err
 		}
-		if err := keptRollups(tx, counter, first, last, agg.add); err != nil {
+		if err := keptRollups(tx, hv, counter, first, last, agg.add); err != nil {
 			return err
 		}
-		if err := rawRollups(tx, counter, time.Hour, last, hiN, agg.add); err != nil {
+		if err := rawRollups(tx, hv, counter, time.Hour, last, hiN, agg.add); err != nil {
 			return err
 		}
 		return agg.flush()
@@ -295,9 +293,9 @@ func ceilTo(ns, step int64) int64 {
 }
 
 // rawRollups computes rollups at step from the readings in [lo, hi).
-func rawRollups(tx *bolt.Tx, counter string, step time.Duration, lo, hi int64, emit func(Rollup) error) error {
+func rawRollups(tx *bolt.Tx, hv *headView, counter string, step time.Duration, lo, hi int64, emit func(Rollup) error) error {
 	agg := &rollupRows{step: step, lo: lo, hi: hi, emit: emit}
-	it := newReadingIter(tx, counter, lo, hi)
+	it := newReadingIter(tx, hv, counter, lo, hi)
 	for {
 		cr, ok := it.next()
 		if !ok {
@@ -318,24 +316,65 @@ func rawRollups(tx *bolt.Tx, counter string, step time.Duration, lo, hi int64, e
 	}
 }
 
-// keptRollups sends the kept hourly rollups with Start in [lo, hi).
-func keptRollups(tx *bolt.Tx, counter string, lo, hi int64, emit func(Rollup) error) error {
-	b := tx.Bucket(bucketRollup1h).Bucket([]byte(counter))
-	if b == nil {
-		return nil
-	}
-	end := nanosKey(hi)
-	c := b.Cursor()
-	for k, v := c.Seek(nanosKey(lo)); k != nil && bytes.Compare(k, end) < 0; k, v = c.Next() {
-		acc, err := decodeRollup(counter, time.Hour, k, v)
+// keptRollups sends the hourly rollups with Start in [lo, hi): the kept
+// ones, each followed by the hour's rollup of head-log readings when
+// there are any (the caller's rollupRows adds the two up).
+func keptRollups(tx *bolt.Tx, hv *headView, counter string, lo, hi int64, emit func(Rollup) error) error {
+	var fresh []Rollup // the head log's hours, in order
+	if heads := hv.logValues(counter, lo, hi); len(heads) > 0 {
+		err := rollupHead(counter, heads, func(r Rollup) error {
+			fresh = append(fresh, r)
+			return nil
+		})
 		if err != nil {
 			return err
 		}
-		if err := emit(acc.rollup(time.Hour)); err != nil {
-			return err
+	}
+	sendFresh := func(before int64) error {
+		for len(fresh) > 0 && fresh[0].Start.UnixNano() < before {
+			if err := emit(fresh[0]); err != nil {
+				return err
+			}
+			fresh = fresh[1:]
+		}
+		return nil
+	}
+	if b := tx.Bucket(bucketRollup1h).Bucket([]byte(counter)); b != nil {
+		end := nanosKey(hi)
+		c := b.Cursor()
+		for k, v := c.Seek(nanosKey(lo)); k != nil && bytes.Compare(k, end) < 0; k, v = c.Next() {
+			acc, err := decodeRollup(counter, time.Hour, k, v)
+			if err != nil {
+				return err
+			}
+			if err := sendFresh(acc.start); err != nil {
+				return err
+			}
+			if err := emit(acc.rollup(time.Hour)); err != nil {
+				return err
+			}
+			if err := sendFresh(acc.start + int64(time.Hour)); err != nil {
+				return err
+			}
 		}
 	}
-	return nil
+	return sendFresh(hi)
+}
+
+// rollupHead sends the hourly rollups of head readings in time order.
+func rollupHead(counter string, heads []headVal, emit func(Rollup) error) error {
+	agg := &rollupRows{step: time.Hour, lo: math.MinInt64, hi: math.MaxInt64, emit: emit}
+	for _, v := range heads {
+		r, err := decodeReading(counter, nanosKey(v.ns), v.val)
+		if err != nil {
+			return err
+		}
+		if err := agg.turn(v.ns - v.ns%int64(time.Hour)); err != nil {
+			return err
+		}
+		agg.cur.add(r.Sizes, r.PerM3())
+	}
+	return agg.flush()
 }
 
 // rollupRows gathers rollups of a finer step (or single readings) into

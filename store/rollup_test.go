@@ -135,6 +135,7 @@ func TestRollupRange(t *testing.T) {
 func TestDamagedRollupIsRebuilt(t *testing.T) {
 	s := quick(t)
 	appendOK(t, s, series("pc-asm-1", t0, 30))
+	compactOK(t, s) // rollups are kept for what compaction moved into chunks
 	// Damage the hour rollup by hand.
 	err := s.db.Update(func(tx *bolt.Tx) error {
 		return tx.Bucket(bucketRollup1h).Bucket([]byte("pc-asm-1")).Put(nanosKey(t0.UnixNano()), []byte{codecV1, 0xde, 0xad, 0xbe, 0xef})
@@ -144,8 +145,10 @@ func TestDamagedRollupIsRebuilt(t *testing.T) {
 	}
 	// Reading it reports the damage, naming the bucket.
 	wantErr(t, s.ScanRollups("pc-asm-1", time.Hour, time.Time{}, time.Time{}, func(Rollup) error { return nil }), ErrCorrupt)
-	// The next append in that hour still succeeds and repairs the bucket.
+	// The next append in that hour still succeeds, and its compaction
+	// repairs the bucket.
 	appendOK(t, s, series("pc-asm-1", t0.Add(30*time.Minute), 5))
+	compactOK(t, s)
 	compareRollups(t, rollupsAll(t, s, "pc-asm-1", time.Hour), recompute(t, s, "pc-asm-1", time.Hour))
 	if acc, dup, err := s.AppendReadings(context.Background(), nil); acc != 0 || dup != 0 || err != nil {
 		t.Fatalf("empty append: %d %d %v", acc, dup, err)

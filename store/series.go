@@ -110,40 +110,6 @@ func scanSeries[T any](s *Store, kind []byte, name string, from, to time.Time,
 	})
 }
 
-// latestSeries decodes the newest value of kind/name.
-func latestSeries[T any](s *Store, kind []byte, name string, decode func(name string, k, v []byte) (T, error)) (T, bool, error) {
-	var zero T
-	if err := s.enter(); err != nil {
-		return zero, false, err
-	}
-	defer s.exit()
-	if reason := checkName(name); reason != "" {
-		return zero, false, fmt.Errorf("%w: name %q: %s", ErrInvalid, name, reason)
-	}
-	var out T
-	found := false
-	err := s.view(func(tx *bolt.Tx, _ *guard) error {
-		b := tx.Bucket(kind).Bucket([]byte(name))
-		if b == nil {
-			return nil
-		}
-		k, v := b.Cursor().Last()
-		if k == nil {
-			return nil
-		}
-		rec, err := decode(name, k, v)
-		if err != nil {
-			return err
-		}
-		out, found = rec, true
-		return nil
-	})
-	if err != nil {
-		return zero, false, err
-	}
-	return out, found, nil
-}
-
 // seriesBuckets hands out the nested bucket of each name inside one
 // transaction, created on first use.
 type seriesBuckets struct {

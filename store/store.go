@@ -89,6 +89,7 @@ type Store struct {
 	commits       atomic.Uint64 // write transactions committed for grouped calls
 	lastBatchTx   atomic.Pointer[bolt.Tx]
 	beforeCommit  func() // test hook: runs before a group is collected; set before the first write
+	head          *headState
 }
 
 // Open opens, or creates, the store in dir (created 0700 if missing) and
@@ -137,6 +138,7 @@ func Open(dir string, opt Options) (*Store, error) {
 		log:           log,
 		reqs:          make(chan *request, 1024),
 		committerDone: make(chan struct{}),
+		head:          newHeadState(),
 	}
 	if err := s.initSchema(); err != nil {
 		_ = db.Close()
@@ -453,6 +455,13 @@ func probeLatest(tx *bolt.Tx) error {
 		})
 		if err != nil {
 			return err
+		}
+	}
+	if l := tx.Bucket(bucketHeadLog); l != nil {
+		if k, v := l.Cursor().Last(); k != nil {
+			if _, err := decodeHeadRec(k, v, false); err != nil {
+				return err
+			}
 		}
 	}
 	if j := tx.Bucket(bucketJournal); j != nil {

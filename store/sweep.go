@@ -77,6 +77,11 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 			if readings, err = sweepKind(tx.Bucket(bucketReadings), limit, &budget); err != nil {
 				return err
 			}
+			logged, err := sweepLog(tx, s.head, limit, &budget)
+			if err != nil {
+				return err
+			}
+			readings += logged
 			chunked, err := sweepChunks(tx.Bucket(bucketChunks), limit, &budget)
 			if err != nil {
 				return err
@@ -93,6 +98,11 @@ func (s *Store) Sweep(ctx context.Context, before time.Time) (SweepResult, error
 			if env, err = sweepKind(tx.Bucket(bucketEnvironment), limit, &budget); err != nil {
 				return err
 			}
+			echunked, err := sweepEChunks(tx.Bucket(bucketEChunks), limit, &budget)
+			if err != nil {
+				return err
+			}
+			env += echunked
 			for _, st := range rollupSteps {
 				lim := limit - int64(st.step) + 1 // Start+Step ≤ before
 				if lim <= 0 {

@@ -14,6 +14,7 @@ func TestSweep(t *testing.T) {
 	for _, c := range []string{"pc-asm-1", "pc-asm-2"} {
 		appendOK(t, s, series(c, t0, days*24*60))
 	}
+	compactOK(t, s) // into chunks and hourly rollups, which the sweep cuts
 	var ps []Pressure
 	for i := 0; i < days*24*120; i++ {
 		ps = append(ps, Pressure{Sensor: "dp-asm-gown", Time: t0.Add(time.Duration(i) * 30 * time.Second), Pa: 11})

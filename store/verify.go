@@ -87,6 +87,7 @@ type verifier struct {
 	problems    []string
 	dropped     int
 	sweptBefore int64
+	hv          *headView // the head log's records, decoded once
 }
 
 func (v *verifier) add(format string, args ...any) {
@@ -156,8 +157,11 @@ func (v *verifier) run(tx *bolt.Tx) error {
 		_, err := decodeReading(name, k, val)
 		return err
 	})
+	v.hv = &headView{tx: tx}
+	v.headLog(tx)
 	v.chunks(tx)
 	v.pchunks(tx)
+	v.echunks(tx) // verify_echunk.go
 	v.walk(tx, bucketEnvironment, func(name string, k, val []byte) error {
 		_, err := decodeEnv(name, k, val)
 		return err
@@ -202,6 +206,11 @@ func (v *verifier) schema(tx *bolt.Tx) uint64 {
 func (v *verifier) olderLayout(tx *bolt.Tx, name []byte) bool {
 	if bytes.Equal(name, bucketAuditSig) { // files written before signing was known have no signatures
 		return true
+	}
+	// Files before schema 3 keep their head one value per reading and
+	// their environment samples unchunked; Open adds both buckets.
+	if bytes.Equal(name, bucketHeadLog) || bytes.Equal(name, bucketEChunks) {
+		return v.schema(tx) < 3
 	}
 	return v.schema(tx) == 1 && (bytes.Equal(name, bucketChunks) || bytes.Equal(name, bucketEnvironment) || bytes.Equal(name, bucketPChunks) ||
 		bytes.Equal(name, bucketRuns) || bytes.Equal(name, bucketAccounts))
@@ -276,11 +285,11 @@ func (v *verifier) rollupCounts(tx *bolt.Tx, kind []byte, step time.Duration) {
 		n := d.uvarint("Samples")
 		return n, d.err == nil
 	}
-	names := readingCounters(tx)
+	names := readingCounters(tx, nil) // the head log is not rolled up yet
 	for _, name := range names {
 		rb := rollups.Bucket([]byte(name))
 		counts := map[int64]uint64{}
-		forEachReadingKey(tx, name, func(ns int64) { counts[ns-ns%int64(step)]++ })
+		forEachReadingKey(tx, nil, name, func(ns int64) { counts[ns-ns%int64(step)]++ })
 		starts := make([]int64, 0, len(counts))
 		for start := range counts {
 			starts = append(starts, start)

@@ -44,7 +44,7 @@ func (v *verifier) audit(tx *bolt.Tx) {
 	if b == nil {
 		return
 	}
-	a := &auditCheck{verifier: v, tx: tx, chunked: newChunkCache(tx), series: map[seriesID]*seriesCover{}}
+	a := &auditCheck{verifier: v, tx: tx, chunked: newChunkCache(tx, v.hv), series: map[seriesID]*seriesCover{}}
 	v.guarded(string(bucketAudit), func() { a.chain(b) })
 	if !a.blind {
 		v.guarded("audit coverage", a.coverage)
@@ -197,6 +197,8 @@ func (a *auditCheck) records(e *AuditEntry, cv *covered) {
 			val = a.chunked.value(name, key)
 		case coverPressure:
 			val = a.chunked.pressure(name, key)
+		case coverEnv:
+			val = a.chunked.env(name, key)
 		case coverJournal:
 			val = root.Get(key)
 		default:
@@ -259,9 +261,11 @@ func (a *auditCheck) coverage() {
 		}
 		switch kind {
 		case coverReadings:
-			forEachReadingKey(a.tx, name, count)
+			forEachReadingKey(a.tx, a.chunked.hv, name, count)
 		case coverPressure:
 			forEachKey(a.tx, bucketPressure, bucketPChunks, name, count)
+		case coverEnv:
+			forEachKey(a.tx, bucketEnvironment, bucketEChunks, name, count)
 		default:
 			c := b.Cursor()
 			for k, _ := c.First(); k != nil; k, _ = c.Next() {
@@ -281,19 +285,18 @@ func (a *auditCheck) coverage() {
 			a.add("%d records in %s older than the audit chain, more than the %d it started with", before-sc.before, seriesName(kind, name), sc.base.count)
 		}
 	}
-	for _, name := range readingCounters(a.tx) {
+	for _, name := range readingCounters(a.tx, a.chunked.hv) {
 		check(coverReadings, name, nil)
 	}
 	for _, name := range pressureSensors(a.tx) {
 		check(coverPressure, name, nil)
 	}
-	for _, kind := range []byte{coverOpState, coverEnv} {
-		root := a.tx.Bucket(coverBucket(kind))
-		if root == nil {
-			continue
-		}
+	for _, name := range envSensors(a.tx) {
+		check(coverEnv, name, nil)
+	}
+	if root := a.tx.Bucket(bucketOpState); root != nil {
 		_ = root.ForEachBucket(func(name []byte) error {
-			check(kind, string(name), root.Bucket(name))
+			check(coverOpState, string(name), root.Bucket(name))
 			return nil
 		})
 	}

@@ -2,6 +2,7 @@ package store
 
 import (
 	"fmt"
+	"math"
 	"sort"
 
 	bolt "go.etcd.io/bbolt"
@@ -63,6 +64,79 @@ func (v *verifier) chunkSeries(tx *bolt.Tx, counter string, b *bolt.Bucket) {
 	}
 }
 
+// headLog checks the head log: every record decodes with its checksum,
+// keys are sequence numbers, every reading in it decodes, and no reading
+// is held by two records (or by a record and the legacy head).
+func (v *verifier) headLog(tx *bolt.Tx) {
+	b := tx.Bucket(bucketHeadLog)
+	if b == nil {
+		return
+	}
+	v.guarded(string(bucketHeadLog), func() {
+		hv := &headView{tx: tx}
+		v.hv = hv
+		c := b.Cursor()
+		for k, val := c.First(); k != nil; k, val = c.Next() {
+			if val == nil {
+				v.add("%s: %x is a bucket, not a value", bucketHeadLog, k)
+				continue
+			}
+			if seq, ok := keySeq(k); ok && seq > b.Sequence() {
+				v.add("%s: record %d is beyond the log's sequence %d (written outside the store)", bucketHeadLog, seq, b.Sequence())
+			}
+			r, err := decodeHeadRec(k, val, false)
+			if err == nil {
+				hv.recs = append(hv.recs, r)
+				continue
+			}
+			// A record whose checksum fails but whose layout reads still
+			// counts its readings as present; each that changed is named
+			// by its own checksum below, and the record only when none is.
+			if r = damagedHeadRec(k, val); r == nil {
+				v.addErr(err)
+				continue
+			}
+			hv.recs = append(hv.recs, r)
+			named := false
+			for name, vs := range r.by {
+				for _, hvv := range vs {
+					if _, rerr := decodeReading(name, nanosKey(hvv.ns), hvv.val); rerr != nil {
+						named = true
+					}
+				}
+			}
+			if !named {
+				v.addErr(err)
+			}
+		}
+		seen := map[string]map[int64]bool{}
+		legacy := tx.Bucket(bucketReadings)
+		for _, r := range hv.recs {
+			for name, vs := range r.by {
+				m := seen[name]
+				if m == nil {
+					m = map[int64]bool{}
+					seen[name] = m
+				}
+				var lb *bolt.Bucket
+				if legacy != nil {
+					lb = legacy.Bucket([]byte(name))
+				}
+				for _, hvv := range vs {
+					key := nanosKey(hvv.ns)
+					if _, err := decodeReading(name, key, hvv.val); err != nil {
+						v.addErr(err)
+					}
+					if m[hvv.ns] || (lb != nil && lb.Get(key) != nil) {
+						v.add("reading of counter %q at %s is held twice in the head", name, keyString(key))
+					}
+					m[hvv.ns] = true
+				}
+			}
+		}
+	})
+}
+
 // chunkReadings checks each distinct shape of a chunk once (and every
 // differential reading, whose counts must add up), and that the head
 // holds none of its readings.
@@ -74,6 +148,13 @@ func (v *verifier) chunkReadings(counter string, head *bolt.Bucket, rs []chunkRe
 			checked[id] = true
 			if _, err := rs[i].toReading(counter); err != nil {
 				v.addErr(err)
+			}
+		}
+	}
+	if v.hv != nil {
+		for i := range rs {
+			if v.hv.get(counter, rs[i].ns) != nil {
+				v.add("reading of counter %q at %s is both in the head and in a chunk", counter, keyString(nanosKey(rs[i].ns)))
 			}
 		}
 	}
@@ -97,9 +178,11 @@ func (v *verifier) chunkReadings(counter string, head *bolt.Bucket, rs []chunkRe
 // lists come in time order per counter.
 type chunkCache struct {
 	tx   *bolt.Tx
+	hv   *headView
 	m    map[string]*cachedChunk
 	head map[string]*bolt.Bucket // read transactions do not cache nested buckets
 	p    map[string][]pchunkSample
+	e    map[string][]echunkSample // verify_echunk.go
 }
 
 type cachedChunk struct {
@@ -107,8 +190,8 @@ type cachedChunk struct {
 	rs          []chunkReading
 }
 
-func newChunkCache(tx *bolt.Tx) *chunkCache {
-	return &chunkCache{tx: tx, m: map[string]*cachedChunk{}, head: map[string]*bolt.Bucket{}, p: map[string][]pchunkSample{}}
+func newChunkCache(tx *bolt.Tx, hv *headView) *chunkCache {
+	return &chunkCache{tx: tx, hv: hv, m: map[string]*cachedChunk{}, head: map[string]*bolt.Bucket{}, p: map[string][]pchunkSample{}}
 }
 
 // value returns the schema-1 value of counter's reading at key, from the
@@ -135,6 +218,9 @@ func (cc *chunkCache) value(counter string, key []byte) []byte {
 		if v := b.Get(key); v != nil {
 			return v
 		}
+	}
+	if v := cc.hv.get(counter, ns); v != nil {
+		return v
 	}
 	ch := cc.m[counter]
 	if ch == nil || ns < ch.first || ns > ch.last {
@@ -176,11 +262,21 @@ func (cc *chunkCache) load(counter string, key []byte) *cachedChunk {
 }
 
 // forEachReadingKey calls fn with the time of every reading of counter,
-// head and chunks, in time order, without decoding head values: Verify
+// head (the log's records of hv, when not nil) and chunks, in time order, without decoding head values: Verify
 // counts a damaged reading as present (the walk reports the damage). A
 // chunk that does not decode is passed over (the chunk walk reports it).
-func forEachReadingKey(tx *bolt.Tx, counter string, fn func(ns int64)) {
-	forEachKey(tx, bucketReadings, bucketChunks, counter, fn)
+func forEachReadingKey(tx *bolt.Tx, hv *headView, counter string, fn func(ns int64)) {
+	logged := hv.logValues(counter, math.MinInt64, math.MaxInt64)
+	i := 0
+	forEachKey(tx, bucketReadings, bucketChunks, counter, func(ns int64) {
+		for ; i < len(logged) && logged[i].ns <= ns; i++ {
+			fn(logged[i].ns)
+		}
+		fn(ns)
+	})
+	for ; i < len(logged); i++ {
+		fn(logged[i].ns)
+	}
 }
 
 // forEachKey is forEachReadingKey for any head and chunk bucket pair

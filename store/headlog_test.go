@@ -1,0 +1,91 @@
+package store
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"testing"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+)
+
+// One AppendReadings call that stores anything is one head record, and
+// it holds exactly what was stored (duplicates left out).
+func TestHeadRecordPerCall(t *testing.T) {
+	s := openTest(t, t.TempDir(), Options{NoSync: true, CompactEvery: -1})
+	appendOK(t, s, append(series("pc-a", t0, 10), series("pc-b", t0, 5)...))
+	appendOK(t, s, series("pc-a", t0.Add(5*time.Minute), 10)) // 5 repeat the first call
+	if _, _, err := s.AppendReadings(context.Background(), series("pc-a", t0, 3)); err != nil {
+		t.Fatal(err) // all duplicates: no record
+	}
+	var sizes []int
+	err := s.db.View(func(tx *bolt.Tx) error {
+		return tx.Bucket(bucketHeadLog).ForEach(func(k, v []byte) error {
+			r, err := decodeHeadRec(k, v, false)
+			if err != nil {
+				return err
+			}
+			sizes = append(sizes, r.n)
+			return nil
+		})
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(sizes) != 2 || sizes[0] != 15 || sizes[1] != 5 {
+		t.Fatalf("head records hold %v readings, want [15 5]", sizes)
+	}
+}
+
+// A reading sent again while its first copy is still in the head, in a
+// chunk, or in the same call, is a duplicate; after compaction and a
+// reopen too.
+func TestHeadDuplicatesAcrossHeadAndChunks(t *testing.T) {
+	dir := t.TempDir()
+	s := openTest(t, dir, Options{NoSync: true, CompactEvery: -1})
+	ctx := context.Background()
+	first := series("pc-a", t0, 20)
+	appendOK(t, s, first)
+	check := func(when string) {
+		t.Helper()
+		acc, dup, err := s.AppendReadings(ctx, append(first[:10:10], first[5:15]...))
+		if err != nil || acc != 0 || dup != 20 {
+			t.Fatalf("%s: accepted %d duplicates %d %v, want 0 and 20", when, acc, dup, err)
+		}
+	}
+	check("in the head")
+	compactOK(t, s)
+	check("in chunks")
+	appendOK(t, s, series("pc-a", t0.Add(20*time.Minute), 5))
+	_ = s.Close()
+	s = openTest(t, dir, Options{NoSync: true, CompactEvery: -1, keepHead: true})
+	check("after a reopen")
+	if n := len(scanAll(t, s, "pc-a", time.Time{}, time.Time{})); n != 25 {
+		t.Fatalf("%d readings, want 25", n)
+	}
+}
+
+// FuzzHeadRecord: any bytes under any key either decode into a record
+// whose encoding is those bytes again, or are refused with ErrCorrupt;
+// nothing panics.
+func FuzzHeadRecord(f *testing.F) {
+	key := seqKey(7)
+	r := reading("pc-a", t0, 1)
+	v := encodeReading(timeKey(r.Time), &r)
+	f.Add(key, encodeHeadRec(key, map[string][]headVal{"pc-a": {{ns: t0.UnixNano(), val: v}}}))
+	f.Add(key, encodeHeadRec(key, map[string][]headVal{"pc-a": {{ns: 1, val: []byte{1}}, {ns: 2, val: nil}}, "pc-b": {{ns: 5, val: v}}}))
+	f.Add(seqKey(0), []byte{codecV1, 0, 0, 0, 0, 0})
+	f.Fuzz(func(t *testing.T, key, val []byte) {
+		rec, err := decodeHeadRec(key, val, false)
+		if err != nil {
+			if !errors.Is(err, ErrCorrupt) || rec != nil {
+				t.Fatalf("error %v (record %v): want ErrCorrupt and no record", err, rec)
+			}
+			return
+		}
+		if again := encodeHeadRec(key, rec.by); !bytes.Equal(again, val) {
+			t.Fatalf("re-encoded %x, stored %x", again, val)
+		}
+	})
+}

@@ -89,3 +89,30 @@ func FuzzHeadRecord(f *testing.F) {
 		}
 	})
 }
+
+// An hour whose readings are partly compacted (kept rollup) and partly in
+// the head log comes back as one row with the figures of all of them; so
+// do hours only in the head, and a query that starts or ends inside one.
+func TestHourlyAddsHeadToKept(t *testing.T) {
+	s := openTest(t, t.TempDir(), Options{NoSync: true, CompactEvery: -1})
+	appendOK(t, s, series("pc-a", t0, 30)) // 10:00–10:29
+	compactOK(t, s)
+	appendOK(t, s, series("pc-a", t0.Add(30*time.Minute), 100)) // 10:30–12:09, in the head
+	if headCount(t, s, "pc-a") != 100 {
+		t.Fatal("the second part is not in the head: the test would prove nothing")
+	}
+	compareRollups(t, rollupsAll(t, s, "pc-a", time.Hour), recompute(t, s, "pc-a", time.Hour))
+	var got []Rollup
+	if err := s.ScanRollups("pc-a", time.Hour, t0.Add(20*time.Minute), t0.Add(125*time.Minute), func(r Rollup) error { got = append(got, r); return nil }); err != nil {
+		t.Fatal(err)
+	}
+	want := []int{40, 60, 5} // 10:20–10:59, 11:00–11:59, 12:00–12:04
+	if len(got) != len(want) {
+		t.Fatalf("%d rows, want %d", len(got), len(want))
+	}
+	for i, r := range got {
+		if r.Samples != want[i] {
+			t.Errorf("row %d (%s): %d samples, want %d", i, r.Start, r.Samples, want[i])
+		}
+	}
+}

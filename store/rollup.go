@@ -320,22 +320,25 @@ func rawRollups(tx *bolt.Tx, hv *headView, counter string, step time.Duration, l
 // ones, each followed by the hour's rollup of head-log readings when
 // there are any (the caller's rollupRows adds the two up).
 func keptRollups(tx *bolt.Tx, hv *headView, counter string, lo, hi int64, emit func(Rollup) error) error {
-	var fresh []Rollup // the head log's hours, in order
-	if heads := hv.logValues(counter, lo, hi); len(heads) > 0 {
-		err := rollupHead(counter, heads, func(r Rollup) error {
-			fresh = append(fresh, r)
-			return nil
-		})
-		if err != nil {
-			return err
-		}
-	}
+	// The head log's readings, rolled up an hour at a time only when the
+	// walk reaches that hour: a caller that stops at the first row (to
+	// find where data begins) must not pay for decoding the whole head.
+	heads := hv.logValues(counter, lo, hi)
+	h := int64(time.Hour)
 	sendFresh := func(before int64) error {
-		for len(fresh) > 0 && fresh[0].Start.UnixNano() < before {
-			if err := emit(fresh[0]); err != nil {
+		for len(heads) > 0 {
+			hour := heads[0].ns - heads[0].ns%h
+			if hour >= before {
+				return nil
+			}
+			n := 1
+			for n < len(heads) && heads[n].ns < hour+h {
+				n++
+			}
+			if err := rollupHead(counter, heads[:n], emit); err != nil {
 				return err
 			}
-			fresh = fresh[1:]
+			heads = heads[n:]
 		}
 		return nil
 	}

@@ -31,6 +31,9 @@ type readingIter struct {
 // moved into chunks, and the legacy head).
 func newReadingIter(tx *bolt.Tx, hv *headView, counter string, lo, hi int64) *readingIter {
 	it := &readingIter{counter: counter, lo: lo, hi: hi, cdone: true, template: map[*byte]Reading{}}
+	if lo >= hi {
+		return it // an empty range (a rolled-up query's aligned edge) decodes nothing
+	}
 	it.head = hv.values(tx, counter, lo, hi)
 	if root := tx.Bucket(bucketChunks); root != nil {
 		if b := root.Bucket([]byte(counter)); b != nil {

@@ -16,8 +16,12 @@ import (
 	"cleanmon/store"
 )
 
-// rollupChunkSteps is the same bound for rolled-up rows, in steps.
-const rollupChunkSteps = 64
+// rollupChunkSteps is the same bound for rolled-up rows, in steps: a
+// month of hours (744 rows a counter held at once). Each chunk costs two
+// store scans per counter (where the data starts, then the rows), so at
+// 64 steps a year of hourly rows took 274 scans and a quarter of a second
+// through the API against 11 ms in the store.
+const rollupChunkSteps = 744
 
 // zoneCounters lists the counters of a zone, optionally at one location.
 func (s *Server) zoneCounters(zone, location string) []counterRef {

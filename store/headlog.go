@@ -505,3 +505,25 @@ func (h *headState) reset() {
 	h.recs, h.floor = map[uint64]*headRec{}, 0
 	h.mu.Unlock()
 }
+
+// logSpan is the time of counter's first and last reading in the
+// records; ok is false when they hold none of its readings.
+func (hv *headView) logSpan(counter string) (first, last int64, ok bool) {
+	if hv == nil {
+		return 0, 0, false
+	}
+	for _, r := range hv.recs {
+		vs := r.by[counter]
+		if len(vs) == 0 {
+			continue
+		}
+		if !ok || vs[0].ns < first {
+			first = vs[0].ns
+		}
+		if !ok || vs[len(vs)-1].ns > last {
+			last = vs[len(vs)-1].ns
+		}
+		ok = true
+	}
+	return first, last, ok
+}

@@ -259,7 +259,16 @@ func (s *Store) ScanRollups(counter string, step time.Duration, from, to time.Ti
 		// The partial hours at either edge come from the readings; the
 		// whole hours between from the kept rollups plus the head log's
 		// readings (not rolled up before compaction). A bucket that spans
-		// an edge gathers both before it is sent.
+		// an edge gathers both before it is sent; hours go straight out.
+		if step == time.Hour {
+			if err := rawRollups(tx, hv, counter, step, loN, first, emit); err != nil {
+				return err
+			}
+			if err := keptRollups(tx, hv, counter, first, last, emit); err != nil {
+				return err
+			}
+			return rawRollups(tx, hv, counter, step, last, hiN, emit)
+		}
 		agg := &rollupRows{step: step, lo: loN, hi: hiN, emit: emit}
 		if err := rawRollups(tx, hv, counter, time.Hour, loN, first, agg.add); err != nil {
 			return err
@@ -317,29 +326,25 @@ func rawRollups(tx *bolt.Tx, hv *headView, counter string, step time.Duration, l
 }
 
 // keptRollups sends the hourly rollups with Start in [lo, hi): the kept
-// ones, each followed by the hour's rollup of head-log readings when
-// there are any (the caller's rollupRows adds the two up).
+// ones with the head log's readings of their hour added, and the hours
+// only the head log holds, in time order. The head's readings are looked
+// at only for the hours its span covers, and decoded only when the walk
+// reaches them: a caller that stops at the first row (to find where data
+// begins) pays for nothing else.
 func keptRollups(tx *bolt.Tx, hv *headView, counter string, lo, hi int64, emit func(Rollup) error) error {
-	// The head log's readings, rolled up an hour at a time only when the
-	// walk reaches that hour: a caller that stops at the first row (to
-	// find where data begins) must not pay for decoding the whole head.
-	heads := hv.logValues(counter, lo, hi)
 	h := int64(time.Hour)
-	sendFresh := func(before int64) error {
-		for len(heads) > 0 {
-			hour := heads[0].ns - heads[0].ns%h
-			if hour >= before {
-				return nil
+	hFirst, hLast, inHead := hv.logSpan(counter)
+	pos := lo // the head's readings before pos have been sent
+	// sendHead sends the head-only hours in [pos, before).
+	sendHead := func(before int64) error {
+		if inHead && pos <= hLast && before > hFirst {
+			if vs := hv.logValues(counter, pos, before); len(vs) > 0 {
+				if err := rollupHead(counter, vs, emit); err != nil {
+					return err
+				}
 			}
-			n := 1
-			for n < len(heads) && heads[n].ns < hour+h {
-				n++
-			}
-			if err := rollupHead(counter, heads[:n], emit); err != nil {
-				return err
-			}
-			heads = heads[n:]
 		}
+		pos = max(pos, before)
 		return nil
 	}
 	if b := tx.Bucket(bucketRollup1h).Bucket([]byte(counter)); b != nil {
@@ -350,18 +355,25 @@ func keptRollups(tx *bolt.Tx, hv *headView, counter string, lo, hi int64, emit f
 			if err != nil {
 				return err
 			}
-			if err := sendFresh(acc.start); err != nil {
+			if err := sendHead(acc.start); err != nil {
 				return err
 			}
+			if inHead && acc.start <= hLast && acc.start+h > hFirst {
+				for _, hvv := range hv.logValues(counter, acc.start, acc.start+h) {
+					r, err := decodeReading(counter, nanosKey(hvv.ns), hvv.val)
+					if err != nil {
+						return err
+					}
+					acc.add(r.Sizes, r.PerM3())
+				}
+			}
+			pos = acc.start + h
 			if err := emit(acc.rollup(time.Hour)); err != nil {
-				return err
-			}
-			if err := sendFresh(acc.start + int64(time.Hour)); err != nil {
 				return err
 			}
 		}
 	}
-	return sendFresh(hi)
+	return sendHead(hi)
 }
 
 // rollupHead sends the hourly rollups of head readings in time order.

@@ -20,8 +20,15 @@ type readingIter struct {
 	ci     int
 	cdone  bool
 
-	head     []headVal // the head's readings in [lo, hi), in time order
+	head     []headVal // the head's readings in [lo, hi), in time order, once loaded
 	hi2      int       // next of head
+	// The head log's readings are gathered only when the walk reaches
+	// their first time: a caller that reads a year in slices (the API's
+	// raw answer) must not copy the whole head for every slice.
+	hv         *headView
+	tx         *bolt.Tx
+	headLoaded bool
+	headFirst  int64
 	err      error
 	template map[*byte]Reading // decoded shape of each run, by its first byte
 }
@@ -34,7 +41,14 @@ func newReadingIter(tx *bolt.Tx, hv *headView, counter string, lo, hi int64) *re
 	if lo >= hi {
 		return it // an empty range (a rolled-up query's aligned edge) decodes nothing
 	}
-	it.head = hv.values(tx, counter, lo, hi)
+	it.hv, it.tx = hv, tx
+	if tx.Bucket(bucketReadings).Bucket([]byte(counter)) != nil {
+		it.head, it.headLoaded = hv.values(tx, counter, lo, hi), true // a legacy head: rare, read at once
+	} else if first, last, ok := hv.logSpan(counter); ok && last >= lo && first < hi {
+		it.headFirst = max(first, lo)
+	} else {
+		it.headLoaded = true // nothing in the head for this range
+	}
 	if root := tx.Bucket(bucketChunks); root != nil {
 		if b := root.Bucket([]byte(counter)); b != nil {
 			it.chunks = b.Cursor()
@@ -83,6 +97,9 @@ func (it *readingIter) loadChunk(k, v []byte) {
 // counts; ok is false at the end or on error (see it.err).
 func (it *readingIter) next() (cr chunkReading, ok bool) {
 	for it.err == nil {
+		if !it.headLoaded && (it.cdone || it.ck[it.ci].ns >= it.headFirst) {
+			it.head, it.headLoaded = it.hv.logValues(it.counter, it.lo, it.hi), true
+		}
 		cOK := !it.cdone
 		hOK := it.hi2 < len(it.head)
 		if !cOK && !hOK {

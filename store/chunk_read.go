@@ -20,8 +20,8 @@ type readingIter struct {
 	ci     int
 	cdone  bool
 
-	head     []headVal // the head's readings in [lo, hi), in time order, once loaded
-	hi2      int       // next of head
+	head []headVal // the head's readings in [lo, hi), in time order, once loaded
+	hi2  int       // next of head
 	// The head log's readings are gathered only when the walk reaches
 	// their first time: a caller that reads a year in slices (the API's
 	// raw answer) must not copy the whole head for every slice.
@@ -29,8 +29,8 @@ type readingIter struct {
 	tx         *bolt.Tx
 	headLoaded bool
 	headFirst  int64
-	err      error
-	template map[*byte]Reading // decoded shape of each run, by its first byte
+	err        error
+	template   map[*byte]Reading // decoded shape of each run, by its first byte
 }
 
 // newReadingIter walks counter's chunks and the head of hv; a nil hv

@@ -54,7 +54,7 @@
 // chunks, the hourly rollups of the readings moved and the removal of
 // the records change in one transaction, so a crash leaves each reading
 // in exactly one place and counted once. A background pass moves the log
-// once it holds 4 Ki readings, early once 16 Ki arrived, and at Close, so
+// once it holds 32 Ki readings, early once 64 Ki arrived, and at Close, so
 // a cleanly stopped store is all chunks. Scans merge chunks and head from
 // a Seek: an empty stretch of time costs nothing whatever its length
 // (CheckRange bounds what a request may ask).

@@ -35,6 +35,11 @@ const (
 	// 32 Ki, and chunks 6.4 → 5.7 bytes a reading, rewritten less often).
 	// Close and an early pass move every record regardless.
 	compactMinLog = 32 << 10
+	// compactMaxRecords moves the log whatever its readings once it holds
+	// this many records: a gateway or poller that sends one reading a call
+	// makes a record of each, and every query walks the records of its
+	// snapshot, so their number is kept to a few milliseconds' walk.
+	compactMaxRecords = 1024
 	// compactTxReadings bounds the readings one compaction transaction
 	// moves, so that appends wait for it a few tens of milliseconds at most.
 	compactTxReadings = 32 << 10
@@ -418,8 +423,9 @@ func sweepChunked(root *bolt.Bucket, limit int64, budget *int, cut func(name str
 // records taken are merged into its chunks (as compactCounter does), added
 // to the hourly rollups, and the records deleted, all in one transaction.
 // A background pass (minHead above 1) leaves a log of fewer than
-// compactMinLog readings alone. A record that does not decode stays where
-// it is (Verify names it) and the others go on.
+// compactMinLog readings in fewer than compactMaxRecords records alone. A
+// record that does not decode stays where it is (Verify names it) and the
+// others go on.
 func (s *Store) compactLog(ctx context.Context, minHead int, res *CompactResult) error {
 	for {
 		if err := ctx.Err(); err != nil {
@@ -438,7 +444,7 @@ func (s *Store) compactLog(ctx context.Context, minHead int, res *CompactResult)
 				s.log.Error("store: compaction passes over a damaged head record", "error", bad.Error())
 			}
 			total := hv.size()
-			if total == 0 || (minHead > 1 && total < compactMinLog) {
+			if total == 0 || (minHead > 1 && total < compactMinLog && len(hv.recs) < compactMaxRecords) {
 				return nil
 			}
 			var take []*headRec

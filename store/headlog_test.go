@@ -116,3 +116,24 @@ func TestHourlyAddsHeadToKept(t *testing.T) {
 		}
 	}
 }
+
+// A log of many small records (a poller sending one reading a call) is
+// moved by the background pass once it holds compactMaxRecords of them,
+// though its readings are far fewer than compactMinLog.
+func TestBackgroundCompactionOfManyRecords(t *testing.T) {
+	s := openTest(t, t.TempDir(), Options{NoSync: true, CompactEvery: 20 * time.Millisecond})
+	rs := series("pc-poll", t0, compactMaxRecords)
+	for i := range rs {
+		appendOK(t, s, rs[i:i+1])
+	}
+	deadline := time.Now().Add(10 * time.Second)
+	for headCount(t, s, "pc-poll") != 0 {
+		if time.Now().After(deadline) {
+			t.Fatalf("%d readings in %d records still in the head after 10 s", headCount(t, s, "pc-poll"), compactMaxRecords)
+		}
+		time.Sleep(10 * time.Millisecond)
+	}
+	if got := scanAll(t, s, "pc-poll", time.Time{}, time.Time{}); len(got) != compactMaxRecords {
+		t.Fatalf("%d readings after the pass, want %d", len(got), compactMaxRecords)
+	}
+}

@@ -73,41 +73,10 @@ func (v *verifier) headLog(tx *bolt.Tx) {
 		return
 	}
 	v.guarded(string(bucketHeadLog), func() {
-		hv := &headView{tx: tx}
+		hv, problems := lenientHead(tx)
 		v.hv = hv
-		c := b.Cursor()
-		for k, val := c.First(); k != nil; k, val = c.Next() {
-			if val == nil {
-				v.add("%s: %x is a bucket, not a value", bucketHeadLog, k)
-				continue
-			}
-			if seq, ok := keySeq(k); ok && seq > b.Sequence() {
-				v.add("%s: record %d is beyond the log's sequence %d (written outside the store)", bucketHeadLog, seq, b.Sequence())
-			}
-			r, err := decodeHeadRec(k, val, false)
-			if err == nil {
-				hv.recs = append(hv.recs, r)
-				continue
-			}
-			// A record whose checksum fails but whose layout reads still
-			// counts its readings as present; each that changed is named
-			// by its own checksum below, and the record only when none is.
-			if r = damagedHeadRec(k, val); r == nil {
-				v.addErr(err)
-				continue
-			}
-			hv.recs = append(hv.recs, r)
-			named := false
-			for name, vs := range r.by {
-				for _, hvv := range vs {
-					if _, rerr := decodeReading(name, nanosKey(hvv.ns), hvv.val); rerr != nil {
-						named = true
-					}
-				}
-			}
-			if !named {
-				v.addErr(err)
-			}
+		for _, p := range problems {
+			v.add("%s", p)
 		}
 		seen := map[string]map[int64]bool{}
 		legacy := tx.Bucket(bucketReadings)
@@ -413,4 +382,49 @@ func (v *verifier) pchunkSeries(tx *bolt.Tx, sensor string, b *bolt.Bucket) {
 			v.addErr(err)
 		}
 	}
+}
+
+// lenientHead reads the head log as Verify sees it, with the problems of
+// its records. A record whose checksum fails but whose layout reads still
+// counts its readings as present; each that changed is named by its own
+// checksum by the caller, and the record only when none is.
+func lenientHead(tx *bolt.Tx) (*headView, []string) {
+	hv := &headView{tx: tx}
+	b := tx.Bucket(bucketHeadLog)
+	if b == nil {
+		return hv, nil
+	}
+	var problems []string
+	c := b.Cursor()
+	for k, val := c.First(); k != nil; k, val = c.Next() {
+		if val == nil {
+			problems = append(problems, fmt.Sprintf("%s: %x is a bucket, not a value", bucketHeadLog, k))
+			continue
+		}
+		if seq, ok := keySeq(k); ok && seq > b.Sequence() {
+			problems = append(problems, fmt.Sprintf("%s: record %d is beyond the log's sequence %d (written outside the store)", bucketHeadLog, seq, b.Sequence()))
+		}
+		r, err := decodeHeadRec(k, val, false)
+		if err == nil {
+			hv.recs = append(hv.recs, r)
+			continue
+		}
+		if r = damagedHeadRec(k, val); r == nil {
+			problems = append(problems, trimCorrupt(err))
+			continue
+		}
+		hv.recs = append(hv.recs, r)
+		named := false
+		for name, vs := range r.by {
+			for _, hvv := range vs {
+				if _, rerr := decodeReading(name, nanosKey(hvv.ns), hvv.val); rerr != nil {
+					named = true
+				}
+			}
+		}
+		if !named {
+			problems = append(problems, trimCorrupt(err))
+		}
+	}
+	return hv, problems
 }

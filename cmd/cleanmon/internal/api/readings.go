@@ -4,6 +4,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"math"
 	"net/http"
 	"slices"
 	"sort"
@@ -66,6 +67,23 @@ func parseStep(v string) (step, source time.Duration, err error) {
 type counterRef struct {
 	id, location         string
 	idJSON, locationJSON []byte
+	// The volume, flow and sample time of a counter's readings are nearly
+	// always those of the reading before: their text is kept and reused
+	// (the shortest float form is most of a row's formatting).
+	vol, flow, secs floatText
+}
+
+// floatText is the JSON text of the last float written through it.
+type floatText struct {
+	v    float64
+	text []byte
+}
+
+func (ft *floatText) append(b []byte, v float64) []byte {
+	if ft.text == nil || v != ft.v || math.Signbit(v) != math.Signbit(ft.v) {
+		ft.v, ft.text = v, httpx.AppendFloat(ft.text[:0], v)
+	}
+	return append(b, ft.text...)
 }
 
 func newCounterRef(id, location string) counterRef {
@@ -85,14 +103,14 @@ func appendReadingRow(b []byte, rd *store.Reading, c *counterRef, keys [][]byte)
 	b = append(b, `,"location":`...)
 	b = append(b, c.locationJSON...)
 	b = append(b, `,"volume_l":`...)
-	b = httpx.AppendFloat(b, rd.VolumeL)
+	b = c.vol.append(b, rd.VolumeL)
 	if rd.FlowLPM != 0 {
 		b = append(b, `,"flow_lpm":`...)
-		b = httpx.AppendFloat(b, rd.FlowLPM)
+		b = c.flow.append(b, rd.FlowLPM)
 	}
 	if rd.SampleSeconds != 0 {
 		b = append(b, `,"sample_seconds":`...)
-		b = httpx.AppendFloat(b, rd.SampleSeconds)
+		b = c.secs.append(b, rd.SampleSeconds)
 	}
 	if rd.Status != "" {
 		b = append(b, `,"status":`...)

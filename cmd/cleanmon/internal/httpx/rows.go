@@ -101,6 +101,9 @@ func (k *SizeKeys) Get(sizes []float64) [][]byte {
 // AppendFloat writes a float as encoding/json does; a value JSON cannot
 // hold (NaN, ±Inf) becomes null rather than a broken document.
 func AppendFloat(b []byte, f float64) []byte {
+	if f == 0 && !math.Signbit(f) {
+		return append(b, '0') // a clean room's usual count, written without the float machinery
+	}
 	if math.IsNaN(f) || math.IsInf(f, 0) {
 		return append(b, "null"...)
 	}

@@ -10,49 +10,17 @@ import (
 	"cleanmon/alerts"
 	"cleanmon/alerts/investigate"
 	"cleanmon/cmd/cleanmon/internal/httpx"
+	"cleanmon/cmd/cleanmon/internal/report"
 )
 
-// The exposure of a production run, as JSON. The report package decodes
-// this same shape (report.Exposure) for the signed HTML and PDF report, so
-// a field added here is added there too.
-
-type exposureJSON struct {
-	Site        string              `json:"site"`
-	Run         runJSON             `json:"run"`
-	ZoneName    string              `json:"zone_name"`
-	Target      string              `json:"target"`
-	Until       time.Time           `json:"until"`
-	Generated   time.Time           `json:"generated"`
-	Alarms      []exposureAlarmJSON `json:"alarms"`
-	Excursions  int                 `json:"excursions"`
-	TimeByLevel map[string]float64  `json:"time_by_level_s"`
-	Peaks       []peakJSON          `json:"peaks"`
-	Notes       []string            `json:"notes"`
-	Caution     string              `json:"caution"`
-}
-
-type exposureAlarmJSON struct {
-	ID        string     `json:"id"`
-	Kind      string     `json:"kind"`
-	Level     string     `json:"level"`
-	Location  string     `json:"location"`
-	SizeUM    *float64   `json:"size_um"`
-	Since     time.Time  `json:"since"`
-	Cleared   *time.Time `json:"cleared"`
-	Peak      float64    `json:"peak"`
-	PeakTime  time.Time  `json:"peak_time"`
-	Excursion bool       `json:"excursion"`
-	// ConditionGone: the condition has passed but the alarm, latched,
-	// waits for its acknowledgement and counts until then.
-	ConditionGone bool `json:"condition_gone"`
-}
-
-type peakJSON struct {
-	SizeUM   float64   `json:"size_um"`
-	Location string    `json:"location"`
-	PerM3    float64   `json:"per_m3"`
-	Time     time.Time `json:"time"`
-}
+// The exposure of a run, as JSON. The shape is report.Exposure's: the
+// report package renders this answer (HTML, PDF), so the types are
+// declared once, there, and named here for this file's use.
+type (
+	exposureJSON      = report.Exposure
+	exposureAlarmJSON = report.ExposureAlarm // ConditionGone: passed, latched, counted until acknowledged
+	peakJSON          = report.Peak
+)
 
 // particleKinds are the alarm kinds about the room's particles: an
 // excursion in the sense of the exposure report.

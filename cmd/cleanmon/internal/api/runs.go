@@ -14,6 +14,7 @@ import (
 	"cleanmon/alerts/investigate"
 	"cleanmon/cmd/cleanmon/internal/access"
 	"cleanmon/cmd/cleanmon/internal/httpx"
+	"cleanmon/cmd/cleanmon/internal/report"
 	"cleanmon/collector"
 	"cleanmon/store"
 )
@@ -37,19 +38,10 @@ type StateHistory interface {
 // a few hundred lines.
 const maxRunsBody = 1 << 20
 
-// runJSON is a production run as the API answers it. End is null while
-// the run goes on.
-type runJSON struct {
-	ID         string     `json:"id"`
-	Zone       string     `json:"zone"`
-	Start      time.Time  `json:"start"`
-	End        *time.Time `json:"end"`
-	Open       bool       `json:"open"`
-	Product    string     `json:"product"`
-	Lot        string     `json:"lot"`
-	RecordedBy string     `json:"recorded_by"`
-	Recorded   time.Time  `json:"recorded"`
-}
+// runJSON is a production run as the API answers it; End is null while
+// the run goes on. Declared once, in report, which renders runs in the
+// exposure report.
+type runJSON = report.Run
 
 func runObject(r store.Run) runJSON {
 	out := runJSON{ID: r.ID, Zone: r.Zone, Start: r.Start, Open: r.Open(), Product: r.Product, Lot: r.Lot,

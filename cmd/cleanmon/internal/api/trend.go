@@ -12,96 +12,24 @@ import (
 	"cleanmon/alerts"
 	"cleanmon/alerts/investigate"
 	"cleanmon/cmd/cleanmon/internal/httpx"
+	"cleanmon/cmd/cleanmon/internal/report"
 	"cleanmon/store"
 )
 
-// A zone's month on one page, as JSON. report.Trend decodes this same
-// shape for the text, HTML and PDF forms (the `cleanmon report trend`
-// command reads it over HTTP), so a field added here is added there too.
-
-type trendJSON struct {
-	Site                string             `json:"site"`
-	Zone                string             `json:"zone"`
-	ZoneName            string             `json:"zone_name"`
-	Target              string             `json:"target"`
-	Month               string             `json:"month"`
-	PreviousMonth       string             `json:"previous_month"`
-	From                time.Time          `json:"from"`
-	To                  time.Time          `json:"to"`
-	PreviousFrom        time.Time          `json:"previous_from"`
-	Generated           time.Time          `json:"generated"`
-	Locations           []trendLocJSON     `json:"locations"`
-	Alarms              []kindLevelJSON    `json:"alarms"`
-	AlarmsThis          int                `json:"alarms_this"`
-	AlarmsPrevious      int                `json:"alarms_previous"`
-	DoorsPerDay         []dayJSON          `json:"doors_per_day"`
-	DoorsThis           int                `json:"doors_this"`
-	DoorsPrevious       int                `json:"doors_previous"`
-	TimeByLevel         map[string]float64 `json:"time_by_level_s"`
-	PreviousTimeByLevel map[string]float64 `json:"previous_time_by_level_s"`
-	Advice              []adviceJSON       `json:"advice"`
-	Charts              []chartJSON        `json:"charts"`
-	Notes               []string           `json:"notes"`
-	Caution             string             `json:"caution"`
-}
-
-type trendLocJSON struct {
-	Location string    `json:"location"`
-	SizeUM   float64   `json:"size_um"`
-	Alert    *float64  `json:"alert_per_m3"`
-	Action   *float64  `json:"action_per_m3"`
-	Class    *float64  `json:"class_per_m3"`
-	This     statsJSON `json:"this"`
-	Previous statsJSON `json:"previous"`
-}
-
-// statsJSON: figures are null where there were no samples (never 0).
-type statsJSON struct {
-	N          int      `json:"n"`
-	Mean       *float64 `json:"mean_per_m3"`
-	P95        *float64 `json:"p95_per_m3"`
-	P99        *float64 `json:"p99_per_m3"`
-	Max        *float64 `json:"max_per_m3"`
-	OverAlert  int      `json:"over_alert"`
-	OverAction int      `json:"over_action"`
-	OverClass  int      `json:"over_class"`
-}
-
-type kindLevelJSON struct {
-	Kind     string `json:"kind"`
-	Level    string `json:"level"`
-	This     int    `json:"this"`
-	Previous int    `json:"previous"`
-}
-
-type dayJSON struct {
-	Day   string `json:"day"`
-	Count int    `json:"count"`
-}
-
-type adviceJSON struct {
-	SizeUM  float64  `json:"size_um"`
-	Samples int      `json:"samples"`
-	Mean    float64  `json:"mean_per_m3"`
-	Alert   *float64 `json:"alert_per_m3"`
-	Action  *float64 `json:"action_per_m3"`
-	Limit   *float64 `json:"limit_per_m3"`
-	Caveats []string `json:"caveats"`
-}
-
-// chartJSON is one size: the hourly mean of each location over the month.
-type chartJSON struct {
-	SizeUM float64         `json:"size_um"`
-	Alert  *float64        `json:"alert_per_m3"`
-	Action *float64        `json:"action_per_m3"`
-	Class  *float64        `json:"class_per_m3"`
-	Series []chartLineJSON `json:"series"`
-}
-
-type chartLineJSON struct {
-	Location string       `json:"location"`
-	Points   [][2]float64 `json:"points"`
-}
+// A zone's month on one page, as JSON. The shape is report.Trend's: the
+// report package renders this answer (text, HTML, PDF; the `cleanmon
+// report trend` command reads it over HTTP), so the types are declared
+// once, there, and named here for this file's use.
+type (
+	trendJSON     = report.Trend
+	trendLocJSON  = report.TrendLocation
+	statsJSON     = report.TrendStats // figures are nil where there were no samples (never 0)
+	kindLevelJSON = report.KindLevel
+	dayJSON       = report.DayCount
+	adviceJSON    = report.Advice
+	chartJSON     = report.TrendChart // one size: the hourly mean of each location over the month
+	chartLineJSON = report.TrendLine
+)
 
 func fptr(v float64) *float64 {
 	if math.IsNaN(v) || math.IsInf(v, 0) {

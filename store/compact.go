@@ -190,31 +190,9 @@ func compactCounter(tx *bolt.Tx, counter string) (moved, chunks int, err error) 
 	if len(fresh) == 0 {
 		return 0, 0, nil
 	}
-	cb, err := tx.Bucket(bucketChunks).CreateBucketIfNotExists([]byte(counter))
-	if err != nil {
-		return 0, 0, fmt.Errorf("store: chunks of %q: %w", counter, err)
-	}
-	cb.FillPercent = fillPercent
-	old, oldKeys, err := chunksFrom(cb, counter, fresh[0].ns)
+	chunks, err = mergeIntoChunks(tx, counter, fresh)
 	if err != nil {
 		return 0, 0, err
-	}
-	merged, err := mergeChunkReadings(counter, old, fresh)
-	if err != nil {
-		return 0, 0, err
-	}
-	for _, k := range oldKeys {
-		if err := cb.Delete(k); err != nil {
-			return 0, 0, err
-		}
-	}
-	for i := 0; i < len(merged); i += maxChunkReadings {
-		part := merged[i:min(i+maxChunkReadings, len(merged))]
-		key := nanosKey(part[len(part)-1].ns)
-		if err := cb.Put(key, encodeChunk(key, part)); err != nil {
-			return 0, 0, fmt.Errorf("store: put chunk of %q: %w", counter, err)
-		}
-		chunks++
 	}
 	if compactHook != nil {
 		if err := compactHook(counter); err != nil {
@@ -550,31 +528,9 @@ func (s *Store) compactLogCounter(tx *bolt.Tx, rollups *rollupSet, counter strin
 		fresh = append(fresh, chunkReading{ns: v.ns, shape: slices.Clone(shape), counts: counts, tag: tagOf(v.val), hasTag: true})
 		preps = append(preps, preparedReading{counter: counter, ns: v.ns, sizes: r.Sizes, perM3: r.PerM3()})
 	}
-	cb, err := tx.Bucket(bucketChunks).CreateBucketIfNotExists([]byte(counter))
-	if err != nil {
-		return 0, 0, fmt.Errorf("store: chunks of %q: %w", counter, err)
-	}
-	cb.FillPercent = fillPercent
-	old, oldKeys, err := chunksFrom(cb, counter, fresh[0].ns)
+	chunks, err = mergeIntoChunks(tx, counter, fresh)
 	if err != nil {
 		return 0, 0, err
-	}
-	merged, err := mergeChunkReadings(counter, old, fresh)
-	if err != nil {
-		return 0, 0, err
-	}
-	for _, k := range oldKeys {
-		if err := cb.Delete(k); err != nil {
-			return 0, 0, err
-		}
-	}
-	for i := 0; i < len(merged); i += maxChunkReadings {
-		part := merged[i:min(i+maxChunkReadings, len(merged))]
-		key := nanosKey(part[len(part)-1].ns)
-		if err := cb.Put(key, encodeChunk(key, part)); err != nil {
-			return 0, 0, fmt.Errorf("store: put chunk of %q: %w", counter, err)
-		}
-		chunks++
 	}
 	// The chunks now hold the readings: a damaged rollup rebuilt from
 	// them already counts them.
@@ -584,4 +540,39 @@ func (s *Store) compactLogCounter(tx *bolt.Tx, rollups *rollupSet, counter strin
 		}
 	}
 	return len(fresh), chunks, nil
+}
+
+// mergeIntoChunks merges fresh readings (ascending, not yet chunked) into
+// counter's chunks: the last chunk while not full and every chunk they
+// overlap are rewritten together with them as full chunks. It returns how
+// many chunks it wrote.
+func mergeIntoChunks(tx *bolt.Tx, counter string, fresh []chunkReading) (int, error) {
+	cb, err := tx.Bucket(bucketChunks).CreateBucketIfNotExists([]byte(counter))
+	if err != nil {
+		return 0, fmt.Errorf("store: chunks of %q: %w", counter, err)
+	}
+	cb.FillPercent = fillPercent
+	old, oldKeys, err := chunksFrom(cb, counter, fresh[0].ns)
+	if err != nil {
+		return 0, err
+	}
+	merged, err := mergeChunkReadings(counter, old, fresh)
+	if err != nil {
+		return 0, err
+	}
+	for _, k := range oldKeys {
+		if err := cb.Delete(k); err != nil {
+			return 0, err
+		}
+	}
+	chunks := 0
+	for i := 0; i < len(merged); i += maxChunkReadings {
+		part := merged[i:min(i+maxChunkReadings, len(merged))]
+		key := nanosKey(part[len(part)-1].ns)
+		if err := cb.Put(key, encodeChunk(key, part)); err != nil {
+			return chunks, fmt.Errorf("store: put chunk of %q: %w", counter, err)
+		}
+		chunks++
+	}
+	return chunks, nil
 }

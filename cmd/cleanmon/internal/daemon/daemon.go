@@ -233,6 +233,11 @@ func (d *Daemon) startPeople() error {
 	if d.people, err = newPeople(context.Background(), d.st, d.cfg, d.cfg.TLS.Enabled()); err != nil {
 		return err
 	}
+	d.people.fault = func() string {
+		d.faultMu.Lock()
+		defer d.faultMu.Unlock()
+		return d.faultMsg
+	}
 	if d.people.sigErr != nil {
 		d.log.Error("signatures made before this start may be missing from the records they signed", "err", d.people.sigErr)
 	}

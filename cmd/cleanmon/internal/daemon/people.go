@@ -35,6 +35,16 @@ type peopleSide struct {
 	signer   *people.Signer
 	oidc     *people.OIDC // nil without an identity provider
 
+	// The audit page's check reads every page of the file (about a
+	// second a gigabyte): its answer is kept for auditCheckFor, so that
+	// viewers refreshing the page do not each read the store again.
+	checkMu sync.Mutex
+	checked web.AuditStatus // Seq and Hash unused: read at every view
+	// fault is the daemon's integrity fault, "" while there is none
+	// (its start-up and daily checks): shown on the page whatever the
+	// kept check says.
+	fault func() string
+
 	mu   sync.Mutex
 	sigs map[string][]people.Signature // by subject, oldest first
 	// sigErr is why the signatures could not all be read at start (a
@@ -278,16 +288,43 @@ func cmpOr(a, b string) string {
 	return b
 }
 
-// AuditStatus checks the chain's newest links and signatures and gives
-// its head, for the top of the audit page (implements web.AuditState).
+// auditCheckFor is how long the audit page's check is shown before it
+// runs again; the page says when it ran.
+const auditCheckFor = time.Minute
+
+// AuditStatus gives the chain's head, read now, and the check of its
+// newest links, their signatures and the file's pages, run at most once
+// every auditCheckFor, for the top of the audit page (implements
+// web.AuditState).
 func (p *peopleSide) AuditStatus(ctx context.Context) web.AuditStatus {
-	out := web.AuditStatus{Check: fmt.Sprintf("newest %d links, their signatures, and the file's pages", store.DefaultCheckLinks), CheckedAt: time.Now().UTC()}
+	p.checkMu.Lock()
+	out := p.checked
+	if out.CheckedAt.IsZero() || time.Since(out.CheckedAt) >= auditCheckFor {
+		if out = p.checkAudit(ctx); ctx.Err() == nil { // a viewer gone away is no answer to keep
+			p.checked = out
+		}
+	}
+	out.Problems = append([]string(nil), out.Problems...)
+	p.checkMu.Unlock()
+	if p.fault != nil {
+		if msg := p.fault(); msg != "" {
+			out.Problems = append(out.Problems, msg)
+			out.Verified = false
+		}
+	}
 	seq, h, err := p.st.AuditHead()
 	if err != nil {
 		out.Problems = append(out.Problems, "head: "+err.Error())
+		out.Verified = false
 	}
 	out.Seq, out.Hash = seq, fmt.Sprintf("%x", h[:])
-	err = p.st.CheckQuick(ctx, store.CheckOptions{})
+	return out
+}
+
+// checkAudit runs the check AuditStatus shows.
+func (p *peopleSide) checkAudit(ctx context.Context) web.AuditStatus {
+	out := web.AuditStatus{Check: fmt.Sprintf("newest %d links, their signatures, and the file's pages", store.DefaultCheckLinks), CheckedAt: time.Now().UTC()}
+	err := p.st.CheckQuick(ctx, store.CheckOptions{})
 	var ie *store.IntegrityError
 	switch {
 	case err == nil && len(out.Problems) == 0:

@@ -1,6 +1,7 @@
 package store
 
 import (
+	"bytes"
 	"context"
 	"encoding/binary"
 	"fmt"
@@ -174,6 +175,13 @@ func (s *Store) AppendEnvironment(ctx context.Context, es []EnvSample) (accepted
 			}
 			if old != nil {
 				dup++
+				if !bytes.Equal(old, prep[i].val) {
+					// Not stored (the first stays), but an instrument or a
+					// gateway re-sent a sample with another value, or two
+					// samples carry one time: someone should look.
+					s.log.Warn("store: environment sample not stored: one of this sensor at this time is stored with another value",
+						"sensor", prep[i].sensor, "time", keyString(prep[i].key))
+				}
 				continue
 			}
 			if err := b.Put(prep[i].key, prep[i].val); err != nil {

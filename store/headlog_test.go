@@ -4,6 +4,8 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"log/slog"
+	"strings"
 	"testing"
 	"time"
 
@@ -135,5 +137,41 @@ func TestBackgroundCompactionOfManyRecords(t *testing.T) {
 	}
 	if got := scanAll(t, s, "pc-poll", time.Time{}, time.Time{}); len(got) != compactMaxRecords {
 		t.Fatalf("%d readings after the pass, want %d", len(got), compactMaxRecords)
+	}
+}
+
+// A DP or environment sample re-sent with another value is not stored
+// (the first stays) and is logged, in the head and once chunked, as a
+// conflicting reading is; the same value re-sent is a quiet duplicate.
+func TestSampleConflictsAreLogged(t *testing.T) {
+	var logs bytes.Buffer
+	s := openTest(t, t.TempDir(), Options{NoSync: true, CompactEvery: -1, Logger: slog.New(slog.NewTextHandler(&logs, nil))})
+	ctx := context.Background()
+	p := Pressure{Sensor: "dp-asm-gown", Time: t0, Pa: 12.4}
+	e := EnvSample{Sensor: "th-asm", Time: t0, Has: EnvTemperature, TemperatureC: 21.3}
+	for _, chunked := range []bool{false, true} {
+		if _, _, err := s.AppendPressure(ctx, []Pressure{p}); err != nil {
+			t.Fatal(err)
+		}
+		if _, _, err := s.AppendEnvironment(ctx, []EnvSample{e}); err != nil {
+			t.Fatal(err)
+		}
+		if chunked {
+			compactOK(t, s)
+		}
+		logs.Reset()
+		q, f := p, e
+		q.Pa, f.TemperatureC = -3.5, 25
+		if acc, dup, err := s.AppendPressure(ctx, []Pressure{p, q}); err != nil || acc != 0 || dup != 2 {
+			t.Fatalf("chunked %v: pressure accepted %d duplicates %d %v", chunked, acc, dup, err)
+		}
+		if acc, dup, err := s.AppendEnvironment(ctx, []EnvSample{e, f}); err != nil || acc != 0 || dup != 2 {
+			t.Fatalf("chunked %v: environment accepted %d duplicates %d %v", chunked, acc, dup, err)
+		}
+		out := logs.String()
+		if strings.Count(out, "stored with another value") != 2 || !strings.Contains(out, "dp-asm-gown") || !strings.Contains(out, "th-asm") {
+			t.Fatalf("chunked %v: want one warning for each conflicting sample, got:\n%s", chunked, out)
+		}
+		p.Time, e.Time = p.Time.Add(time.Minute), e.Time.Add(time.Minute)
 	}
 }

@@ -1,6 +1,7 @@
 package store
 
 import (
+	"bytes"
 	"context"
 	"fmt"
 	"time"
@@ -79,6 +80,13 @@ func (s *Store) AppendPressure(ctx context.Context, ps []Pressure) (accepted, du
 			}
 			if old != nil {
 				dup++
+				if !bytes.Equal(old, prep[i].val) {
+					// Not stored (the first stays), but an instrument or a
+					// gateway re-sent a sample with another value, or two
+					// samples carry one time: someone should look.
+					s.log.Warn("store: pressure sample not stored: one of this sensor at this time is stored with another value",
+						"sensor", prep[i].sensor, "time", keyString(prep[i].key))
+				}
 				continue
 			}
 			if err := b.Put(prep[i].key, prep[i].val); err != nil {

@@ -73,9 +73,17 @@ func loadWebFiles() (assets, pages map[string]*webFile) {
 		if err != nil || d.IsDir() {
 			return err
 		}
+		if strings.HasPrefix(p, "pages/shared/") {
+			return nil // a part of pages (sharedParts), not served alone
+		}
 		body, err := webFiles.ReadFile(p)
 		if err != nil {
 			return err
+		}
+		if strings.HasPrefix(p, "pages/") {
+			if body, err = withSharedParts(p, body); err != nil {
+				return err
+			}
 		}
 		ctype, ok := contentTypes[path.Ext(p)]
 		if !ok {
@@ -97,6 +105,29 @@ func loadWebFiles() (assets, pages map[string]*webFile) {
 		panic(err) // the embedded folder is part of the binary: a build defect
 	}
 	return assets, pages
+}
+
+// sharedParts are the pieces every page shell holds alike (the head's
+// metadata and style sheet; the top bar with its navigation, sign-in and
+// banner), each kept once in pages/shared/<name>.html and put in place of the
+// page's line "<!-- shared: <name> -->" when the files are loaded.
+var sharedParts = []string{"head", "top"}
+
+// withSharedParts fills the page's shared parts in; a page that lacks
+// one, or holds it twice, is a build defect named by file.
+func withSharedParts(name string, body []byte) ([]byte, error) {
+	for _, part := range sharedParts {
+		marker := []byte("<!-- shared: " + part + " -->\n")
+		if n := bytes.Count(body, marker); n != 1 {
+			return nil, fmt.Errorf("web file %s: %d lines %q, want one", name, n, bytes.TrimSpace(marker))
+		}
+		text, err := webFiles.ReadFile("pages/shared/" + part + ".html")
+		if err != nil {
+			return nil, err
+		}
+		body = bytes.Replace(body, marker, text, 1)
+	}
+	return body, nil
 }
 
 // serve writes the file; the ETag lets a wall screen that reloads every

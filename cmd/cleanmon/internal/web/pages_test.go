@@ -300,3 +300,29 @@ func (noPeople) SignaturesFor(string) []people.Signature { return nil }
 func (noPeople) AuditStatus(context.Context) AuditStatus {
 	return AuditStatus{Problems: []string{"not checked"}}
 }
+
+// Every page shell is served whole: the shared head and top bar put in
+// place of their marker lines, none left behind, the page's own title and
+// script kept.
+func TestPagesHoldTheSharedParts(t *testing.T) {
+	if len(webPages) < 10 {
+		t.Fatalf("%d page shells loaded", len(webPages))
+	}
+	for name, f := range webPages {
+		body := string(f.body)
+		for _, want := range []string{`<link rel="stylesheet" href="/assets/app.css">`, `<header class="top">`, `id="tz"`, `<title>`, `<script type="module"`} {
+			if strings.Count(body, want) != 1 {
+				t.Errorf("%s: %q %d times, want once", name, want, strings.Count(body, want))
+			}
+		}
+		if strings.Contains(body, "<!-- shared:") {
+			t.Errorf("%s: a shared part was not put in", name)
+		}
+		if strings.Index(body, `<meta charset="utf-8">`) > 200 {
+			t.Errorf("%s: the charset comes late", name)
+		}
+	}
+	if _, err := withSharedParts("pages/x.html", []byte("<!-- shared: head -->\n")); err == nil {
+		t.Error("a page without its top bar marker was accepted")
+	}
+}

@@ -156,20 +156,7 @@ func (in *EnvironmentIngest) commit(ctx context.Context, es []Environment) (Resu
 	if len(es) == 0 {
 		return Result{}, nil
 	}
-	uniq, dups := es, 0
-	if len(es) > 1 {
-		seen := make(map[dupKey]struct{}, len(es))
-		uniq = es[:0:0]
-		for i := range es {
-			k := dupKey{es[i].Sensor, es[i].Time.UnixNano()}
-			if _, dup := seen[k]; dup {
-				dups++
-				continue
-			}
-			seen[k] = struct{}{}
-			uniq = append(uniq, es[i])
-		}
-	}
+	uniq, dups := dropRepeats(es, func(x *Environment) dupKey { return dupKey{x.Sensor, x.Time.UnixNano()} })
 	acc, sdup, err := in.sink.CommitEnvironment(ctx, uniq)
 	if err != nil {
 		err = fmt.Errorf("%w: %w", ErrCommit, err)

@@ -247,24 +247,32 @@ type dupKey struct {
 	t  int64
 }
 
+// dropRepeats keeps the first of each series and time in xs, in order,
+// and counts the others: a batch that repeats a sample stores it once and
+// answers the rest as duplicates.
+func dropRepeats[T any](xs []T, key func(*T) dupKey) ([]T, int) {
+	if len(xs) < 2 {
+		return xs, 0
+	}
+	seen := make(map[dupKey]struct{}, len(xs))
+	out, dups := xs[:0:0], 0
+	for i := range xs {
+		k := key(&xs[i])
+		if _, dup := seen[k]; dup {
+			dups++
+			continue
+		}
+		seen[k] = struct{}{}
+		out = append(out, xs[i])
+	}
+	return out, dups
+}
+
 func (in *Ingest) commitReadings(ctx context.Context, rs []Reading) (Result, error) {
 	if len(rs) == 0 {
 		return Result{}, nil
 	}
-	uniq, dups := rs, 0
-	if len(rs) > 1 {
-		seen := make(map[dupKey]struct{}, len(rs))
-		uniq = rs[:0:0]
-		for i := range rs {
-			k := dupKey{rs[i].Counter, rs[i].Time.UnixNano()}
-			if _, dup := seen[k]; dup {
-				dups++
-				continue
-			}
-			seen[k] = struct{}{}
-			uniq = append(uniq, rs[i])
-		}
-	}
+	uniq, dups := dropRepeats(rs, func(x *Reading) dupKey { return dupKey{x.Counter, x.Time.UnixNano()} })
 	var acc, sdup int
 	var err error
 	fresh := uniq
@@ -299,20 +307,7 @@ func (in *Ingest) commitPressure(ctx context.Context, ps []Pressure) (Result, er
 	if len(ps) == 0 {
 		return Result{}, nil
 	}
-	uniq, dups := ps, 0
-	if len(ps) > 1 {
-		seen := make(map[dupKey]struct{}, len(ps))
-		uniq = ps[:0:0]
-		for i := range ps {
-			k := dupKey{ps[i].Sensor, ps[i].Time.UnixNano()}
-			if _, dup := seen[k]; dup {
-				dups++
-				continue
-			}
-			seen[k] = struct{}{}
-			uniq = append(uniq, ps[i])
-		}
-	}
+	uniq, dups := dropRepeats(ps, func(x *Pressure) dupKey { return dupKey{x.Sensor, x.Time.UnixNano()} })
 	acc, sdup, err := in.sink.CommitPressure(ctx, uniq)
 	if err != nil {
 		err = fmt.Errorf("%w: %w", ErrCommit, err)

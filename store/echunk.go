@@ -268,118 +268,17 @@ func decodeEnvValues(d *decoder, es []echunkSample, q int) {
 	}
 }
 
-// envIter merges the chunks and head of one sensor over [lo, hi).
-type envIter struct {
-	sensor string
-	lo, hi int64
-	chunks *bolt.Cursor
-	ck     []echunkSample
-	ci     int
-	cdone  bool
-	head   *bolt.Cursor
-	hk, hv []byte
-	hdone  bool
-	err    error
+// envSamples is how environment samples are kept (sampleiter.go).
+var envSamples = &sampleKind[echunkSample, EnvSample]{
+	head: bucketEnvironment, chunks: bucketEChunks,
+	ns:          func(e *echunkSample) int64 { return e.ns },
+	decodeChunk: decodeEChunk,
+	fromChunk:   func(sensor string, e *echunkSample) EnvSample { return e.sample(sensor) },
+	decodeHead:  decodeEnv,
 }
 
-func newEnvIter(tx *bolt.Tx, sensor string, lo, hi int64) *envIter {
-	it := &envIter{sensor: sensor, lo: lo, hi: hi, cdone: true, hdone: true}
-	if b := tx.Bucket(bucketEnvironment).Bucket([]byte(sensor)); b != nil {
-		it.head = b.Cursor()
-		it.hk, it.hv = it.head.Seek(nanosKey(lo))
-		it.hdone = false
-		it.headCheck()
-	}
-	if root := tx.Bucket(bucketEChunks); root != nil {
-		if b := root.Bucket([]byte(sensor)); b != nil {
-			it.chunks = b.Cursor()
-			it.cdone = false
-			k, v := it.chunks.Seek(nanosKey(lo))
-			it.load(k, v)
-		}
-	}
-	return it
-}
-
-func (it *envIter) headCheck() {
-	if it.hk == nil {
-		it.hdone = true
-		return
-	}
-	if ns, ok := keyNanos(it.hk); !ok || ns >= it.hi {
-		it.hdone = true
-	}
-}
-
-// load decodes the chunk at k (or the next with a sample in range) and
-// positions on its first sample at or after lo.
-func (it *envIter) load(k, v []byte) {
-	for {
-		if k == nil {
-			it.cdone = true
-			return
-		}
-		if _, first, ok := chunkHeader(v); ok && first >= it.hi {
-			it.cdone = true
-			return
-		}
-		es, _, err := decodeEChunk(it.sensor, k, v)
-		if err != nil {
-			it.err, it.cdone = err, true
-			return
-		}
-		it.ck, it.ci = es, 0
-		for it.ci < len(es) && es[it.ci].ns < it.lo {
-			it.ci++
-		}
-		if it.ci < len(es) {
-			it.cdone = es[it.ci].ns >= it.hi
-			return
-		}
-		k, v = it.chunks.Next()
-	}
-}
-
-// next returns the next sample in time order. A time in both places (a
-// damaged file only: compaction moves a sample in one transaction) is
-// given once, the chunk's copy.
-func (it *envIter) next() (EnvSample, bool) {
-	if it.err != nil || (it.cdone && it.hdone) {
-		return EnvSample{}, false
-	}
-	var hns int64 = math.MaxInt64
-	if !it.hdone {
-		hns, _ = keyNanos(it.hk)
-	}
-	if !it.cdone && it.ck[it.ci].ns <= hns {
-		e := it.ck[it.ci]
-		if e.ns == hns {
-			it.advanceHead()
-		}
-		it.ci++
-		if it.ci == len(it.ck) {
-			k, v := it.chunks.Next()
-			it.load(k, v)
-		} else if it.ck[it.ci].ns >= it.hi {
-			it.cdone = true
-		}
-		if it.err != nil {
-			return EnvSample{}, false
-		}
-		return e.sample(it.sensor), true
-	}
-	e, err := decodeEnv(it.sensor, it.hk, it.hv)
-	if err != nil {
-		it.err = err
-		return EnvSample{}, false
-	}
-	it.advanceHead()
-	return e, true
-}
-
-func (it *envIter) advanceHead() {
-	it.hk, it.hv = it.head.Next()
-	it.headCheck()
+func newEnvIter(tx *bolt.Tx, sensor string, lo, hi int64) *sampleIter[echunkSample, EnvSample] {
+	return newSampleIter(tx, envSamples, sensor, lo, hi)
 }
 
 // compactEnvSensor moves the head samples of sensor into environment

@@ -148,114 +148,19 @@ func decodePChunk(sensor string, key, v []byte) ([]pchunkSample, []byte, error) 
 	return ps, d.b, nil
 }
 
-// pressureIter merges the chunks and head of one sensor over [lo, hi).
-type pressureIter struct {
-	sensor string
-	lo, hi int64
-	chunks *bolt.Cursor
-	ck     []pchunkSample
-	ci     int
-	cdone  bool
-	head   *bolt.Cursor
-	hk, hv []byte
-	hdone  bool
-	err    error
+// pressureSamples is how DP samples are kept (sampleiter.go).
+var pressureSamples = &sampleKind[pchunkSample, Pressure]{
+	head: bucketPressure, chunks: bucketPChunks,
+	ns:          func(p *pchunkSample) int64 { return p.ns },
+	decodeChunk: decodePChunk,
+	fromChunk: func(sensor string, p *pchunkSample) Pressure {
+		return Pressure{Sensor: sensor, Time: nsTime(p.ns), Pa: p.pa}
+	},
+	decodeHead: decodePressure,
 }
 
-func newPressureIter(tx *bolt.Tx, sensor string, lo, hi int64) *pressureIter {
-	it := &pressureIter{sensor: sensor, lo: lo, hi: hi, cdone: true, hdone: true}
-	if b := tx.Bucket(bucketPressure).Bucket([]byte(sensor)); b != nil {
-		it.head = b.Cursor()
-		it.hk, it.hv = it.head.Seek(nanosKey(lo))
-		it.hdone = false
-		it.headCheck()
-	}
-	if root := tx.Bucket(bucketPChunks); root != nil {
-		if b := root.Bucket([]byte(sensor)); b != nil {
-			it.chunks = b.Cursor()
-			it.cdone = false
-			k, v := it.chunks.Seek(nanosKey(lo))
-			it.load(k, v)
-		}
-	}
-	return it
-}
-
-func (it *pressureIter) headCheck() {
-	if it.hk == nil {
-		it.hdone = true
-		return
-	}
-	if ns, ok := keyNanos(it.hk); !ok || ns >= it.hi {
-		it.hdone = true
-	}
-}
-
-func (it *pressureIter) load(k, v []byte) {
-	for {
-		if k == nil {
-			it.cdone = true
-			return
-		}
-		if _, first, ok := chunkHeader(v); ok && first >= it.hi {
-			it.cdone = true
-			return
-		}
-		ps, _, err := decodePChunk(it.sensor, k, v)
-		if err != nil {
-			it.err, it.cdone = err, true
-			return
-		}
-		it.ck, it.ci = ps, 0
-		for it.ci < len(ps) && ps[it.ci].ns < it.lo {
-			it.ci++
-		}
-		if it.ci < len(ps) {
-			it.cdone = ps[it.ci].ns >= it.hi
-			return
-		}
-		k, v = it.chunks.Next()
-	}
-}
-
-// next returns the next sample in time order.
-func (it *pressureIter) next() (Pressure, bool) {
-	if it.err != nil || (it.cdone && it.hdone) {
-		return Pressure{}, false
-	}
-	var hns int64 = math.MaxInt64
-	if !it.hdone {
-		hns, _ = keyNanos(it.hk)
-	}
-	if !it.cdone && it.ck[it.ci].ns <= hns {
-		p := it.ck[it.ci]
-		if p.ns == hns {
-			it.advanceHead()
-		}
-		it.ci++
-		if it.ci == len(it.ck) {
-			k, v := it.chunks.Next()
-			it.load(k, v)
-		} else if it.ck[it.ci].ns >= it.hi {
-			it.cdone = true
-		}
-		if it.err != nil {
-			return Pressure{}, false
-		}
-		return Pressure{Sensor: it.sensor, Time: nsTime(p.ns), Pa: p.pa}, true
-	}
-	p, err := decodePressure(it.sensor, it.hk, it.hv)
-	if err != nil {
-		it.err = err
-		return Pressure{}, false
-	}
-	it.advanceHead()
-	return p, true
-}
-
-func (it *pressureIter) advanceHead() {
-	it.hk, it.hv = it.head.Next()
-	it.headCheck()
+func newPressureIter(tx *bolt.Tx, sensor string, lo, hi int64) *sampleIter[pchunkSample, Pressure] {
+	return newSampleIter(tx, pressureSamples, sensor, lo, hi)
 }
 
 // compactSensor moves the head samples of sensor into pressure chunks, as

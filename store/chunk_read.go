@@ -244,11 +244,17 @@ func storedValue(tx *bolt.Tx, counter string, key []byte) ([]byte, error) {
 // lastChunkNanos is the time of counter's newest chunked reading, −1 when
 // it has none: a reading after it cannot be a duplicate of a chunked one.
 func lastChunkNanos(tx *bolt.Tx, counter string) int64 {
-	root := tx.Bucket(bucketChunks)
+	return lastChunkIn(tx, bucketChunks, counter)
+}
+
+// lastChunkIn is the key time of name's last chunk in the chunk bucket
+// kind (its newest sample), −1 when it has none.
+func lastChunkIn(tx *bolt.Tx, kind []byte, name string) int64 {
+	root := tx.Bucket(kind)
 	if root == nil {
 		return -1
 	}
-	b := root.Bucket([]byte(counter))
+	b := root.Bucket([]byte(name))
 	if b == nil {
 		return -1
 	}

@@ -441,19 +441,7 @@ func envValue(tx *bolt.Tx, sensor string, key []byte) ([]byte, error) {
 // lastEChunkNanos is the time of sensor's newest chunked sample, −1 if
 // none: a sample after it cannot repeat a chunked one.
 func lastEChunkNanos(tx *bolt.Tx, sensor string) int64 {
-	root := tx.Bucket(bucketEChunks)
-	if root == nil {
-		return -1
-	}
-	b := root.Bucket([]byte(sensor))
-	if b == nil {
-		return -1
-	}
-	k, _ := b.Cursor().Last()
-	if ns, ok := keyNanos(k); ok {
-		return ns
-	}
-	return -1
+	return lastChunkIn(tx, bucketEChunks, sensor)
 }
 
 // envSensors lists the environment sensors with samples in the head or

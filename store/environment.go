@@ -242,25 +242,9 @@ func (s *Store) LatestEnvironment(sensor string) (EnvSample, bool, error) {
 	var out EnvSample
 	found := false
 	err := s.view(func(tx *bolt.Tx, _ *guard) error {
-		var headNs int64 = -1
-		if b := tx.Bucket(bucketEnvironment).Bucket([]byte(sensor)); b != nil {
-			if k, v := b.Cursor().Last(); k != nil {
-				e, err := decodeEnv(sensor, k, v)
-				if err != nil {
-					return err
-				}
-				out, found, headNs = e, true, e.Time.UnixNano()
-			}
-		}
-		last := lastEChunkNanos(tx, sensor)
-		if last <= headNs {
-			return nil
-		}
-		it := newEnvIter(tx, sensor, last, last+1)
-		if e, ok := it.next(); ok {
-			out, found = e, true
-		}
-		return it.err
+		var err error
+		out, found, err = envSamples.latest(tx, sensor)
+		return err
 	})
 	if err != nil {
 		return EnvSample{}, false, err

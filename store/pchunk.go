@@ -294,17 +294,5 @@ func pressureValue(tx *bolt.Tx, sensor string, key []byte) ([]byte, error) {
 
 // lastPChunkNanos is the time of sensor's newest chunked sample, −1 if none.
 func lastPChunkNanos(tx *bolt.Tx, sensor string) int64 {
-	root := tx.Bucket(bucketPChunks)
-	if root == nil {
-		return -1
-	}
-	b := root.Bucket([]byte(sensor))
-	if b == nil {
-		return -1
-	}
-	k, _ := b.Cursor().Last()
-	if ns, ok := keyNanos(k); ok {
-		return ns
-	}
-	return -1
+	return lastChunkIn(tx, bucketPChunks, sensor)
 }

@@ -145,25 +145,9 @@ func (s *Store) LatestPressure(sensor string) (Pressure, bool, error) {
 	var out Pressure
 	found := false
 	err := s.view(func(tx *bolt.Tx, _ *guard) error {
-		var headNs int64 = -1
-		if b := tx.Bucket(bucketPressure).Bucket([]byte(sensor)); b != nil {
-			if k, v := b.Cursor().Last(); k != nil {
-				p, err := decodePressure(sensor, k, v)
-				if err != nil {
-					return err
-				}
-				out, found, headNs = p, true, p.Time.UnixNano()
-			}
-		}
-		last := lastPChunkNanos(tx, sensor)
-		if last <= headNs {
-			return nil
-		}
-		it := newPressureIter(tx, sensor, last, last+1)
-		if p, ok := it.next(); ok {
-			out, found = p, true
-		}
-		return it.err
+		var err error
+		out, found, err = pressureSamples.latest(tx, sensor)
+		return err
 	})
 	if err != nil {
 		return Pressure{}, false, err

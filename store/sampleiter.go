@@ -133,3 +133,29 @@ func (it *sampleIter[S, T]) advanceHead() {
 	it.hk, it.hv = it.head.Next()
 	it.headCheck()
 }
+
+// latest is the newest sample of sensor, head or chunk; false if none.
+func (k *sampleKind[S, T]) latest(tx *bolt.Tx, sensor string) (T, bool, error) {
+	var out T
+	found := false
+	var headNs int64 = -1
+	if b := tx.Bucket(k.head).Bucket([]byte(sensor)); b != nil {
+		if key, v := b.Cursor().Last(); key != nil {
+			t, err := k.decodeHead(sensor, key, v)
+			if err != nil {
+				return out, false, err
+			}
+			headNs, _ = keyNanos(key)
+			out, found = t, true
+		}
+	}
+	last := lastChunkIn(tx, k.chunks, sensor)
+	if last <= headNs {
+		return out, found, nil
+	}
+	it := newSampleIter(tx, k, sensor, last, last+1)
+	if t, ok := it.next(); ok {
+		out, found = t, true
+	}
+	return out, found, it.err
+}

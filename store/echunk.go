@@ -275,6 +275,15 @@ var envSamples = &sampleKind[echunkSample, EnvSample]{
 	decodeChunk: decodeEChunk,
 	fromChunk:   func(sensor string, e *echunkSample) EnvSample { return e.sample(sensor) },
 	decodeHead:  decodeEnv,
+	fromHead: func(sensor string, k, v []byte) (echunkSample, error) {
+		e, err := decodeEnv(sensor, k, v)
+		s := fromEnv(&e)
+		s.tag, s.hasTag = tagOf(v), true
+		return s, err
+	},
+	encodeChunk: encodeEChunk,
+	setTag:      func(e *echunkSample, tag byte) { e.tag, e.hasTag = tag, true },
+	what:        "environment",
 }
 
 func newEnvIter(tx *bolt.Tx, sensor string, lo, hi int64) *sampleIter[echunkSample, EnvSample] {
@@ -282,103 +291,9 @@ func newEnvIter(tx *bolt.Tx, sensor string, lo, hi int64) *sampleIter[echunkSamp
 }
 
 // compactEnvSensor moves the head samples of sensor into environment
-// chunks, as compactSensor does for pressure: merged with the last chunk
-// when it is not full and with any chunk they overlap, written as full
-// chunks, the head values deleted in the same transaction.
+// chunks, as compactSensor does for pressure.
 func compactEnvSensor(tx *bolt.Tx, sensor string) (moved, chunks int, err error) {
-	head := tx.Bucket(bucketEnvironment).Bucket([]byte(sensor))
-	if head == nil {
-		return 0, 0, nil
-	}
-	var fresh []echunkSample
-	var headKeys [][]byte
-	c := head.Cursor()
-	for k, v := c.First(); k != nil; k, v = c.Next() {
-		e, err := decodeEnv(sensor, k, v)
-		if err != nil {
-			return 0, 0, err
-		}
-		s := fromEnv(&e)
-		s.tag, s.hasTag = tagOf(v), true
-		fresh = append(fresh, s)
-		headKeys = append(headKeys, append([]byte(nil), k...))
-	}
-	if len(fresh) == 0 {
-		return 0, 0, nil
-	}
-	cb, err := tx.Bucket(bucketEChunks).CreateBucketIfNotExists([]byte(sensor))
-	if err != nil {
-		return 0, 0, fmt.Errorf("store: environment chunks of %q: %w", sensor, err)
-	}
-	cb.FillPercent = fillPercent
-	var old []echunkSample
-	var oldKeys [][]byte
-	cur := cb.Cursor()
-	k, v := cur.Seek(nanosKey(fresh[0].ns))
-	if k == nil {
-		if k, v = cur.Last(); k != nil {
-			if n, _, ok := chunkHeader(v); ok && n >= maxChunkReadings {
-				k = nil
-			}
-		}
-	}
-	for ; k != nil; k, v = cur.Next() {
-		es, tags, err := decodeEChunk(sensor, k, v)
-		if err != nil {
-			return 0, 0, err
-		}
-		// The checksum held, so the stored tags are the samples' own.
-		for i := range es {
-			es[i].tag, es[i].hasTag = tags[i], true
-		}
-		old = append(old, es...)
-		oldKeys = append(oldKeys, append([]byte(nil), k...))
-	}
-	merged := make([]echunkSample, 0, len(old)+len(fresh))
-	i, j := 0, 0
-	for i < len(old) || j < len(fresh) {
-		switch {
-		case j == len(fresh) || (i < len(old) && old[i].ns < fresh[j].ns):
-			merged = append(merged, old[i])
-			i++
-		case i == len(old) || fresh[j].ns < old[i].ns:
-			merged = append(merged, fresh[j])
-			j++
-		default:
-			return 0, 0, fmt.Errorf("%w: environment sensor %q at %s", errChunkOverlap, sensor, keyString(nanosKey(old[i].ns)))
-		}
-	}
-	for _, k := range oldKeys {
-		if err := cb.Delete(k); err != nil {
-			return 0, 0, err
-		}
-	}
-	for i := 0; i < len(merged); i += maxChunkReadings {
-		part := merged[i:min(i+maxChunkReadings, len(merged))]
-		key := nanosKey(part[len(part)-1].ns)
-		if err := cb.Put(key, encodeEChunk(key, part)); err != nil {
-			return 0, 0, fmt.Errorf("store: put environment chunk of %q: %w", sensor, err)
-		}
-		chunks++
-	}
-	if compactHook != nil {
-		if err := compactHook(sensor); err != nil {
-			return 0, 0, err
-		}
-	}
-	for _, k := range headKeys {
-		if err := head.Delete(k); err != nil {
-			return 0, 0, err
-		}
-	}
-	if k, _ := head.Cursor().First(); k == nil {
-		// An empty nested bucket still takes a page; the next append
-		// creates it again.
-		if err := tx.Bucket(bucketEnvironment).DeleteBucket([]byte(sensor)); err != nil {
-			return 0, 0, err
-		}
-	}
-	return len(fresh), chunks, nil
+	return compactSamples(tx, envSamples, sensor)
 }
 
 // envChunkAt decodes the chunk of sensor that would hold the sample at

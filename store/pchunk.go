@@ -157,6 +157,13 @@ var pressureSamples = &sampleKind[pchunkSample, Pressure]{
 		return Pressure{Sensor: sensor, Time: nsTime(p.ns), Pa: p.pa}
 	},
 	decodeHead: decodePressure,
+	fromHead: func(sensor string, k, v []byte) (pchunkSample, error) {
+		p, err := decodePressure(sensor, k, v)
+		return pchunkSample{ns: p.Time.UnixNano(), pa: p.Pa, tag: tagOf(v), hasTag: true}, err
+	},
+	encodeChunk: encodePChunk,
+	setTag:      func(p *pchunkSample, tag byte) { p.tag, p.hasTag = tag, true },
+	what:        "pressure",
 }
 
 func newPressureIter(tx *bolt.Tx, sensor string, lo, hi int64) *sampleIter[pchunkSample, Pressure] {
@@ -166,94 +173,7 @@ func newPressureIter(tx *bolt.Tx, sensor string, lo, hi int64) *sampleIter[pchun
 // compactSensor moves the head samples of sensor into pressure chunks, as
 // compactCounter does for readings.
 func compactSensor(tx *bolt.Tx, sensor string) (moved, chunks int, err error) {
-	head := tx.Bucket(bucketPressure).Bucket([]byte(sensor))
-	if head == nil {
-		return 0, 0, nil
-	}
-	var fresh []pchunkSample
-	var headKeys [][]byte
-	c := head.Cursor()
-	for k, v := c.First(); k != nil; k, v = c.Next() {
-		p, err := decodePressure(sensor, k, v)
-		if err != nil {
-			return 0, 0, err
-		}
-		fresh = append(fresh, pchunkSample{ns: p.Time.UnixNano(), pa: p.Pa, tag: tagOf(v), hasTag: true})
-		headKeys = append(headKeys, append([]byte(nil), k...))
-	}
-	if len(fresh) == 0 {
-		return 0, 0, nil
-	}
-	cb, err := tx.Bucket(bucketPChunks).CreateBucketIfNotExists([]byte(sensor))
-	if err != nil {
-		return 0, 0, fmt.Errorf("store: pressure chunks of %q: %w", sensor, err)
-	}
-	cb.FillPercent = fillPercent
-	var old []pchunkSample
-	var oldKeys [][]byte
-	cur := cb.Cursor()
-	k, v := cur.Seek(nanosKey(fresh[0].ns))
-	if k == nil {
-		if k, v = cur.Last(); k != nil {
-			if n, _, ok := chunkHeader(v); ok && n >= maxChunkReadings {
-				k = nil
-			}
-		}
-	}
-	for ; k != nil; k, v = cur.Next() {
-		ps, tags, err := decodePChunk(sensor, k, v)
-		if err != nil {
-			return 0, 0, err
-		}
-		for i := range ps {
-			ps[i].tag, ps[i].hasTag = tags[i], true
-		}
-		old = append(old, ps...)
-		oldKeys = append(oldKeys, append([]byte(nil), k...))
-	}
-	merged := make([]pchunkSample, 0, len(old)+len(fresh))
-	i, j := 0, 0
-	for i < len(old) || j < len(fresh) {
-		switch {
-		case j == len(fresh) || (i < len(old) && old[i].ns < fresh[j].ns):
-			merged = append(merged, old[i])
-			i++
-		case i == len(old) || fresh[j].ns < old[i].ns:
-			merged = append(merged, fresh[j])
-			j++
-		default:
-			return 0, 0, fmt.Errorf("%w: sensor %q at %s", errChunkOverlap, sensor, keyString(nanosKey(old[i].ns)))
-		}
-	}
-	for _, k := range oldKeys {
-		if err := cb.Delete(k); err != nil {
-			return 0, 0, err
-		}
-	}
-	for i := 0; i < len(merged); i += maxChunkReadings {
-		part := merged[i:min(i+maxChunkReadings, len(merged))]
-		key := nanosKey(part[len(part)-1].ns)
-		if err := cb.Put(key, encodePChunk(key, part)); err != nil {
-			return 0, 0, fmt.Errorf("store: put pressure chunk of %q: %w", sensor, err)
-		}
-		chunks++
-	}
-	if compactHook != nil {
-		if err := compactHook(sensor); err != nil {
-			return 0, 0, err
-		}
-	}
-	for _, k := range headKeys {
-		if err := head.Delete(k); err != nil {
-			return 0, 0, err
-		}
-	}
-	if k, _ := head.Cursor().First(); k == nil {
-		if err := tx.Bucket(bucketPressure).DeleteBucket([]byte(sensor)); err != nil {
-			return 0, 0, err
-		}
-	}
-	return len(fresh), chunks, nil
+	return compactSamples(tx, pressureSamples, sensor)
 }
 
 // pressureValue returns the schema-1 value of sensor's sample at key,

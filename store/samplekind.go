@@ -1,6 +1,7 @@
 package store
 
 import (
+	"fmt"
 	"math"
 
 	bolt "go.etcd.io/bbolt"
@@ -15,6 +16,13 @@ type sampleKind[S, T any] struct {
 	decodeChunk  func(sensor string, key, v []byte) ([]S, []byte, error)
 	fromChunk    func(sensor string, s *S) T
 	decodeHead   func(sensor string, key, v []byte) (T, error)
+	// For compaction: a head value as a chunk sample with its tag, a
+	// chunk's encoding, a decoded chunk's stored tag put back, and the
+	// kind's name in errors.
+	fromHead    func(sensor string, key, v []byte) (S, error)
+	encodeChunk func(key []byte, ss []S) []byte
+	setTag      func(s *S, tag byte)
+	what        string
 }
 
 // sampleIter merges the chunks and head of one sensor over [lo, hi), in
@@ -158,4 +166,103 @@ func (k *sampleKind[S, T]) latest(tx *bolt.Tx, sensor string) (T, bool, error) {
 		out, found = t, true
 	}
 	return out, found, it.err
+}
+
+// compactSamples moves the head samples of sensor into chunks, as
+// compactCounter does for readings: merged with the last chunk while it
+// is not full and with any chunk they overlap, written as full chunks,
+// the head values deleted in the same transaction.
+func compactSamples[S, T any](tx *bolt.Tx, k *sampleKind[S, T], sensor string) (moved, chunks int, err error) {
+	headRoot := tx.Bucket(k.head)
+	head := headRoot.Bucket([]byte(sensor))
+	if head == nil {
+		return 0, 0, nil
+	}
+	var fresh []S
+	var headKeys [][]byte
+	c := head.Cursor()
+	for key, v := c.First(); key != nil; key, v = c.Next() {
+		s, err := k.fromHead(sensor, key, v)
+		if err != nil {
+			return 0, 0, err
+		}
+		fresh = append(fresh, s)
+		headKeys = append(headKeys, append([]byte(nil), key...))
+	}
+	if len(fresh) == 0 {
+		return 0, 0, nil
+	}
+	cb, err := tx.Bucket(k.chunks).CreateBucketIfNotExists([]byte(sensor))
+	if err != nil {
+		return 0, 0, fmt.Errorf("store: %s chunks of %q: %w", k.what, sensor, err)
+	}
+	cb.FillPercent = fillPercent
+	var old []S
+	var oldKeys [][]byte
+	cur := cb.Cursor()
+	key, v := cur.Seek(nanosKey(k.ns(&fresh[0])))
+	if key == nil {
+		if key, v = cur.Last(); key != nil {
+			if n, _, ok := chunkHeader(v); ok && n >= maxChunkReadings {
+				key = nil
+			}
+		}
+	}
+	for ; key != nil; key, v = cur.Next() {
+		ss, tags, err := k.decodeChunk(sensor, key, v)
+		if err != nil {
+			return 0, 0, err
+		}
+		// The checksum held, so the stored tags are the samples' own.
+		for i := range ss {
+			k.setTag(&ss[i], tags[i])
+		}
+		old = append(old, ss...)
+		oldKeys = append(oldKeys, append([]byte(nil), key...))
+	}
+	merged := make([]S, 0, len(old)+len(fresh))
+	i, j := 0, 0
+	for i < len(old) || j < len(fresh) {
+		switch {
+		case j == len(fresh) || (i < len(old) && k.ns(&old[i]) < k.ns(&fresh[j])):
+			merged = append(merged, old[i])
+			i++
+		case i == len(old) || k.ns(&fresh[j]) < k.ns(&old[i]):
+			merged = append(merged, fresh[j])
+			j++
+		default:
+			return 0, 0, fmt.Errorf("%w: %s sensor %q at %s", errChunkOverlap, k.what, sensor, keyString(nanosKey(k.ns(&old[i]))))
+		}
+	}
+	for _, key := range oldKeys {
+		if err := cb.Delete(key); err != nil {
+			return 0, 0, err
+		}
+	}
+	for i := 0; i < len(merged); i += maxChunkReadings {
+		part := merged[i:min(i+maxChunkReadings, len(merged))]
+		key := nanosKey(k.ns(&part[len(part)-1]))
+		if err := cb.Put(key, k.encodeChunk(key, part)); err != nil {
+			return 0, 0, fmt.Errorf("store: put %s chunk of %q: %w", k.what, sensor, err)
+		}
+		chunks++
+	}
+	if compactHook != nil {
+		if err := compactHook(sensor); err != nil {
+			return 0, 0, err
+		}
+	}
+	for _, key := range headKeys {
+		if err := head.Delete(key); err != nil {
+			return 0, 0, err
+		}
+	}
+	if key, _ := head.Cursor().First(); key == nil {
+		// An empty nested bucket still takes a page; the next append
+		// creates it again.
+		if err := headRoot.DeleteBucket([]byte(sensor)); err != nil {
+			return 0, 0, err
+		}
+	}
+	return len(fresh), chunks, nil
 }

@@ -284,6 +284,16 @@ var envSamples = &sampleKind[echunkSample, EnvSample]{
 	encodeChunk: encodeEChunk,
 	setTag:      func(e *echunkSample, tag byte) { e.tag, e.hasTag = tag, true },
 	what:        "environment",
+	check:       func(x *EnvSample) (string, string) { return checkEnv(x) },
+	prepare: func(x *EnvSample) (string, []byte, []byte) {
+		key := timeKey(x.Time)
+		return x.Sensor, key, encodeEnv(key, x)
+	},
+	recordKind: "environment sample",
+	cover:      coverEnv,
+	action:     AuditEnv,
+	plural:     "environment samples",
+	chunkValue: envValue,
 }
 
 func newEnvIter(tx *bolt.Tx, sensor string, lo, hi int64) *sampleIter[echunkSample, EnvSample] {

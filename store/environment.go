@@ -1,7 +1,6 @@
 package store
 
 import (
-	"bytes"
 	"context"
 	"encoding/binary"
 	"fmt"
@@ -129,73 +128,7 @@ func decodeEnv(sensor string, key, v []byte) (EnvSample, error) {
 // field of the first bad sample), a repeated sensor and time is a
 // duplicate and is not stored again.
 func (s *Store) AppendEnvironment(ctx context.Context, es []EnvSample) (accepted, duplicates int, err error) {
-	if err := s.enter(); err != nil {
-		return 0, 0, err
-	}
-	defer s.exit()
-	if len(es) == 0 {
-		return 0, 0, ctx.Err()
-	}
-	type prepared struct {
-		sensor   string
-		key, val []byte
-	}
-	prep := make([]prepared, len(es))
-	for i := range es {
-		e := &es[i]
-		if field, reason := checkEnv(e); field != "" {
-			return 0, 0, &RecordError{Kind: "environment sample", Index: i, Field: field, Reason: reason}
-		}
-		key := timeKey(e.Time)
-		prep[i] = prepared{sensor: e.Sensor, key: key, val: encodeEnv(key, e)}
-	}
-	var acc, dup int
-	err = s.submit(ctx, len(prep), func(tx *bolt.Tx) error {
-		acc, dup = 0, 0
-		series := newSeriesBuckets(tx, bucketEnvironment)
-		cov := newCoverage(coverEnv)
-		chunked := map[string]int64{} // newest chunked time per sensor (echunk.go)
-		for i := range prep {
-			b, err := series.get(prep[i].sensor)
-			if err != nil {
-				return err
-			}
-			old := b.Get(prep[i].key)
-			if old == nil {
-				last, ok := chunked[prep[i].sensor]
-				if !ok {
-					last = lastEChunkNanos(tx, prep[i].sensor)
-					chunked[prep[i].sensor] = last
-				}
-				if ns, _ := keyNanos(prep[i].key); ns <= last {
-					if old, err = envValue(tx, prep[i].sensor, prep[i].key); err != nil {
-						return err
-					}
-				}
-			}
-			if old != nil {
-				dup++
-				if !bytes.Equal(old, prep[i].val) {
-					// Not stored (the first stays), but an instrument or a
-					// gateway re-sent a sample with another value, or two
-					// samples carry one time: someone should look.
-					s.log.Warn("store: environment sample not stored: one of this sensor at this time is stored with another value",
-						"sensor", prep[i].sensor, "time", keyString(prep[i].key))
-				}
-				continue
-			}
-			if err := b.Put(prep[i].key, prep[i].val); err != nil {
-				return fmt.Errorf("store: put environment sample of %q: %w", prep[i].sensor, err)
-			}
-			acc++
-			cov.add(prep[i].sensor, prep[i].key, prep[i].val)
-		}
-		return auditBatch(tx, cov, AuditEnv, "environment samples")
-	})
-	if err != nil {
-		return 0, 0, err
-	}
-	return acc, dup, nil
+	return appendSamples(ctx, s, envSamples, es)
 }
 
 // ScanEnvironment calls fn with each sample of sensor in [from, to),

@@ -164,6 +164,16 @@ var pressureSamples = &sampleKind[pchunkSample, Pressure]{
 	encodeChunk: encodePChunk,
 	setTag:      func(p *pchunkSample, tag byte) { p.tag, p.hasTag = tag, true },
 	what:        "pressure",
+	check:       func(x *Pressure) (string, string) { return checkPressure(x) },
+	prepare: func(x *Pressure) (string, []byte, []byte) {
+		key := timeKey(x.Time)
+		return x.Sensor, key, encodePressure(key, x)
+	},
+	recordKind: "pressure",
+	cover:      coverPressure,
+	action:     AuditPressure,
+	plural:     "pressure samples",
+	chunkValue: pressureValue,
 }
 
 func newPressureIter(tx *bolt.Tx, sensor string, lo, hi int64) *sampleIter[pchunkSample, Pressure] {

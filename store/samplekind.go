@@ -1,6 +1,8 @@
 package store
 
 import (
+	"bytes"
+	"context"
 	"fmt"
 	"math"
 
@@ -23,6 +25,94 @@ type sampleKind[S, T any] struct {
 	encodeChunk func(key []byte, ss []S) []byte
 	setTag      func(s *S, tag byte)
 	what        string
+	// For appends: the head value of a sample, its audit cover, the
+	// audit action of a batch and the batch's words in it, and the stored
+	// value of a chunked sample (nil when none).
+	prepare    func(t *T) (sensor string, key, val []byte)
+	check      func(t *T) (field, reason string)
+	recordKind string // RecordError.Kind
+	cover      byte
+	action     string
+	plural     string
+	chunkValue func(tx *bolt.Tx, sensor string, key []byte) ([]byte, error)
+}
+
+// preparedSample is a checked sample ready for any number of transaction
+// attempts.
+type preparedSample struct {
+	sensor   string
+	key, val []byte
+}
+
+// appendSamples stores ts in one durable transaction with an audit entry
+// covering what it stored. A sample whose sensor and time are already
+// stored, in the head or a chunk, is counted in duplicates and not stored
+// again (logged when its value differs); an invalid one fails the call
+// with a *RecordError and nothing is stored.
+func appendSamples[S, T any](ctx context.Context, s *Store, k *sampleKind[S, T], ts []T) (accepted, duplicates int, err error) {
+	if err := s.enter(); err != nil {
+		return 0, 0, err
+	}
+	defer s.exit()
+	if len(ts) == 0 {
+		return 0, 0, ctx.Err()
+	}
+	prep := make([]preparedSample, len(ts))
+	for i := range ts {
+		if field, reason := k.check(&ts[i]); field != "" {
+			return 0, 0, &RecordError{Kind: k.recordKind, Index: i, Field: field, Reason: reason}
+		}
+		sensor, key, val := k.prepare(&ts[i])
+		prep[i] = preparedSample{sensor: sensor, key: key, val: val}
+	}
+	var acc, dup int
+	err = s.submit(ctx, len(prep), func(tx *bolt.Tx) error {
+		acc, dup = 0, 0
+		series := newSeriesBuckets(tx, k.head)
+		cov := newCoverage(k.cover)
+		chunked := map[string]int64{} // newest chunked time per sensor
+		for i := range prep {
+			p := &prep[i]
+			b, err := series.get(p.sensor)
+			if err != nil {
+				return err
+			}
+			old := b.Get(p.key)
+			if old == nil {
+				last, ok := chunked[p.sensor]
+				if !ok {
+					last = lastChunkIn(tx, k.chunks, p.sensor)
+					chunked[p.sensor] = last
+				}
+				if ns, _ := keyNanos(p.key); ns <= last {
+					if old, err = k.chunkValue(tx, p.sensor, p.key); err != nil {
+						return err
+					}
+				}
+			}
+			if old != nil {
+				dup++
+				if !bytes.Equal(old, p.val) {
+					// Not stored (the first stays), but an instrument or a
+					// gateway re-sent a sample with another value, or two
+					// samples carry one time: someone should look.
+					s.log.Warn("store: "+k.what+" sample not stored: one of this sensor at this time is stored with another value",
+						"sensor", p.sensor, "time", keyString(p.key))
+				}
+				continue
+			}
+			if err := b.Put(p.key, p.val); err != nil {
+				return fmt.Errorf("store: put %s sample of %q: %w", k.what, p.sensor, err)
+			}
+			acc++
+			cov.add(p.sensor, p.key, p.val)
+		}
+		return auditBatch(tx, cov, k.action, k.plural)
+	})
+	if err != nil {
+		return 0, 0, err
+	}
+	return acc, dup, nil
 }
 
 // sampleIter merges the chunks and head of one sensor over [lo, hi), in

@@ -6,8 +6,6 @@ import (
 	"fmt"
 	"math"
 	"time"
-
-	bolt "go.etcd.io/bbolt"
 )
 
 var bucketEnvironment = []byte("environment") // sensor → time → environment sample
@@ -135,54 +133,13 @@ func (s *Store) AppendEnvironment(ctx context.Context, es []EnvSample) (accepted
 // oldest first, with the same rules as ScanReadings (head and chunks
 // merged).
 func (s *Store) ScanEnvironment(sensor string, from, to time.Time, fn func(EnvSample) error) error {
-	if err := s.enter(); err != nil {
-		return err
-	}
-	defer s.exit()
-	if reason := checkName(sensor); reason != "" {
-		return fmt.Errorf("%w: name %q: %s", ErrInvalid, sensor, reason)
-	}
-	lo, hi, ok, err := keyRange(from, to)
-	if err != nil || !ok {
-		return err
-	}
-	loN, _ := keyNanos(lo)
-	hiN, _ := keyNanos(hi)
-	return s.view(func(tx *bolt.Tx, g *guard) error {
-		it := newEnvIter(tx, sensor, loN, hiN)
-		for {
-			e, ok := it.next()
-			if !ok {
-				return it.err
-			}
-			if err := g.call(func() error { return fn(e) }); err != nil {
-				return err
-			}
-		}
-	})
+	return scanSamples(s, envSamples, sensor, from, to, fn)
 }
 
 // LatestEnvironment returns the newest sample of sensor, head or chunk;
 // false if none.
 func (s *Store) LatestEnvironment(sensor string) (EnvSample, bool, error) {
-	if err := s.enter(); err != nil {
-		return EnvSample{}, false, err
-	}
-	defer s.exit()
-	if reason := checkName(sensor); reason != "" {
-		return EnvSample{}, false, fmt.Errorf("%w: name %q: %s", ErrInvalid, sensor, reason)
-	}
-	var out EnvSample
-	found := false
-	err := s.view(func(tx *bolt.Tx, _ *guard) error {
-		var err error
-		out, found, err = envSamples.latest(tx, sensor)
-		return err
-	})
-	if err != nil {
-		return EnvSample{}, false, err
-	}
-	return out, found, nil
+	return latestSample(s, envSamples, sensor)
 }
 
 // EnvStat summarises one quantity over a rollup bucket.

@@ -5,6 +5,7 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"time"
 
 	bolt "go.etcd.io/bbolt"
 )
@@ -355,4 +356,58 @@ func compactSamples[S, T any](tx *bolt.Tx, k *sampleKind[S, T], sensor string) (
 		}
 	}
 	return len(fresh), chunks, nil
+}
+
+// scanSamples calls fn with each sample of sensor in [from, to), oldest
+// first, head and chunks merged, in one read transaction.
+func scanSamples[S, T any](s *Store, k *sampleKind[S, T], sensor string, from, to time.Time, fn func(T) error) error {
+	if err := s.enter(); err != nil {
+		return err
+	}
+	defer s.exit()
+	if reason := checkName(sensor); reason != "" {
+		return fmt.Errorf("%w: name %q: %s", ErrInvalid, sensor, reason)
+	}
+	lo, hi, ok, err := keyRange(from, to)
+	if err != nil || !ok {
+		return err
+	}
+	loN, _ := keyNanos(lo)
+	hiN, _ := keyNanos(hi)
+	return s.view(func(tx *bolt.Tx, g *guard) error {
+		it := newSampleIter(tx, k, sensor, loN, hiN)
+		for {
+			t, ok := it.next()
+			if !ok {
+				return it.err
+			}
+			if err := g.call(func() error { return fn(t) }); err != nil {
+				return err
+			}
+		}
+	})
+}
+
+// latestSample is the newest sample of sensor in its own read
+// transaction; false if none.
+func latestSample[S, T any](s *Store, k *sampleKind[S, T], sensor string) (T, bool, error) {
+	var out T
+	if err := s.enter(); err != nil {
+		return out, false, err
+	}
+	defer s.exit()
+	if reason := checkName(sensor); reason != "" {
+		return out, false, fmt.Errorf("%w: name %q: %s", ErrInvalid, sensor, reason)
+	}
+	found := false
+	err := s.view(func(tx *bolt.Tx, _ *guard) error {
+		var err error
+		out, found, err = k.latest(tx, sensor)
+		return err
+	})
+	if err != nil {
+		var zero T
+		return zero, false, err
+	}
+	return out, found, nil
 }

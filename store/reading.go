@@ -204,12 +204,18 @@ func (s *Store) putReadings(tx *bolt.Tx, prep []preparedReading, acc, dup *int, 
 	legacy := tx.Bucket(bucketReadings)
 	cov := newCoverage(coverReadings)
 	chunked := map[string]int64{} // newest chunked time per counter
+	legacyOf := map[string]*bolt.Bucket{}
 	batch := map[string][]headVal{}
 	for i := range prep {
 		p := &prep[i]
 		old := h.lookup(p.counter, p.ns)
 		if old == nil {
-			if b := legacy.Bucket([]byte(p.counter)); b != nil {
+			b, seen := legacyOf[p.counter]
+			if !seen {
+				b = legacy.Bucket([]byte(p.counter)) // nil once compaction emptied it, as it nearly always is
+				legacyOf[p.counter] = b
+			}
+			if b != nil {
 				old = b.Get(p.key)
 			}
 		}

@@ -124,6 +124,9 @@ type Outbox interface {
 	Done(ctx context.Context, id uint64) error
 	// Retry records a failed attempt and when to try again.
 	Retry(ctx context.Context, id uint64, attempts int, next time.Time, lastErr string) error
+	// Pending counts the notifier's entries, due or not, without reading
+	// them: the queue length /readyz and the metrics show.
+	Pending(ctx context.Context, notifier string) (int, error)
 }
 
 // ValueText is the alarm's value as a person reads it, with its unit and

@@ -21,18 +21,8 @@ const (
 	DefaultAttemptTimeout = time.Minute
 )
 
-// queueProbeLimit bounds the entries read to count a queue when the
-// outbox cannot count them itself; Health says when the count is capped.
-const queueProbeLimit = 10_000
-
 // ErrDispatcher marks a dispatcher that cannot run as set up.
 var ErrDispatcher = errors.New("alerts: dispatcher")
-
-// QueueCounter is what the dispatcher uses, when the outbox offers it, to
-// count a notifier's entries (due or not) without reading them.
-type QueueCounter interface {
-	Pending(ctx context.Context, notifier string) (int, error)
-}
 
 // DispatcherOptions tune a Dispatcher; zero fields take the defaults.
 type DispatcherOptions struct {
@@ -48,6 +38,10 @@ type DispatcherOptions struct {
 	BaseBackoff, MaxBackoff time.Duration
 	// Batch is how many due deliveries one pass takes (default 50).
 	Batch int
+	// Degraded, if set, reports a notifier that delivers but only in part
+	// (an Alertmanager cluster with a member down): the text, or "" when
+	// whole. [NotifierSet.Degraded] is one.
+	Degraded func(notifier string) string
 	// AttemptTimeout bounds one Notify call (default 1m), beside the
 	// notifier's own timeout.
 	AttemptTimeout time.Duration
@@ -123,10 +117,9 @@ type NotifierHealth struct {
 	LastError           string    `json:"last_error,omitempty"`
 	// NextAttempt is set while the notifier waits out a backoff.
 	NextAttempt time.Time `json:"next_attempt,omitzero"`
-	// Queue is the deliveries waiting in the outbox (at least that many
-	// when QueueCapped); OldestQueued the time of the oldest transition.
+	// Queue is the deliveries waiting in the outbox; OldestQueued the time
+	// of the oldest transition.
 	Queue        int       `json:"queue"`
-	QueueCapped  bool      `json:"queue_capped,omitempty"`
 	OldestQueued time.Time `json:"oldest_queued,omitzero"`
 	// Delivered, Failed (worth repeating) and Rejected (refused by the
 	// receiver) count attempts since start.
@@ -137,9 +130,6 @@ type NotifierHealth struct {
 	// Alertmanager peer down while another took the alert).
 	Degraded string `json:"degraded,omitempty"`
 }
-
-// degrader is a notifier that can fail in part while still delivering.
-type degrader interface{ Degraded() string }
 
 // Dispatcher delivers the outbox to the notifiers: one loop per notifier,
 // so a dead receiver delays no other. A delivery leaves the outbox only
@@ -245,8 +235,8 @@ func (d *Dispatcher) Health() map[string]NotifierHealth {
 		w.mu.Lock()
 		h := w.h
 		w.mu.Unlock()
-		if dg, ok := w.n.(degrader); ok {
-			h.Degraded = dg.Degraded()
+		if d.opt.Degraded != nil {
+			h.Degraded = d.opt.Degraded(h.Notifier)
 		}
 		h.Up = h.ConsecutiveFailures == 0 && h.Degraded == ""
 		out[h.Notifier] = h
@@ -414,20 +404,12 @@ func (d *Dispatcher) refreshQueue(ctx context.Context, w *dispatchWorker, now ti
 	if len(head) > 0 {
 		oldest = head[0].Transition.Time
 	}
-	n, capped := 0, false
-	if qc, ok := d.ob.(QueueCounter); ok {
-		if n, err = qc.Pending(ctx, name); err != nil {
-			return
-		}
-	} else {
-		all, err := d.ob.Due(ctx, name, farFuture(now), queueProbeLimit)
-		if err != nil {
-			return
-		}
-		n, capped = len(all), len(all) == queueProbeLimit
+	n, err := d.ob.Pending(ctx, name)
+	if err != nil {
+		return
 	}
 	w.mu.Lock()
-	w.h.Queue, w.h.QueueCapped, w.h.OldestQueued = n, capped, oldest
+	w.h.Queue, w.h.OldestQueued = n, oldest
 	if n == 0 {
 		w.h.NextAttempt = time.Time{}
 	}

@@ -105,16 +105,10 @@ func (o *ntOutbox) retryCalls() []ntRetry {
 	return append([]ntRetry(nil), o.retries...)
 }
 
-// ntCountingOutbox also counts entries, as a store may.
-type ntCountingOutbox struct {
-	*ntOutbox
-	calls int
-}
-
-func (o *ntCountingOutbox) Pending(ctx context.Context, notifier string) (int, error) {
-	o.mu.Lock()
-	o.calls++
-	o.mu.Unlock()
+func (o *ntOutbox) Pending(ctx context.Context, notifier string) (int, error) {
+	if err := ctx.Err(); err != nil {
+		return 0, err
+	}
 	return len(o.left(notifier)), nil
 }
 

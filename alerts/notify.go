@@ -166,10 +166,44 @@ func ValidateNotify(c NotifyConfig) []FieldError {
 	return errs
 }
 
-// BuildNotifiers makes the configured notifiers, in the order log,
-// webhooks, Alertmanagers. client is shared by the HTTP notifiers (nil:
-// one that follows no redirects); l is the log notifier's logger.
-func BuildNotifiers(c NotifyConfig, client *http.Client, l *slog.Logger) ([]Notifier, error) {
+// The kinds BuildNotifiers lists beside All must carry what it lists them
+// for.
+var (
+	_ Heartbeater         = (*Webhook)(nil)
+	_ CheckpointPublisher = (*Webhook)(nil)
+	_ Heartbeater         = (*Alertmanager)(nil)
+	_ CheckpointPublisher = (*Alertmanager)(nil)
+	_ Resender            = (*Alertmanager)(nil)
+)
+
+// NotifierSet is the configured notifiers, and beside them the ones that
+// also carry the daemon's heartbeat, audit checkpoints or resends, and
+// report a partial failure. BuildNotifiers fills the lists from the kinds
+// it makes, so nothing that uses the set has to ask a notifier what else
+// it can do.
+type NotifierSet struct {
+	// All are the notifiers of transitions, in the order log, webhooks,
+	// Alertmanagers.
+	All         []Notifier
+	Heartbeats  []Heartbeater
+	Checkpoints []CheckpointPublisher
+	Resenders   []Resender
+	degraders   map[string]func() string
+}
+
+// Degraded is the partial failure the named notifier reports ("" when
+// none, or when it cannot fail in part); a [DispatcherOptions.Degraded].
+func (s *NotifierSet) Degraded(notifier string) string {
+	if f := s.degraders[notifier]; f != nil {
+		return f()
+	}
+	return ""
+}
+
+// BuildNotifiers makes the configured notifiers. client is shared by the
+// HTTP notifiers (nil: one that follows no redirects); l is the log
+// notifier's logger.
+func BuildNotifiers(c NotifyConfig, client *http.Client, l *slog.Logger) (*NotifierSet, error) {
 	if errs := ValidateNotify(c); len(errs) > 0 {
 		msgs := make([]string, len(errs))
 		for i, e := range errs {
@@ -177,9 +211,9 @@ func BuildNotifiers(c NotifyConfig, client *http.Client, l *slog.Logger) ([]Noti
 		}
 		return nil, fmt.Errorf("%w: %s", ErrNotifyConfig, strings.Join(msgs, "; "))
 	}
-	var ns []Notifier
+	s := &NotifierSet{degraders: map[string]func() string{}}
 	if c.Log {
-		ns = append(ns, NewLogNotifier(l))
+		s.All = append(s.All, NewLogNotifier(l))
 	}
 	for _, w := range c.Webhooks {
 		w.Labels = withLabels(c.Labels, w.Labels)
@@ -187,7 +221,7 @@ func BuildNotifiers(c NotifyConfig, client *http.Client, l *slog.Logger) ([]Noti
 		if err != nil {
 			return nil, err
 		}
-		ns = append(ns, n)
+		s.All, s.Heartbeats, s.Checkpoints = append(s.All, n), append(s.Heartbeats, n), append(s.Checkpoints, n)
 	}
 	for _, a := range c.Alertmanagers {
 		a.Labels = withLabels(c.Labels, a.Labels)
@@ -195,9 +229,11 @@ func BuildNotifiers(c NotifyConfig, client *http.Client, l *slog.Logger) ([]Noti
 		if err != nil {
 			return nil, err
 		}
-		ns = append(ns, n)
+		s.All, s.Heartbeats, s.Checkpoints = append(s.All, n), append(s.Heartbeats, n), append(s.Checkpoints, n)
+		s.Resenders = append(s.Resenders, n)
+		s.degraders[n.Name()] = n.Degraded
 	}
-	return ns, nil
+	return s, nil
 }
 
 // DispatcherOptions returns the retry settings of the section as

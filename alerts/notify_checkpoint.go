@@ -30,16 +30,14 @@ type CheckpointPublisher interface {
 	PublishCheckpoint(ctx context.Context, cp AuditCheckpoint) error
 }
 
-// PublishCheckpoint sends cp to every notifier among ns that carries
-// checkpoints, and returns their failures joined (each naming its
-// notifier). A failure is not retried: the next checkpoint follows.
-func PublishCheckpoint(ctx context.Context, ns []Notifier, cp AuditCheckpoint) error {
+// PublishCheckpoint sends cp to every one of ps, and returns their
+// failures joined (each naming its notifier). A failure is not retried:
+// the next checkpoint follows.
+func PublishCheckpoint(ctx context.Context, ps []CheckpointPublisher, cp AuditCheckpoint) error {
 	var errs []error
-	for _, n := range ns {
-		if p, ok := n.(CheckpointPublisher); ok {
-			if err := p.PublishCheckpoint(ctx, cp); err != nil {
-				errs = append(errs, fmt.Errorf("notifier %s: %w", p.Name(), err))
-			}
+	for _, p := range ps {
+		if err := p.PublishCheckpoint(ctx, cp); err != nil {
+			errs = append(errs, fmt.Errorf("notifier %s: %w", p.Name(), err))
 		}
 	}
 	return errors.Join(errs...)

@@ -202,7 +202,7 @@ func TestHeartbeat(t *testing.T) {
 	ctx, cancel := context.WithCancel(context.Background())
 	stopped := make(chan struct{})
 	go func() {
-		RunHeartbeat(ctx, []Notifier{hook}, 10*time.Millisecond, func() []Alarm { return open }, nil)
+		RunHeartbeat(ctx, []Heartbeater{hook}, 10*time.Millisecond, func() []Alarm { return open }, nil)
 		close(stopped)
 	}()
 	ntWaitFor(t, 5*time.Second, "three heartbeats", func() bool { mu.Lock(); defer mu.Unlock(); return len(beats) >= 3 })

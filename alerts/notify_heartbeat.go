@@ -61,23 +61,16 @@ func HeartbeatOf(open []Alarm, now time.Time, every time.Duration) Heartbeat {
 	return hb
 }
 
-// RunHeartbeat sends a heartbeat to every Heartbeater among ns every
-// period (at once first) until ctx is done, built from the open alarms of
+// RunHeartbeat sends a heartbeat to every one of hs every period (at once first) until ctx is done, built from the open alarms of
 // open. A failed beat is not retried: the next one follows a period later,
 // and a receiver misses beats only while something is wrong. It sends
 // nothing when ctx ends: the silence is the message.
-func RunHeartbeat(ctx context.Context, ns []Notifier, every time.Duration, open func() []Alarm, now func() time.Time) {
+func RunHeartbeat(ctx context.Context, hs []Heartbeater, every time.Duration, open func() []Alarm, now func() time.Time) {
 	if every <= 0 {
 		every = DefaultHeartbeat
 	}
 	if now == nil {
 		now = time.Now
-	}
-	var hs []Heartbeater
-	for _, n := range ns {
-		if h, ok := n.(Heartbeater); ok {
-			hs = append(hs, h)
-		}
 	}
 	if len(hs) == 0 {
 		return

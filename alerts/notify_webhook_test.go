@@ -362,12 +362,24 @@ func TestNotifyConfigSection(t *testing.T) {
 				t.Fatalf("BuildNotifiers: %v", err)
 			}
 			if err == nil {
-				var names []string
-				for _, n := range ns {
+				var names, beats, checkpoints []string
+				for _, n := range ns.All {
 					names = append(names, n.Name())
+				}
+				for _, n := range ns.Heartbeats {
+					beats = append(beats, n.Name())
+				}
+				for _, n := range ns.Checkpoints {
+					checkpoints = append(checkpoints, n.Name())
 				}
 				if strings.Join(names, ",") != "log,facilities,alertmanager" {
 					t.Errorf("built %v", names)
+				}
+				// The log notifier carries transitions only; both HTTP
+				// kinds carry the heartbeat and checkpoints; only an
+				// Alertmanager must resend what still fires.
+				if strings.Join(beats, ",") != "facilities,alertmanager" || strings.Join(checkpoints, ",") != "facilities,alertmanager" || len(ns.Resenders) != 1 {
+					t.Errorf("heartbeats %v, checkpoints %v, %d resenders", beats, checkpoints, len(ns.Resenders))
 				}
 			}
 		})

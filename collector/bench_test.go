@@ -41,9 +41,13 @@ func benchBody(b *testing.B, n int) (ndjson, array []byte, end time.Time) {
 // storage.
 type countSink struct{ n int }
 
-func (c *countSink) CommitReadings(_ context.Context, rs []Reading) (int, int, error) {
+func (c *countSink) CommitReadings(_ context.Context, rs []Reading) ([]bool, error) {
 	c.n += len(rs)
-	return len(rs), 0, nil
+	stored := make([]bool, len(rs))
+	for i := range stored {
+		stored[i] = true
+	}
+	return stored, nil
 }
 
 func (c *countSink) CommitPressure(_ context.Context, ps []Pressure) (int, int, error) {

@@ -11,8 +11,12 @@ import (
 // printSink stands in for the store of the daemon.
 type printSink struct{}
 
-func (printSink) CommitReadings(_ context.Context, rs []collector.Reading) (int, int, error) {
-	return len(rs), 0, nil
+func (printSink) CommitReadings(_ context.Context, rs []collector.Reading) ([]bool, error) {
+	stored := make([]bool, len(rs))
+	for i := range stored {
+		stored[i] = true
+	}
+	return stored, nil
 }
 
 func (printSink) CommitPressure(_ context.Context, ps []collector.Pressure) (int, int, error) {

@@ -25,28 +25,27 @@ func newMemSink() *memSink {
 	return &memSink{readings: map[dupKey]Reading{}, pressure: map[dupKey]Pressure{}}
 }
 
-func (m *memSink) CommitReadings(ctx context.Context, rs []Reading) (int, int, error) {
+func (m *memSink) CommitReadings(ctx context.Context, rs []Reading) ([]bool, error) {
 	m.mu.Lock()
 	defer m.mu.Unlock()
 	if m.fail != nil {
-		return 0, 0, m.fail
+		return nil, m.fail
 	}
 	if err := ctx.Err(); err != nil {
-		return 0, 0, err
+		return nil, err
 	}
 	m.commits++
-	acc, dup := 0, 0
-	for _, r := range rs {
+	stored := make([]bool, len(rs))
+	for i, r := range rs {
 		k := dupKey{r.Counter, r.Time.UnixNano()}
 		if _, ok := m.readings[k]; ok {
-			dup++
 			continue
 		}
 		m.readings[k] = r
 		m.order = append(m.order, k)
-		acc++
+		stored[i] = true
 	}
-	return acc, dup, nil
+	return stored, nil
 }
 
 func (m *memSink) CommitPressure(ctx context.Context, ps []Pressure) (int, int, error) {

@@ -13,16 +13,11 @@ import (
 // (a sample with the same sensor and time) is counted as a duplicate and
 // not stored again.
 type Sink interface {
-	CommitReadings(ctx context.Context, rs []Reading) (accepted, duplicates int, err error)
+	// CommitReadings says per reading whether this call stored it
+	// (stored[i] false: a duplicate), so the observers see only new
+	// readings and a resent batch feeds no rule and no metric twice.
+	CommitReadings(ctx context.Context, rs []Reading) (stored []bool, err error)
 	CommitPressure(ctx context.Context, ps []Pressure) (accepted, duplicates int, err error)
-}
-
-// MarkingSink is a Sink that can also say which readings of a commit were
-// new: stored[i] is false for a duplicate. With it, the observers see only
-// readings stored by the request, so a resent batch feeds no rule and no
-// metric twice.
-type MarkingSink interface {
-	CommitReadingsMarked(ctx context.Context, rs []Reading) (stored []bool, err error)
 }
 
 // Result is the answer to an accepted request, also its JSON body.
@@ -273,34 +268,27 @@ func (in *Ingest) commitReadings(ctx context.Context, rs []Reading) (Result, err
 		return Result{}, nil
 	}
 	uniq, dups := dropRepeats(rs, func(x *Reading) dupKey { return dupKey{x.Counter, x.Time.UnixNano()} })
-	var acc, sdup int
-	var err error
-	fresh := uniq
-	if ms, ok := in.sink.(MarkingSink); ok {
-		var stored []bool
-		if stored, err = ms.CommitReadingsMarked(ctx, uniq); err == nil {
-			fresh = uniq[:0:0]
-			for i, ok := range stored {
-				if ok {
-					fresh = append(fresh, uniq[i])
-				}
-			}
-			acc, sdup = len(fresh), len(uniq)-len(fresh)
-		}
-	} else {
-		acc, sdup, err = in.sink.CommitReadings(ctx, uniq)
+	stored, err := in.sink.CommitReadings(ctx, uniq)
+	if err == nil && len(stored) != len(uniq) {
+		err = fmt.Errorf("sink marked %d of %d readings", len(stored), len(uniq))
 	}
 	if err != nil {
 		err = fmt.Errorf("%w: %w", ErrCommit, err)
 		in.rejected("readings", "", err)
 		return Result{}, err
 	}
-	if acc > 0 {
+	fresh := uniq[:0:0]
+	for i, ok := range stored {
+		if ok {
+			fresh = append(fresh, uniq[i])
+		}
+	}
+	if len(fresh) > 0 {
 		for _, f := range in.onRead {
 			f(fresh)
 		}
 	}
-	return Result{Accepted: acc, Duplicates: sdup + dups}, nil
+	return Result{Accepted: len(fresh), Duplicates: len(uniq) - len(fresh) + dups}, nil
 }
 
 func (in *Ingest) commitPressure(ctx context.Context, ps []Pressure) (Result, error) {

@@ -2,46 +2,13 @@ package collector
 
 import (
 	"context"
-	"sync"
 	"testing"
 )
 
-// markingSink stores readings in memory and says which were new.
-type markingSink struct {
-	mu   sync.Mutex
-	seen map[dupKey]bool
-}
-
-func (m *markingSink) CommitReadings(ctx context.Context, rs []Reading) (int, int, error) {
-	st, err := m.CommitReadingsMarked(ctx, rs)
-	n := 0
-	for _, ok := range st {
-		if ok {
-			n++
-		}
-	}
-	return n, len(rs) - n, err
-}
-
-func (m *markingSink) CommitReadingsMarked(_ context.Context, rs []Reading) ([]bool, error) {
-	m.mu.Lock()
-	defer m.mu.Unlock()
-	out := make([]bool, len(rs))
-	for i := range rs {
-		k := dupKey{rs[i].Counter, rs[i].Time.UnixNano()}
-		if !m.seen[k] {
-			m.seen[k], out[i] = true, true
-		}
-	}
-	return out, nil
-}
-
-func (m *markingSink) CommitPressure(context.Context, []Pressure) (int, int, error) { return 0, 0, nil }
-
-// With a marking sink, observers see only the readings a request stored:
+// Observers see only the readings a request stored:
 // a resent reading feeds no rule and no metric twice.
 func TestObserversSeeOnlyNewReadings(t *testing.T) {
-	in := newTestIngest(t, &markingSink{seen: map[dupKey]bool{}}, IngestOptions{})
+	in := newTestIngest(t, newMemSink(), IngestOptions{})
 	var seen [][]string
 	in.OnReadings(func(rs []Reading) {
 		var ids []string

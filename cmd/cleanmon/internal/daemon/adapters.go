@@ -27,27 +27,12 @@ type storeSink struct {
 	gate *writeGate
 }
 
-// CommitReadings implements collector.Sink.
-func (s storeSink) CommitReadings(ctx context.Context, rs []collector.Reading) (int, int, error) {
-	stored, err := s.CommitReadingsMarked(ctx, rs)
-	if err != nil {
-		return 0, 0, err
-	}
-	acc := 0
-	for _, ok := range stored {
-		if ok {
-			acc++
-		}
-	}
-	return acc, len(rs) - acc, nil
-}
-
-// CommitReadingsMarked implements collector.MarkingSink, and counts every
+// CommitReadings implements collector.Sink, and counts every
 // reading in cleanmon_readings_total as accepted, duplicate or conflict,
 // per counter. A conflict (the time of a stored reading, other values) is
 // answered as a duplicate, as the API promises, but logged: the stored
 // reading stays, and someone must look at the instrument.
-func (s storeSink) CommitReadingsMarked(ctx context.Context, rs []collector.Reading) ([]bool, error) {
+func (s storeSink) CommitReadings(ctx context.Context, rs []collector.Reading) ([]bool, error) {
 	out := make([]store.Reading, len(rs))
 	for i := range rs {
 		r := &rs[i]
@@ -276,7 +261,6 @@ func storedEnvObservation(e store.EnvSample) alerts.EnvironmentObservation {
 // The adapters satisfy what their consumers define.
 var (
 	_ collector.Sink            = storeSink{}
-	_ collector.MarkingSink     = storeSink{}
 	_ alerts.Journal            = alarmStore{}
 	_ alerts.Outbox             = alarmStore{}
 	_ api.Alarms                = (*alarmService)(nil)

@@ -50,7 +50,7 @@ func engineConfig(cfg *site.Config, reg *collector.Registry, notifiers []string)
 type alarmService struct {
 	judge     *alerts.Judge
 	disp      *alerts.Dispatcher
-	notifiers []alerts.Notifier
+	notifiers *alerts.NotifierSet
 	heartbeat time.Duration
 	now       func() time.Time
 	log       *slog.Logger
@@ -71,8 +71,8 @@ func newAlarmService(cfg *site.Config, reg *collector.Registry, st *store.Store,
 		return nil, err
 	}
 	opt := cfg.Notifications.DispatcherOptions()
-	opt.Now, opt.Logger = now, log
-	disp := alerts.NewDispatcher(alarmStore{st}, notifiers, opt)
+	opt.Now, opt.Logger, opt.Degraded = now, log, notifiers.Degraded
+	disp := alerts.NewDispatcher(alarmStore{st}, notifiers.All, opt)
 	judge, err := alerts.NewJudge(engineConfig(cfg, reg, disp.Names()), alarmStore{st}, now)
 	if err != nil {
 		return nil, err
@@ -136,16 +136,14 @@ func (s *alarmService) start(ctx context.Context, wg *sync.WaitGroup) {
 		defer wg.Done()
 		// Its silence after ctx ends is what a receiver's dead-man's
 		// switch notices.
-		alerts.RunHeartbeat(ctx, s.notifiers, s.heartbeat, s.Active, s.now)
+		alerts.RunHeartbeat(ctx, s.notifiers.Heartbeats, s.heartbeat, s.Active, s.now)
 	}()
-	for _, n := range s.notifiers {
-		if r, ok := n.(alerts.Resender); ok {
-			wg.Add(1)
-			go func() {
-				defer wg.Done()
-				r.Run(ctx, s.Active)
-			}()
-		}
+	for _, r := range s.notifiers.Resenders {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			r.Run(ctx, s.Active)
+		}()
 	}
 }
 

@@ -225,7 +225,7 @@ func (s *alarmService) raiseUnjournaled(ctx context.Context, msg string, at time
 		Message: msg + " (this alarm is not in the store's journal: the store could not take it)"}
 	s.unjournaled.Store(&a)
 	tr := alerts.Transition{Key: id + "/1/active", AlarmID: id, Time: at, To: alerts.StateActive, Alarm: a}
-	for _, n := range s.notifiers {
+	for _, n := range s.notifiers.All {
 		go func() {
 			wait := time.Second
 			for try := 1; try <= 6; try++ {
@@ -283,7 +283,7 @@ func (d *Daemon) publishCheckpoint(ctx context.Context) {
 	}
 	line := cp.String()
 	d.log.Info("audit checkpoint: keep it off this machine (cleanmon verify --head FILE)", "checkpoint", line)
-	if err := alerts.PublishCheckpoint(ctx, d.alarms.notifiers, alerts.AuditCheckpoint{Seq: cp.Seq, Time: cp.Time, Line: line}); err != nil && ctx.Err() == nil {
+	if err := alerts.PublishCheckpoint(ctx, d.alarms.notifiers.Checkpoints, alerts.AuditCheckpoint{Seq: cp.Seq, Time: cp.Time, Line: line}); err != nil && ctx.Err() == nil {
 		d.log.Warn("audit checkpoint not delivered", "err", err)
 	}
 }

@@ -213,20 +213,8 @@ func storedValue(tx *bolt.Tx, counter string, key []byte) ([]byte, error) {
 			return v, nil
 		}
 	}
-	root := tx.Bucket(bucketChunks)
-	if root == nil {
-		return nil, nil
-	}
-	b := root.Bucket([]byte(counter))
-	if b == nil {
-		return nil, nil
-	}
-	k, v := b.Cursor().Seek(key)
+	k, v, ns := chunkCovering(tx, bucketChunks, counter, key)
 	if k == nil {
-		return nil, nil
-	}
-	ns, _ := keyNanos(key)
-	if _, first, ok := chunkHeader(v); ok && first > ns {
 		return nil, nil
 	}
 	rs, _, err := decodeChunk(counter, k, v)
@@ -245,6 +233,30 @@ func storedValue(tx *bolt.Tx, counter string, key []byte) ([]byte, error) {
 // it has none: a reading after it cannot be a duplicate of a chunked one.
 func lastChunkNanos(tx *bolt.Tx, counter string) int64 {
 	return lastChunkIn(tx, bucketChunks, counter)
+}
+
+// chunkCovering returns the chunk of name in the chunk bucket kind that
+// would hold the sample at key, and key's time: k is nil when no chunk can
+// (none ends at or after it, or the next one starts after it). Chunks are
+// keyed by their last sample's time.
+func chunkCovering(tx *bolt.Tx, kind []byte, name string, key []byte) (k, v []byte, ns int64) {
+	ns, _ = keyNanos(key)
+	root := tx.Bucket(kind)
+	if root == nil {
+		return nil, nil, ns
+	}
+	b := root.Bucket([]byte(name))
+	if b == nil {
+		return nil, nil, ns
+	}
+	k, v = b.Cursor().Seek(key)
+	if k == nil {
+		return nil, nil, ns
+	}
+	if _, first, ok := chunkHeader(v); ok && first > ns {
+		return nil, nil, ns
+	}
+	return k, v, ns
 }
 
 // lastChunkIn is the key time of name's last chunk in the chunk bucket

@@ -3,6 +3,7 @@ package store
 import (
 	"encoding/binary"
 	"encoding/hex"
+	"errors"
 	"fmt"
 	"hash/crc32"
 	"math"
@@ -267,15 +268,22 @@ func (d *decoder) end() {
 	}
 }
 
+// openSealed checks a head value against its key (an 8-byte time and the
+// CRC over both) and returns the time and the value's body.
+func openSealed(key, v []byte) (time.Time, []byte, error) {
+	t, ok := keyTime(key)
+	if !ok {
+		return time.Time{}, nil, errors.New("key is not an 8-byte time")
+	}
+	body, err := unseal(key, v)
+	return t, body, err
+}
+
 func decodeReading(counter string, key, v []byte) (Reading, error) {
 	fail := func(err error) (Reading, error) {
 		return Reading{}, fmt.Errorf("%w: reading of counter %q at %s: %v", ErrCorrupt, counter, keyString(key), err)
 	}
-	t, ok := keyTime(key)
-	if !ok {
-		return fail(fmt.Errorf("key is not an 8-byte time"))
-	}
-	body, err := unseal(key, v)
+	t, body, err := openSealed(key, v)
 	if err != nil {
 		return fail(err)
 	}
@@ -325,11 +333,7 @@ func decodePressure(sensor string, key, v []byte) (Pressure, error) {
 	fail := func(err error) (Pressure, error) {
 		return Pressure{}, fmt.Errorf("%w: pressure of sensor %q at %s: %v", ErrCorrupt, sensor, keyString(key), err)
 	}
-	t, ok := keyTime(key)
-	if !ok {
-		return fail(fmt.Errorf("key is not an 8-byte time"))
-	}
-	body, err := unseal(key, v)
+	t, body, err := openSealed(key, v)
 	if err != nil {
 		return fail(err)
 	}

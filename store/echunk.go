@@ -310,20 +310,8 @@ func compactEnvSensor(tx *bolt.Tx, sensor string) (moved, chunks int, err error)
 // key: nil when none can (no chunk ends at or after it, or the next one
 // starts after it).
 func envChunkAt(tx *bolt.Tx, sensor string, key []byte) ([]echunkSample, error) {
-	root := tx.Bucket(bucketEChunks)
-	if root == nil {
-		return nil, nil
-	}
-	b := root.Bucket([]byte(sensor))
-	if b == nil {
-		return nil, nil
-	}
-	k, v := b.Cursor().Seek(key)
+	k, v, _ := chunkCovering(tx, bucketEChunks, sensor, key)
 	if k == nil {
-		return nil, nil
-	}
-	ns, _ := keyNanos(key)
-	if _, first, ok := chunkHeader(v); ok && first > ns {
 		return nil, nil
 	}
 	es, _, err := decodeEChunk(sensor, k, v)

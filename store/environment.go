@@ -94,11 +94,7 @@ func decodeEnv(sensor string, key, v []byte) (EnvSample, error) {
 	fail := func(err error) (EnvSample, error) {
 		return EnvSample{}, fmt.Errorf("%w: environment sample of sensor %q at %s: %v", ErrCorrupt, sensor, keyString(key), err)
 	}
-	t, ok := keyTime(key)
-	if !ok {
-		return fail(fmt.Errorf("key is not an 8-byte time"))
-	}
-	body, err := unseal(key, v)
+	t, body, err := openSealed(key, v)
 	if err != nil {
 		return fail(err)
 	}

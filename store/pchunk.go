@@ -194,20 +194,8 @@ func pressureValue(tx *bolt.Tx, sensor string, key []byte) ([]byte, error) {
 			return v, nil
 		}
 	}
-	root := tx.Bucket(bucketPChunks)
-	if root == nil {
-		return nil, nil
-	}
-	b := root.Bucket([]byte(sensor))
-	if b == nil {
-		return nil, nil
-	}
-	k, v := b.Cursor().Seek(key)
+	k, v, ns := chunkCovering(tx, bucketPChunks, sensor, key)
 	if k == nil {
-		return nil, nil
-	}
-	ns, _ := keyNanos(key)
-	if _, first, ok := chunkHeader(v); ok && first > ns {
 		return nil, nil
 	}
 	ps, _, err := decodePChunk(sensor, k, v)

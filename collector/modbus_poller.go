@@ -667,48 +667,21 @@ func (d *device) counterReading(vals [][]uint16, now time.Time) (RawReading, *po
 
 func (d *device) pollSensor(ctx context.Context) (*pollError, bool) {
 	plan := d.plan
-	vals := make([][]uint16, len(plan.blocks))
-	if err := d.readAll(vals, -1); err != nil {
-		return err, false
-	}
-	if plan.status != nil {
-		code := plan.status.raw(vals)
-		switch s, ok := plan.statuses[code]; {
-		case !ok:
-			return fault(ReasonStatus, "status value %d is not in the register map", code), false
-		case s == StatusFault:
-			return fault(ReasonStatus, "the sensor reports a fault (status %d)", code), false
-		}
+	vals, perr := d.readSensor()
+	if perr != nil {
+		return perr, false
 	}
 	pa := plan.pa.value(vals)
 	raw := RawPressure{Sensor: d.id, Time: d.p.opt.Now().UTC().Format(time.RFC3339Nano), Pa: &pa}
 	res, err := d.sub.SubmitPressure(ctx, []RawPressure{raw})
-	var ie *InputError
-	switch {
-	case errors.As(err, &ie):
-		return &pollError{reason: ReasonRejected, err: err}, false
-	case err != nil:
-		return &pollError{reason: ReasonCommit, err: err}, false
-	}
-	d.p.metrics.samples(d.id, sampleAccepted, res.Accepted)
-	d.p.metrics.samples(d.id, sampleDuplicate, res.Duplicates)
-	return nil, true
+	return d.submitted(res, err)
 }
 
 func (d *device) pollEnvironment(ctx context.Context) (*pollError, bool) {
 	plan := d.plan
-	vals := make([][]uint16, len(plan.blocks))
-	if err := d.readAll(vals, -1); err != nil {
-		return err, false
-	}
-	if plan.status != nil {
-		code := plan.status.raw(vals)
-		switch s, ok := plan.statuses[code]; {
-		case !ok:
-			return fault(ReasonStatus, "status value %d is not in the register map", code), false
-		case s == StatusFault:
-			return fault(ReasonStatus, "the sensor reports a fault (status %d)", code), false
-		}
+	vals, perr := d.readSensor()
+	if perr != nil {
+		return perr, false
 	}
 	raw := RawEnvironment{Sensor: d.id, Time: d.p.opt.Now().UTC().Format(time.RFC3339Nano)}
 	for ch, f := range plan.env {
@@ -726,6 +699,32 @@ func (d *device) pollEnvironment(ctx context.Context) (*pollError, bool) {
 		}
 	}
 	res, err := d.env.SubmitEnvironment(ctx, []RawEnvironment{raw})
+	return d.submitted(res, err)
+}
+
+// readSensor reads a DP or environment sensor's registers and refuses a
+// sample its status register does not vouch for.
+func (d *device) readSensor() ([][]uint16, *pollError) {
+	plan := d.plan
+	vals := make([][]uint16, len(plan.blocks))
+	if err := d.readAll(vals, -1); err != nil {
+		return nil, err
+	}
+	if plan.status != nil {
+		code := plan.status.raw(vals)
+		switch s, ok := plan.statuses[code]; {
+		case !ok:
+			return nil, fault(ReasonStatus, "status value %d is not in the register map", code)
+		case s == StatusFault:
+			return nil, fault(ReasonStatus, "the sensor reports a fault (status %d)", code)
+		}
+	}
+	return vals, nil
+}
+
+// submitted counts a sensor's submitted sample, or says why it failed: a
+// refused sample is the instrument's fault, a failed commit the daemon's.
+func (d *device) submitted(res Result, err error) (*pollError, bool) {
 	var ie *InputError
 	switch {
 	case errors.As(err, &ie):

@@ -43,16 +43,21 @@ type countSink struct{ n int }
 
 func (c *countSink) CommitReadings(_ context.Context, rs []Reading) ([]bool, error) {
 	c.n += len(rs)
-	stored := make([]bool, len(rs))
+	return allStored(len(rs)), nil
+}
+
+func (c *countSink) CommitPressure(_ context.Context, ps []Pressure) ([]bool, error) {
+	c.n += len(ps)
+	return allStored(len(ps)), nil
+}
+
+// allStored marks n samples all stored.
+func allStored(n int) []bool {
+	stored := make([]bool, n)
 	for i := range stored {
 		stored[i] = true
 	}
-	return stored, nil
-}
-
-func (c *countSink) CommitPressure(_ context.Context, ps []Pressure) (int, int, error) {
-	c.n += len(ps)
-	return len(ps), 0, nil
+	return stored
 }
 
 func benchDecode(b *testing.B, f bodyFormat, pick func(nd, arr []byte) []byte) {

@@ -12,7 +12,8 @@ import (
 // sensor and time as one stored is a duplicate, counted and not stored
 // again.
 type EnvironmentSink interface {
-	CommitEnvironment(ctx context.Context, es []Environment) (accepted, duplicates int, err error)
+	// CommitEnvironment says per sample whether this call stored it.
+	CommitEnvironment(ctx context.Context, es []Environment) (stored []bool, err error)
 }
 
 // EnvironmentSubmitter takes environment samples in their submitted form
@@ -34,12 +35,13 @@ type EnvironmentIngest struct {
 	opt      IngestOptions
 	onEnv    []func([]Environment)
 	onReject []func(Rejection)
+	pooled   markFunc[Environment] // Pooled's commit: the coalescer's, or the sink's
 }
 
 // NewEnvironmentIngest returns an environment ingest over the registry
 // (its environment sensors and physical bounds, see
 // [Registry.WithEnvironment]) and the sink. Of opt, MaxBodyBytes,
-// MaxFuture, Retention and Now apply, with the defaults of [NewIngest].
+// MaxFuture, Retention, Now and Coalesce apply, with the defaults of [NewIngest].
 func NewEnvironmentIngest(reg *Registry, sink EnvironmentSink, opt IngestOptions) *EnvironmentIngest {
 	if opt.MaxBodyBytes <= 0 {
 		opt.MaxBodyBytes = DefaultMaxBodyBytes
@@ -50,11 +52,15 @@ func NewEnvironmentIngest(reg *Registry, sink EnvironmentSink, opt IngestOptions
 	if opt.Now == nil {
 		opt.Now = time.Now
 	}
-	return &EnvironmentIngest{reg: reg, sink: sink, opt: opt}
+	in := &EnvironmentIngest{reg: reg, sink: sink, opt: opt, pooled: sink.CommitEnvironment}
+	if opt.Coalesce > 0 {
+		in.pooled = newCoalescer(opt.Coalesce, environmentKey, sink.CommitEnvironment).mark
+	}
+	return in
 }
 
 // OnEnvironment registers f to run after every durable commit, with the
-// samples handed to the sink (duplicates within the request removed).
+// samples it stored (no duplicate).
 // Observers run before the sender is answered: keep them quick, and do
 // not modify the samples.
 func (in *EnvironmentIngest) OnEnvironment(f func([]Environment)) { in.onEnv = append(in.onEnv, f) }
@@ -79,6 +85,24 @@ func (in *EnvironmentIngest) validator() validator {
 // array would. The error is an *InputError (nothing committed) or wraps
 // ErrCommit.
 func (in *EnvironmentIngest) SubmitEnvironment(ctx context.Context, raws []RawEnvironment) (Result, error) {
+	return in.submitVia(ctx, raws, in.sink.CommitEnvironment)
+}
+
+// PooledEnvironment is an [EnvironmentIngest] whose submissions are
+// committed together with the others arriving within
+// [IngestOptions.Coalesce], as [PooledIngest] does for readings.
+type PooledEnvironment struct{ in *EnvironmentIngest }
+
+// Pooled returns the ingest's pooled view.
+func (in *EnvironmentIngest) Pooled() PooledEnvironment { return PooledEnvironment{in} }
+
+// SubmitEnvironment is [EnvironmentIngest.SubmitEnvironment], committed
+// with the window's other submissions.
+func (p PooledEnvironment) SubmitEnvironment(ctx context.Context, raws []RawEnvironment) (Result, error) {
+	return p.in.submitVia(ctx, raws, p.in.pooled)
+}
+
+func (in *EnvironmentIngest) submitVia(ctx context.Context, raws []RawEnvironment, commit markFunc[Environment]) (Result, error) {
 	v, b := in.validator(), in.reg.EnvironmentBounds()
 	es := make([]Environment, len(raws))
 	for i := range raws {
@@ -87,7 +111,7 @@ func (in *EnvironmentIngest) SubmitEnvironment(ctx context.Context, raws []RawEn
 			return Result{}, ie
 		}
 	}
-	return in.commit(ctx, es)
+	return in.commit(ctx, es, commit)
 }
 
 // PostEnvironment takes the body of a request carrying environment
@@ -114,7 +138,7 @@ func (in *EnvironmentIngest) PostEnvironment(ctx context.Context, contentType st
 		in.rejected(lastID, err)
 		return Result{}, err
 	}
-	return in.commit(ctx, es)
+	return in.commit(ctx, es, in.sink.CommitEnvironment)
 }
 
 // decode reads and validates a whole body; on error it also returns the
@@ -152,23 +176,10 @@ func DecodeEnvironment(r io.Reader, contentType string, maxLine int) ([]RawEnvir
 	return out, nil
 }
 
-func (in *EnvironmentIngest) commit(ctx context.Context, es []Environment) (Result, error) {
-	if len(es) == 0 {
-		return Result{}, nil
-	}
-	uniq, dups := dropRepeats(es, func(x *Environment) dupKey { return dupKey{x.Sensor, x.Time.UnixNano()} })
-	acc, sdup, err := in.sink.CommitEnvironment(ctx, uniq)
-	if err != nil {
-		err = fmt.Errorf("%w: %w", ErrCommit, err)
-		in.rejected("", err)
-		return Result{}, err
-	}
-	if acc > 0 {
-		for _, f := range in.onEnv {
-			f(uniq)
-		}
-	}
-	return Result{Accepted: acc, Duplicates: sdup + dups}, nil
+func environmentKey(x *Environment) dupKey { return dupKey{x.Sensor, x.Time.UnixNano()} }
+
+func (in *EnvironmentIngest) commit(ctx context.Context, es []Environment, commit markFunc[Environment]) (Result, error) {
+	return commitMarked(ctx, es, environmentKey, commit, in.onEnv, func(err error) { in.rejected("", err) })
 }
 
 func (in *EnvironmentIngest) rejected(id string, err error) {

@@ -17,30 +17,31 @@ import (
 // memEnvSink keeps one environment sample per sensor+time, as the store
 // does, and counts the rest as duplicates.
 type memEnvSink struct {
-	mu   sync.Mutex
-	rows map[dupKey]Environment
-	fail error
+	mu      sync.Mutex
+	rows    map[dupKey]Environment
+	fail    error
+	commits int
 }
 
 func newMemEnvSink() *memEnvSink { return &memEnvSink{rows: map[dupKey]Environment{}} }
 
-func (m *memEnvSink) CommitEnvironment(ctx context.Context, es []Environment) (int, int, error) {
+func (m *memEnvSink) CommitEnvironment(ctx context.Context, es []Environment) ([]bool, error) {
 	m.mu.Lock()
 	defer m.mu.Unlock()
 	if m.fail != nil {
-		return 0, 0, m.fail
+		return nil, m.fail
 	}
-	acc, dup := 0, 0
-	for _, e := range es {
+	m.commits++
+	stored := make([]bool, len(es))
+	for i, e := range es {
 		k := dupKey{e.Sensor, e.Time.UnixNano()}
 		if _, ok := m.rows[k]; ok {
-			dup++
 			continue
 		}
 		m.rows[k] = e
-		acc++
+		stored[i] = true
 	}
-	return acc, dup, nil
+	return stored, nil
 }
 
 func (m *memEnvSink) len() int {

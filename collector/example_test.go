@@ -12,15 +12,20 @@ import (
 type printSink struct{}
 
 func (printSink) CommitReadings(_ context.Context, rs []collector.Reading) ([]bool, error) {
-	stored := make([]bool, len(rs))
+	return everyOne(len(rs)), nil
+}
+
+func (printSink) CommitPressure(_ context.Context, ps []collector.Pressure) ([]bool, error) {
+	return everyOne(len(ps)), nil
+}
+
+// everyOne marks n samples all stored.
+func everyOne(n int) []bool {
+	stored := make([]bool, n)
 	for i := range stored {
 		stored[i] = true
 	}
-	return stored, nil
-}
-
-func (printSink) CommitPressure(_ context.Context, ps []collector.Pressure) (int, int, error) {
-	return len(ps), 0, nil
+	return stored
 }
 
 func ExampleIngest_SubmitReadings() {

@@ -48,27 +48,26 @@ func (m *memSink) CommitReadings(ctx context.Context, rs []Reading) ([]bool, err
 	return stored, nil
 }
 
-func (m *memSink) CommitPressure(ctx context.Context, ps []Pressure) (int, int, error) {
+func (m *memSink) CommitPressure(ctx context.Context, ps []Pressure) ([]bool, error) {
 	m.mu.Lock()
 	defer m.mu.Unlock()
 	if m.fail != nil {
-		return 0, 0, m.fail
+		return nil, m.fail
 	}
 	if err := ctx.Err(); err != nil {
-		return 0, 0, err
+		return nil, err
 	}
 	m.commits++
-	acc, dup := 0, 0
-	for _, p := range ps {
+	stored := make([]bool, len(ps))
+	for i, p := range ps {
 		k := dupKey{p.Sensor, p.Time.UnixNano()}
 		if _, ok := m.pressure[k]; ok {
-			dup++
 			continue
 		}
 		m.pressure[k] = p
-		acc++
+		stored[i] = true
 	}
-	return acc, dup, nil
+	return stored, nil
 }
 
 // stored returns how many readings and DP samples the sink holds.

@@ -17,7 +17,7 @@ type Sink interface {
 	// (stored[i] false: a duplicate), so the observers see only new
 	// readings and a resent batch feeds no rule and no metric twice.
 	CommitReadings(ctx context.Context, rs []Reading) (stored []bool, err error)
-	CommitPressure(ctx context.Context, ps []Pressure) (accepted, duplicates int, err error)
+	CommitPressure(ctx context.Context, ps []Pressure) (stored []bool, err error)
 }
 
 // Result is the answer to an accepted request, also its JSON body.
@@ -40,6 +40,10 @@ type IngestOptions struct {
 	Retention       time.Duration    // samples older than Now-Retention are refused; 0 (or < 0) = no limit
 	Now             func() time.Time // clock, default time.Now
 	VolumeTolerance float64          // relative tolerance of volume_l against flow_lpm × sample_s / 60, default 0.1; < 0 turns the check off
+	// Coalesce is the window of [Ingest.Pooled]: its submissions that
+	// arrive within it are committed together. 0: Pooled commits each
+	// alone.
+	Coalesce time.Duration
 }
 
 // Ingest validates incoming readings and DP samples and commits them to a
@@ -53,6 +57,39 @@ type Ingest struct {
 	onRead   []func([]Reading)
 	onPress  []func([]Pressure)
 	onReject []func(Rejection)
+	// pooledReadings and pooledPressure commit the submissions of
+	// Pooled: through a coalescer when opt.Coalesce is set, else straight
+	// to the sink.
+	pooledReadings markFunc[Reading]
+	pooledPressure markFunc[Pressure]
+}
+
+// PooledIngest is an [Ingest] whose submissions are committed together
+// with the others that arrive within [IngestOptions.Coalesce]: what many
+// independent, small submitters should use, such as the Modbus poller's
+// one goroutine per device. The store writes an audit entry and a head
+// record per commit, about 250 bytes; at one commit per sample, a DP
+// sensor polled every 10 s would add some 800 MB a year to a store that
+// keeps the sample itself in about a byte. Each caller still returns only
+// once its samples are durable (up to the window later), gets the answer
+// for its own samples, and is refused alone when its input is invalid. A
+// single submitter that waits for each answer before the next gains
+// nothing from it and would only wait: it should use the Ingest itself.
+type PooledIngest struct{ in *Ingest }
+
+// Pooled returns the ingest's pooled view.
+func (in *Ingest) Pooled() PooledIngest { return PooledIngest{in} }
+
+// SubmitReadings is [Ingest.SubmitReadings], committed with the window's
+// other submissions.
+func (p PooledIngest) SubmitReadings(ctx context.Context, raws []RawReading) (Result, error) {
+	return p.in.submitReadingsVia(ctx, raws, p.in.pooledReadings)
+}
+
+// SubmitPressure is [Ingest.SubmitPressure], committed with the window's
+// other submissions.
+func (p PooledIngest) SubmitPressure(ctx context.Context, raws []RawPressure) (Result, error) {
+	return p.in.submitPressureVia(ctx, raws, p.in.pooledPressure)
 }
 
 // Rejection describes a refused request, for metrics and logs.
@@ -78,15 +115,18 @@ func NewIngest(reg *Registry, sink Sink, opt IngestOptions) *Ingest {
 	if opt.VolumeTolerance == 0 {
 		opt.VolumeTolerance = DefaultVolumeTolerance
 	}
-	return &Ingest{reg: reg, sink: sink, opt: opt}
+	in := &Ingest{reg: reg, sink: sink, opt: opt, pooledReadings: sink.CommitReadings, pooledPressure: sink.CommitPressure}
+	if opt.Coalesce > 0 {
+		in.pooledReadings = newCoalescer(opt.Coalesce, readingKey, sink.CommitReadings).mark
+		in.pooledPressure = newCoalescer(opt.Coalesce, pressureKey, sink.CommitPressure).mark
+	}
+	return in
 }
 
 // OnReadings registers f to run after every durable commit of readings
 // (the alarm engine and the live zone state subscribe). f gets the
-// readings handed to the sink, duplicates within the request removed; when
-// the sink reports duplicates of stored rows they are among them, so an
-// observer should ignore a reading not newer than the last it saw from the
-// counter. Observers run in the submitting goroutine before the sender is
+// readings the commit stored, in the order sent: no duplicate, whether
+// repeated within the request or of a stored reading. Observers run in the submitting goroutine before the sender is
 // answered, so they must be quick, and must not modify the readings.
 // Register observers before serving.
 func (in *Ingest) OnReadings(f func([]Reading)) { in.onRead = append(in.onRead, f) }
@@ -106,6 +146,10 @@ func (in *Ingest) Registry() *Registry { return in.reg }
 // same array would. The error is an *InputError (nothing committed) or
 // wraps ErrCommit.
 func (in *Ingest) SubmitReadings(ctx context.Context, raws []RawReading) (Result, error) {
+	return in.submitReadingsVia(ctx, raws, in.sink.CommitReadings)
+}
+
+func (in *Ingest) submitReadingsVia(ctx context.Context, raws []RawReading, commit markFunc[Reading]) (Result, error) {
 	v := in.validator()
 	rs := make([]Reading, len(raws))
 	for i := range raws {
@@ -114,13 +158,17 @@ func (in *Ingest) SubmitReadings(ctx context.Context, raws []RawReading) (Result
 			return Result{}, ie
 		}
 	}
-	return in.commitReadings(ctx, rs)
+	return in.commitReadings(ctx, rs, commit)
 }
 
 // SubmitPressure validates raws and commits them, exactly as a POST of the
 // same array would. The error is an *InputError (nothing committed) or
 // wraps ErrCommit.
 func (in *Ingest) SubmitPressure(ctx context.Context, raws []RawPressure) (Result, error) {
+	return in.submitPressureVia(ctx, raws, in.sink.CommitPressure)
+}
+
+func (in *Ingest) submitPressureVia(ctx context.Context, raws []RawPressure, commit markFunc[Pressure]) (Result, error) {
 	v := in.validator()
 	ps := make([]Pressure, len(raws))
 	for i := range raws {
@@ -129,7 +177,7 @@ func (in *Ingest) SubmitPressure(ctx context.Context, raws []RawPressure) (Resul
 			return Result{}, ie
 		}
 	}
-	return in.commitPressure(ctx, ps)
+	return in.commitPressure(ctx, ps, commit)
 }
 
 // PostReadings takes the body of a request carrying readings: a JSON
@@ -156,7 +204,7 @@ func (in *Ingest) PostReadings(ctx context.Context, contentType string, declared
 		in.rejected("readings", lastID, err)
 		return Result{}, err
 	}
-	return in.commitReadings(ctx, rs)
+	return in.commitReadings(ctx, rs, in.sink.CommitReadings)
 }
 
 // PostPressure takes a request body of DP samples under the same rules as
@@ -179,7 +227,7 @@ func (in *Ingest) PostPressure(ctx context.Context, contentType string, declared
 		in.rejected("pressure", lastID, err)
 		return Result{}, err
 	}
-	return in.commitPressure(ctx, ps)
+	return in.commitPressure(ctx, ps, in.sink.CommitPressure)
 }
 
 // precheck refuses what can be refused before the body is read.
@@ -263,51 +311,17 @@ func dropRepeats[T any](xs []T, key func(*T) dupKey) ([]T, int) {
 	return out, dups
 }
 
-func (in *Ingest) commitReadings(ctx context.Context, rs []Reading) (Result, error) {
-	if len(rs) == 0 {
-		return Result{}, nil
-	}
-	uniq, dups := dropRepeats(rs, func(x *Reading) dupKey { return dupKey{x.Counter, x.Time.UnixNano()} })
-	stored, err := in.sink.CommitReadings(ctx, uniq)
-	if err == nil && len(stored) != len(uniq) {
-		err = fmt.Errorf("sink marked %d of %d readings", len(stored), len(uniq))
-	}
-	if err != nil {
-		err = fmt.Errorf("%w: %w", ErrCommit, err)
-		in.rejected("readings", "", err)
-		return Result{}, err
-	}
-	fresh := uniq[:0:0]
-	for i, ok := range stored {
-		if ok {
-			fresh = append(fresh, uniq[i])
-		}
-	}
-	if len(fresh) > 0 {
-		for _, f := range in.onRead {
-			f(fresh)
-		}
-	}
-	return Result{Accepted: len(fresh), Duplicates: len(uniq) - len(fresh) + dups}, nil
+func readingKey(x *Reading) dupKey   { return dupKey{x.Counter, x.Time.UnixNano()} }
+func pressureKey(x *Pressure) dupKey { return dupKey{x.Sensor, x.Time.UnixNano()} }
+
+// commitReadings commits rs through commit: the sink itself for a request,
+// the coalescer for a submission when there is one.
+func (in *Ingest) commitReadings(ctx context.Context, rs []Reading, commit markFunc[Reading]) (Result, error) {
+	return commitMarked(ctx, rs, readingKey, commit, in.onRead, func(err error) { in.rejected("readings", "", err) })
 }
 
-func (in *Ingest) commitPressure(ctx context.Context, ps []Pressure) (Result, error) {
-	if len(ps) == 0 {
-		return Result{}, nil
-	}
-	uniq, dups := dropRepeats(ps, func(x *Pressure) dupKey { return dupKey{x.Sensor, x.Time.UnixNano()} })
-	acc, sdup, err := in.sink.CommitPressure(ctx, uniq)
-	if err != nil {
-		err = fmt.Errorf("%w: %w", ErrCommit, err)
-		in.rejected("pressure", "", err)
-		return Result{}, err
-	}
-	if acc > 0 {
-		for _, f := range in.onPress {
-			f(uniq)
-		}
-	}
-	return Result{Accepted: acc, Duplicates: sdup + dups}, nil
+func (in *Ingest) commitPressure(ctx context.Context, ps []Pressure, commit markFunc[Pressure]) (Result, error) {
+	return commitMarked(ctx, ps, pressureKey, commit, in.onPress, func(err error) { in.rejected("pressure", "", err) })
 }
 
 func (in *Ingest) rejected(kind, id string, err error) {

@@ -81,6 +81,13 @@ type rig struct {
 // empty, points the instrument at it, and starts polling.
 func newRig(t *testing.T, cs []Counter, ss []Sensor, opt PollerOptions) *rig {
 	t.Helper()
+	return newRigPooled(t, cs, ss, opt, 0)
+}
+
+// newRigPooled is newRig with the poller on the ingest's pooled view when
+// window is positive.
+func newRigPooled(t *testing.T, cs []Counter, ss []Sensor, opt PollerOptions, window time.Duration) *rig {
+	t.Helper()
 	r := &rig{t: t, sink: newMemSink(), events: &eventLog{}, prom: prometheus.NewRegistry(), slaves: map[string]*ModbusSlave{}}
 	for i := range cs {
 		if cs[i].Modbus == nil || cs[i].Modbus.Address != "" {
@@ -112,9 +119,13 @@ func newRig(t *testing.T, cs []Counter, ss []Sensor, opt PollerOptions) *rig {
 	if err != nil {
 		t.Fatal(err)
 	}
-	r.in = NewIngest(reg, r.sink, IngestOptions{})
+	r.in = NewIngest(reg, r.sink, IngestOptions{Coalesce: window})
 	opt.Events, opt.Metrics = r.events, r.prom
-	r.poller, err = NewPoller(reg, r.in, opt)
+	var sub Submitter = r.in
+	if window > 0 {
+		sub = r.in.Pooled()
+	}
+	r.poller, err = NewPoller(reg, sub, opt)
 	if err != nil {
 		t.Fatal(err)
 	}

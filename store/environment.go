@@ -122,6 +122,12 @@ func decodeEnv(sensor string, key, v []byte) (EnvSample, error) {
 // field of the first bad sample), a repeated sensor and time is a
 // duplicate and is not stored again.
 func (s *Store) AppendEnvironment(ctx context.Context, es []EnvSample) (accepted, duplicates int, err error) {
+	return countOutcomes(appendSamples(ctx, s, envSamples, es))
+}
+
+// AppendEnvironmentMarked is AppendEnvironment that says what became of
+// each sample, as AppendReadingsMarked does for readings.
+func (s *Store) AppendEnvironmentMarked(ctx context.Context, es []EnvSample) ([]Outcome, error) {
 	return appendSamples(ctx, s, envSamples, es)
 }
 

@@ -31,6 +31,12 @@ func checkPressure(p *Pressure) (field, reason string) {
 // as AppendReadings: all or nothing, a repeated sensor and time is a
 // duplicate, and an AuditPressure entry covers what it stored.
 func (s *Store) AppendPressure(ctx context.Context, ps []Pressure) (accepted, duplicates int, err error) {
+	return countOutcomes(appendSamples(ctx, s, pressureSamples, ps))
+}
+
+// AppendPressureMarked is AppendPressure that says what became of each
+// sample, as AppendReadingsMarked does for readings.
+func (s *Store) AppendPressureMarked(ctx context.Context, ps []Pressure) ([]Outcome, error) {
 	return appendSamples(ctx, s, pressureSamples, ps)
 }
 

@@ -63,3 +63,38 @@ func TestPressure(t *testing.T) {
 		})
 	}
 }
+
+// Marked appends say per sample what became of it: a repeat with the same
+// value is a duplicate, one with another value a conflict (the first
+// stays), for DP and environment samples alike.
+func TestSampleOutcomes(t *testing.T) {
+	s := quick(t)
+	ctx := context.Background()
+	ps := []Pressure{
+		{Sensor: "dp-asm-gown", Time: t0, Pa: 12.4},
+		{Sensor: "dp-asm-gown", Time: t0, Pa: 12.4}, // repeated
+		{Sensor: "dp-asm-gown", Time: t0, Pa: -3},   // same time, other value
+		{Sensor: "dp-hood-asm", Time: t0, Pa: 6.1},
+	}
+	got, err := s.AppendPressureMarked(ctx, ps)
+	want := []Outcome{Stored, Duplicate, Conflict, Stored}
+	if err != nil || len(got) != len(want) {
+		t.Fatalf("outcomes %v, %v", got, err)
+	}
+	for i := range want {
+		if got[i] != want[i] {
+			t.Errorf("pressure sample %d: outcome %d, want %d", i, got[i], want[i])
+		}
+	}
+	es := []EnvSample{
+		{Sensor: "th-asm", Time: t0, Has: EnvTemperature, TemperatureC: 21.5},
+		{Sensor: "th-asm", Time: t0, Has: EnvTemperature, TemperatureC: 23},
+	}
+	eg, err := s.AppendEnvironmentMarked(ctx, es)
+	if err != nil || len(eg) != 2 || eg[0] != Stored || eg[1] != Conflict {
+		t.Fatalf("environment outcomes %v, %v", eg, err)
+	}
+	if eg, err = s.AppendEnvironmentMarked(ctx, es[:1]); err != nil || len(eg) != 1 || eg[0] != Duplicate {
+		t.Fatalf("environment repeat %v, %v", eg, err)
+	}
+}

@@ -49,26 +49,27 @@ type preparedSample struct {
 // covering what it stored. A sample whose sensor and time are already
 // stored, in the head or a chunk, is counted in duplicates and not stored
 // again (logged when its value differs); an invalid one fails the call
-// with a *RecordError and nothing is stored.
-func appendSamples[S, T any](ctx context.Context, s *Store, k *sampleKind[S, T], ts []T) (accepted, duplicates int, err error) {
+// with a *RecordError and nothing is stored. outcomes[i] says what became
+// of ts[i].
+func appendSamples[S, T any](ctx context.Context, s *Store, k *sampleKind[S, T], ts []T) (outcomes []Outcome, err error) {
 	if err := s.enter(); err != nil {
-		return 0, 0, err
+		return nil, err
 	}
 	defer s.exit()
 	if len(ts) == 0 {
-		return 0, 0, ctx.Err()
+		return nil, ctx.Err()
 	}
 	prep := make([]preparedSample, len(ts))
 	for i := range ts {
 		if field, reason := k.check(&ts[i]); field != "" {
-			return 0, 0, &RecordError{Kind: k.recordKind, Index: i, Field: field, Reason: reason}
+			return nil, &RecordError{Kind: k.recordKind, Index: i, Field: field, Reason: reason}
 		}
 		sensor, key, val := k.prepare(&ts[i])
 		prep[i] = preparedSample{sensor: sensor, key: key, val: val}
 	}
-	var acc, dup int
+	outcomes = make([]Outcome, len(ts))
 	err = s.submit(ctx, len(prep), func(tx *bolt.Tx) error {
-		acc, dup = 0, 0
+		clear(outcomes) // the group may run the call again after another member failed
 		series := newSeriesBuckets(tx, k.head)
 		cov := newCoverage(k.cover)
 		chunked := map[string]int64{} // newest chunked time per sensor
@@ -92,8 +93,9 @@ func appendSamples[S, T any](ctx context.Context, s *Store, k *sampleKind[S, T],
 				}
 			}
 			if old != nil {
-				dup++
+				outcomes[i] = Duplicate
 				if !bytes.Equal(old, p.val) {
+					outcomes[i] = Conflict
 					// Not stored (the first stays), but an instrument or a
 					// gateway re-sent a sample with another value, or two
 					// samples carry one time: someone should look.
@@ -105,15 +107,29 @@ func appendSamples[S, T any](ctx context.Context, s *Store, k *sampleKind[S, T],
 			if err := b.Put(p.key, p.val); err != nil {
 				return fmt.Errorf("store: put %s sample of %q: %w", k.what, p.sensor, err)
 			}
-			acc++
+			outcomes[i] = Stored
 			cov.add(p.sensor, p.key, p.val)
 		}
 		return auditBatch(tx, cov, k.action, k.plural)
 	})
 	if err != nil {
+		return nil, err
+	}
+	return outcomes, nil
+}
+
+// countOutcomes is what an unmarked append answers: how many were stored,
+// and how many were not (duplicates and conflicts).
+func countOutcomes(os []Outcome, err error) (accepted, duplicates int, _ error) {
+	if err != nil {
 		return 0, 0, err
 	}
-	return acc, dup, nil
+	for _, o := range os {
+		if o == Stored {
+			accepted++
+		}
+	}
+	return accepted, len(os) - accepted, nil
 }
 
 // sampleIter merges the chunks and head of one sensor over [lo, hi), in

@@ -73,18 +73,31 @@ func (s storeSink) CommitReadings(ctx context.Context, rs []collector.Reading) (
 	return stored, nil
 }
 
-// CommitPressure implements collector.Sink.
-func (s storeSink) CommitPressure(ctx context.Context, ps []collector.Pressure) (int, int, error) {
+// CommitPressure implements collector.Sink. A conflict is logged by the
+// store and answered as a duplicate.
+func (s storeSink) CommitPressure(ctx context.Context, ps []collector.Pressure) ([]bool, error) {
 	out := make([]store.Pressure, len(ps))
 	for i, p := range ps {
 		out[i] = store.Pressure{Sensor: p.Sensor, Time: p.Time, Pa: p.Pa}
 	}
 	if err := s.gate.check(); err != nil {
-		return 0, 0, err
+		return nil, err
 	}
-	acc, dup, err := s.st.AppendPressure(ctx, out)
+	outcomes, err := s.st.AppendPressureMarked(ctx, out)
 	s.gate.committed(err)
-	return acc, dup, err
+	return storedMarks(outcomes), err
+}
+
+// storedMarks says per sample whether the store stored it.
+func storedMarks(os []store.Outcome) []bool {
+	if os == nil {
+		return nil
+	}
+	stored := make([]bool, len(os))
+	for i, o := range os {
+		stored[i] = o == store.Stored
+	}
+	return stored
 }
 
 // observation turns a committed reading into what the zone state takes.
@@ -203,13 +216,13 @@ type envSink struct {
 }
 
 // CommitEnvironment implements collector.EnvironmentSink.
-func (s envSink) CommitEnvironment(ctx context.Context, es []collector.Environment) (int, int, error) {
+func (s envSink) CommitEnvironment(ctx context.Context, es []collector.Environment) ([]bool, error) {
 	if err := s.gate.check(); err != nil {
-		return 0, 0, err
+		return nil, err
 	}
-	acc, dup, err := s.st.AppendEnvironment(ctx, envSamples(es))
+	outcomes, err := s.st.AppendEnvironmentMarked(ctx, envSamples(es))
 	s.gate.committed(err)
-	return acc, dup, err
+	return storedMarks(outcomes), err
 }
 
 // envSamples turns validated environment samples into stored ones.

@@ -282,11 +282,28 @@ func (d *Daemon) startJudge() error {
 	return d.alarms.restore(context.Background(), changes, history, d.damaged())
 }
 
+// submitWindow is how long the ingest gathers the submissions of the
+// Modbus poller (one goroutine per device) into one commit. Each commit
+// costs the store an audit entry and a head record (about 250 bytes
+// together); one per sample would make a DP sensor polled every 10 s cost
+// hundreds of megabytes a year. A second bounds the poller to one commit a
+// second for all its devices together, and delays a polled sample's
+// commit and judgement by at most that, against sample periods of 10 s to
+// a minute. HTTP requests, MQTT messages and the demo's simulator commit
+// as they come: they batch already, or submit one at a time and would
+// only wait.
+const submitWindow = time.Second
+
+// ingestOptions are the options of both ingests.
+func (d *Daemon) ingestOptions() collector.IngestOptions {
+	return collector.IngestOptions{Retention: d.cfg.RetentionOrDefault(), Now: d.now, Coalesce: submitWindow}
+}
+
 // startIngest builds the ingest path (store first, then the judge), the
 // access rules, the metrics and the API.
 func (d *Daemon) startIngest() error {
 	ingestMetrics := alerts.NewIngestMetrics(counterIDs(d.cfg))
-	d.ingest = collector.NewIngest(d.reg, storeSink{d.st, ingestMetrics, d.log, &d.gate}, collector.IngestOptions{Retention: d.cfg.RetentionOrDefault(), Now: d.now})
+	d.ingest = collector.NewIngest(d.reg, storeSink{d.st, ingestMetrics, d.log, &d.gate}, d.ingestOptions())
 	d.ingest.OnReadings(d.alarms.observeReadings)
 	d.ingest.OnPressure(d.alarms.observePressure)
 	d.ingest.OnRejected(func(rj collector.Rejection) {
@@ -343,7 +360,7 @@ func (d *Daemon) startBackground() error {
 		d.audit.watchClock(bg)
 	}()
 	d.alarms.start(bg, &d.wg)
-	stopModbus, err := startModbus(bg, d.reg, d.ingest, d.log, modbusHooks{Metrics: d.metrics, Now: d.now, Events: d.alarms, Environment: d.envIngest})
+	stopModbus, err := startModbus(bg, d.reg, d.ingest.Pooled(), d.log, modbusHooks{Metrics: d.metrics, Now: d.now, Events: d.alarms, Environment: d.envIngest.Pooled()})
 	if err != nil {
 		return usage("Modbus: %v", err)
 	}

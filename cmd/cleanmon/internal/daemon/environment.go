@@ -25,7 +25,7 @@ func (d *Daemon) startEnvironment() {
 			d.envMetrics.Observe([]alerts.EnvironmentObservation{storedEnvObservation(last)})
 		}
 	}
-	d.envIngest = collector.NewEnvironmentIngest(d.reg, envSink{d.st, &d.gate}, collector.IngestOptions{Retention: d.cfg.RetentionOrDefault(), Now: d.now})
+	d.envIngest = collector.NewEnvironmentIngest(d.reg, envSink{d.st, &d.gate}, d.ingestOptions())
 	d.envIngest.OnEnvironment(func(es []collector.Environment) {
 		obs := make([]alerts.EnvironmentObservation, len(es))
 		for i := range es {

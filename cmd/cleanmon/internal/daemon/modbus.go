@@ -33,7 +33,7 @@ type modbusHooks struct {
 // whose source is modbus, submitting through in like any pushed reading.
 // It returns at once; stop ends polling and waits for it (bounded by the
 // request timeouts). With no such instrument it starts nothing.
-func startModbus(ctx context.Context, reg *collector.Registry, in *collector.Ingest, log *slog.Logger, m modbusHooks) (stop func(), err error) {
+func startModbus(ctx context.Context, reg *collector.Registry, in collector.Submitter, log *slog.Logger, m modbusHooks) (stop func(), err error) {
 	p, err := collector.NewPoller(reg, in, collector.PollerOptions{
 		Events:   m.Events,
 		Metrics:  m.Metrics,

@@ -878,23 +878,27 @@ func validatePressure(ps []PressureObservation) error {
 
 func validateObservations(obs []Observation) error {
 	for i, o := range obs {
-		where := fmt.Sprintf("reading %d", i)
-		if o.Counter != "" {
-			where += " (" + o.Counter + ")"
+		// Named only in a refusal: formatting it for every reading showed
+		// in the ingest's profile.
+		where := func() string {
+			if o.Counter != "" {
+				return fmt.Sprintf("reading %d (%s)", i, o.Counter)
+			}
+			return fmt.Sprintf("reading %d", i)
 		}
 		switch {
 		case strings.TrimSpace(o.Counter) == "":
-			return fmt.Errorf("%w: %s: counter: missing", ErrObservation, where)
+			return fmt.Errorf("%w: %s: counter: missing", ErrObservation, where())
 		case o.Time.IsZero():
-			return fmt.Errorf("%w: %s: time: missing", ErrObservation, where)
+			return fmt.Errorf("%w: %s: time: missing", ErrObservation, where())
 		case math.IsNaN(o.VolumeL) || math.IsInf(o.VolumeL, 0) || o.VolumeL < 0:
-			return fmt.Errorf("%w: %s: volume_l: %v is not a volume", ErrObservation, where, o.VolumeL)
+			return fmt.Errorf("%w: %s: volume_l: %v is not a volume", ErrObservation, where(), o.VolumeL)
 		case len(o.Sizes) != len(o.PerM3):
-			return fmt.Errorf("%w: %s: %d sizes but %d concentrations", ErrObservation, where, len(o.Sizes), len(o.PerM3))
+			return fmt.Errorf("%w: %s: %d sizes but %d concentrations", ErrObservation, where(), len(o.Sizes), len(o.PerM3))
 		}
 		for j, v := range o.PerM3 {
 			if math.IsNaN(v) || math.IsInf(v, 0) || v < 0 {
-				return fmt.Errorf("%w: %s: concentration at %s µm: %v is not a concentration", ErrObservation, where, classify.FormatSize(o.Sizes[j]), v)
+				return fmt.Errorf("%w: %s: concentration at %s µm: %v is not a concentration", ErrObservation, where(), classify.FormatSize(o.Sizes[j]), v)
 			}
 		}
 	}

@@ -5,7 +5,9 @@ import (
 	"crypto/sha256"
 	"encoding/binary"
 	"fmt"
+	"strings"
 	"time"
+	"unicode"
 
 	bolt "go.etcd.io/bbolt"
 )
@@ -97,6 +99,11 @@ func checkAuditEntry(e *AuditEntry) (field, reason string) {
 	if why := checkName(e.Action); why != "" {
 		return "Action", why
 	}
+	if strings.ContainsFunc(e.Action, unicode.IsControl) {
+		// The index by action separates the action from the sequence
+		// number with a NUL.
+		return "Action", "has a control character"
+	}
 	if storeActions[e.Action] {
 		return "Action", fmt.Sprintf("%q is written by the store itself", e.Action)
 	}
@@ -166,6 +173,10 @@ func appendAudit(tx *bolt.Tx, e *AuditEntry) (uint64, [32]byte, error) {
 		return 0, prev, fmt.Errorf("store: audit entry: %w", err)
 	}
 	if err := signEntry(tx, seq, hash); err != nil {
+		return 0, prev, err
+	}
+	e.Seq = seq
+	if err := indexAudit(tx, e); err != nil {
 		return 0, prev, err
 	}
 	return seq, hash, nil

@@ -161,6 +161,17 @@ func rechain(t *testing.T, path string, dropSigs bool, edit func(tx *bolt.Tx, es
 			}
 			prev = hash
 		}
+		// The index by action follows the chain: one who rewrites the
+		// chain with the code at hand rebuilds it too.
+		if err := tx.DeleteBucket(bucketAuditIndex); err != nil {
+			return err
+		}
+		if _, err := tx.CreateBucket(bucketAuditIndex); err != nil {
+			return err
+		}
+		if err := buildAuditIndex(tx); err != nil {
+			return err
+		}
 		if err := b.SetSequence(uint64(len(es))); err != nil {
 			return err
 		}

@@ -387,6 +387,7 @@ func (s *Store) initSchema() error {
 	}
 	return s.update(func(tx *bolt.Tx) error {
 		startChain := tx.Bucket(bucketAudit) == nil
+		buildIndex := !startChain && tx.Bucket(bucketAuditIndex) == nil
 		for _, name := range knownBuckets {
 			if _, err := tx.CreateBucketIfNotExists(name); err != nil {
 				return err
@@ -395,6 +396,11 @@ func (s *Store) initSchema() error {
 		meta := tx.Bucket(bucketMeta)
 		if meta.Get(metaSchema) == nil {
 			if err := meta.Put(metaSchema, binary.AppendUvarint(nil, schemaVersion)); err != nil {
+				return err
+			}
+		}
+		if buildIndex {
+			if err := buildAuditIndex(tx); err != nil {
 				return err
 			}
 		}

@@ -31,6 +31,7 @@ type auditCheck struct {
 	horizon int64 // the latest sweep horizon the chain records
 	blind   bool  // an entry could not be read: coverage counts are not trusted
 	broken  bool  // a broken link was already reported
+	index   *auditIndexCheck
 }
 
 // audit checks the audit chain: entries numbered 1, 2, 3, … with none
@@ -44,8 +45,14 @@ func (v *verifier) audit(tx *bolt.Tx) {
 	if b == nil {
 		return
 	}
-	a := &auditCheck{verifier: v, tx: tx, chunked: newChunkCache(tx, v.hv), series: map[seriesID]*seriesCover{}}
+	a := &auditCheck{verifier: v, tx: tx, chunked: newChunkCache(tx, v.hv), series: map[seriesID]*seriesCover{},
+		index: &auditIndexCheck{idx: tx.Bucket(bucketAuditIndex), audit: b}}
 	v.guarded(string(bucketAudit), func() { a.chain(b) })
+	v.guarded(string(bucketAuditIndex), func() {
+		for _, f := range a.index.faults(a.blind) {
+			v.add("%s", f)
+		}
+	})
 	if !a.blind {
 		v.guarded("audit coverage", a.coverage)
 	}
@@ -96,6 +103,7 @@ func (a *auditCheck) chain(b *bolt.Bucket) {
 			a.breakAt(seq, e.Time, "its hash does not match its content and the entry before it (the entry, or one before it, was changed)")
 		}
 		prev = e.Hash
+		a.index.saw(&e)
 		a.entry(&e)
 	}
 	if issued := b.Sequence(); want-1 < issued {

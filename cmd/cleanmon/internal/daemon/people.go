@@ -164,13 +164,10 @@ func (p *peopleSide) SignaturesFor(subject string) []people.Signature {
 }
 
 // loadSignatures reads every signature entry of the audit chain, so the
-// records show the signatures made before a restart. It walks the whole
-// chain once at start.
+// records show the signatures made before a restart. The store's index by
+// action reads those entries only, not the ingest covers around them.
 func (p *peopleSide) loadSignatures() error {
-	return p.st.ScanAudit(0, 0, func(e store.AuditEntry) error {
-		if e.Action != people.EventSignature {
-			return nil
-		}
+	return p.st.ScanAuditAction(people.EventSignature, func(e store.AuditEntry) error {
 		sig, ok := parseSignature(e)
 		if ok {
 			p.sigs[sig.Subject] = append(p.sigs[sig.Subject], sig)

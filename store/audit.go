@@ -179,6 +179,9 @@ func appendAudit(tx *bolt.Tx, e *AuditEntry) (uint64, [32]byte, error) {
 	if err := indexAudit(tx, e); err != nil {
 		return 0, prev, err
 	}
+	if err := indexAuditHour(tx, e); err != nil {
+		return 0, prev, err
+	}
 	return seq, hash, nil
 }
 

@@ -172,6 +172,15 @@ func rechain(t *testing.T, path string, dropSigs bool, edit func(tx *bolt.Tx, es
 		if err := buildAuditIndex(tx); err != nil {
 			return err
 		}
+		if err := tx.DeleteBucket(bucketAuditHours); err != nil {
+			return err
+		}
+		if _, err := tx.CreateBucket(bucketAuditHours); err != nil {
+			return err
+		}
+		if err := buildAuditHours(tx); err != nil {
+			return err
+		}
 		if err := b.SetSequence(uint64(len(es))); err != nil {
 			return err
 		}

@@ -26,7 +26,7 @@ var (
 		bucketMeta, bucketReadings, bucketPressure, bucketRollup1h, bucketOpState,
 		bucketJournal, bucketJournalAt, bucketAlarms, bucketAlarmsAt, bucketOutbox, bucketAudit, bucketRuns, bucketAccounts,
 		bucketAuditSig, bucketChunks, bucketEnvironment, bucketPChunks, bucketEChunks, bucketHeadLog,
-		bucketAuditIndex,
+		bucketAuditIndex, bucketAuditHours,
 	}
 	metaSchema      = []byte("schema")       // uvarint schemaVersion
 	metaSweptBefore = []byte("swept_before") // 8-byte key: latest Sweep horizon

@@ -388,6 +388,7 @@ func (s *Store) initSchema() error {
 	return s.update(func(tx *bolt.Tx) error {
 		startChain := tx.Bucket(bucketAudit) == nil
 		buildIndex := !startChain && tx.Bucket(bucketAuditIndex) == nil
+		buildHours := !startChain && tx.Bucket(bucketAuditHours) == nil
 		for _, name := range knownBuckets {
 			if _, err := tx.CreateBucketIfNotExists(name); err != nil {
 				return err
@@ -401,6 +402,11 @@ func (s *Store) initSchema() error {
 		}
 		if buildIndex {
 			if err := buildAuditIndex(tx); err != nil {
+				return err
+			}
+		}
+		if buildHours {
+			if err := buildAuditHours(tx); err != nil {
 				return err
 			}
 		}

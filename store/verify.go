@@ -246,7 +246,7 @@ func (v *verifier) olderLayout(tx *bolt.Tx, name []byte) bool {
 	if bytes.Equal(name, bucketAuditSig) { // files written before signing was known have no signatures
 		return true
 	}
-	if bytes.Equal(name, bucketAuditIndex) { // derived from the chain: built at the first writable open
+	if bytes.Equal(name, bucketAuditIndex) || bytes.Equal(name, bucketAuditHours) { // derived from the chain: built at the first writable open
 		return true
 	}
 	// Files before schema 3 keep their head one value per reading and

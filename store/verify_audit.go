@@ -32,6 +32,7 @@ type auditCheck struct {
 	blind   bool  // an entry could not be read: coverage counts are not trusted
 	broken  bool  // a broken link was already reported
 	index   *auditIndexCheck
+	hours   *auditHoursCheck
 }
 
 // audit checks the audit chain: entries numbered 1, 2, 3, … with none
@@ -46,10 +47,14 @@ func (v *verifier) audit(tx *bolt.Tx) {
 		return
 	}
 	a := &auditCheck{verifier: v, tx: tx, chunked: newChunkCache(tx, v.hv), series: map[seriesID]*seriesCover{},
-		index: &auditIndexCheck{idx: tx.Bucket(bucketAuditIndex), audit: b}}
+		index: &auditIndexCheck{idx: tx.Bucket(bucketAuditIndex), audit: b}, hours: newAuditHoursCheck(tx.Bucket(bucketAuditHours))}
 	v.guarded(string(bucketAudit), func() { a.chain(b) })
 	v.guarded(string(bucketAuditIndex), func() {
 		for _, f := range a.index.faults(a.blind) {
+			v.add("%s", f)
+		}
+		a.hours.finish()
+		for _, f := range a.hours.faults {
 			v.add("%s", f)
 		}
 	})
@@ -104,6 +109,7 @@ func (a *auditCheck) chain(b *bolt.Bucket) {
 		}
 		prev = e.Hash
 		a.index.saw(&e)
+		a.hours.saw(&e)
 		a.entry(&e)
 	}
 	if issued := b.Sequence(); want-1 < issued {

@@ -118,6 +118,7 @@ func (f fakeStore) LatestPressure(sensor string) (store.Pressure, bool, error) {
 	return f.latestDP(sensor)
 }
 func (fakeStore) ScanAudit(uint64, uint64, func(store.AuditEntry) error) error            { return nil }
+func (fakeStore) ScanAuditSince(time.Time, func(store.AuditEntry) error) error            { return nil }
 func (fakeStore) AuditHead() (uint64, [32]byte, error)                                    { return 0, [32]byte{}, nil }
 func (fakeStore) Backup(io.Writer) (int64, error)                                         { return 0, nil }
 func (fakeStore) ScanAlarms(time.Time, func(string, time.Time, []byte, bool) error) error { return nil }

@@ -56,6 +56,9 @@ type PressureStore interface {
 // AuditTrail reads the audit chain.
 type AuditTrail interface {
 	ScanAudit(from, to uint64, fn func(store.AuditEntry) error) error
+	// ScanAuditSince is ScanAudit from the first entry that can have a
+	// time at or after since.
+	ScanAuditSince(since time.Time, fn func(store.AuditEntry) error) error
 	AuditHead() (uint64, [32]byte, error)
 }
 

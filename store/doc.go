@@ -136,6 +136,16 @@
 // the daemon. Listing the keys costs about two bytes a reading at a
 // steady sample period.
 //
+// Two indexes follow the chain, so that readers need not walk millions of
+// ingest covers (audit_index.go): audit_by_action lists the entries
+// callers write (sign-ins, signatures, account changes) by action, and
+// audit_by_hour names, for each hour, the first entry appended in it, an
+// entry's append time being the later of the clock and its own time.
+// Every entry before the one an hour names is then older than that hour,
+// so ScanAuditSince starts there and leaves nothing out. Open builds both
+// for a file written before them; Verify checks both against the chain
+// (an entry unlisted or listed wrongly, an hour that would hide an entry).
+//
 // # Damage
 //
 // Open refuses a truncated or damaged file with an error wrapping

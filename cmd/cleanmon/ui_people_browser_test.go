@@ -276,6 +276,23 @@ func TestSignaturesOnPages(t *testing.T) {
 	b.waitJS(30*time.Second, "the new password", `!!document.getElementById("new-password") && !!document.querySelector('tr[data-name="noor"]')`)
 	var noorPW string
 	b.eval(`document.getElementById("new-password").textContent`, &noorPW)
+	// A change to an existing account asks for its reason on the page,
+	// and the reason goes into the audit trail with it.
+	for _, step := range []struct{ op, reason, state string }{
+		{"disable", "left the coating team", "disabled"},
+		{"enable", "back on the coating team", "enabled"},
+	} {
+		b.do(10*time.Second, step.op+" Noor",
+			chromedp.Click(fmt.Sprintf(`tr[data-name="noor"] button[data-op=%q]`, step.op)))
+		b.waitJS(10*time.Second, "the reason form for "+step.op, fmt.Sprintf(`!document.getElementById("acc-confirm").hidden && document.getElementById("acc-confirm").dataset.op === %q`, step.op))
+		b.do(10*time.Second, "the reason for "+step.op,
+			chromedp.SendKeys(chromedp.ID("acc-reason"), step.reason),
+			chromedp.Click(chromedp.ID("acc-confirm-go")))
+		b.waitJS(30*time.Second, "Noor "+step.state, fmt.Sprintf(`(document.querySelector('tr[data-name="noor"]') || {innerText: ""}).innerText.includes(%q) && document.getElementById("acc-confirm").hidden`, step.state))
+		if code, body := call(t, "GET", d.url+"/api/v1/audit?who=kadmin&format=csv", secretViewer, ""); code != 200 || !strings.Contains(string(body), step.reason) {
+			t.Errorf("the audit trail lacks the reason %q for %s (%d):\n%s", step.reason, step.op, code, body)
+		}
+	}
 	b.personSignOut(d.url)
 
 	period := fmt.Sprintf("zone=assembly&from=%s&to=%s", start.Format(time.RFC3339), start.Add(10*time.Minute).Format(time.RFC3339))

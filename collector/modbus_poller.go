@@ -341,22 +341,30 @@ func (d *device) run(ctx context.Context) {
 		case <-timer.C:
 		}
 		start := time.Now()
-		wait := d.plan.poll
-		if perr := d.pollOnce(ctx); perr != nil && ctx.Err() == nil {
-			if perr.backsOff() {
-				// Double the wait at every failure in a row, with ±10 %
-				// jitter so that devices behind one gateway do not all
-				// come back at the same instant.
-				d.backoff = min(max(2*d.backoff, d.plan.poll), maxBackoff)
-				wait = time.Duration(float64(d.backoff) * (0.9 + 0.2*rand.Float64()))
-			} else {
-				d.backoff = 0
-			}
-		} else {
-			d.backoff = 0
+		if perr := d.pollOnce(ctx); perr != nil && ctx.Err() == nil && perr.backsOff() {
+			// Double the wait at every failure in a row, with ±10 %
+			// jitter so that devices behind one gateway do not all
+			// come back at the same instant.
+			d.backoff = min(max(2*d.backoff, d.plan.poll), maxBackoff)
+			wait := time.Duration(float64(d.backoff) * (0.9 + 0.2*rand.Float64()))
+			timer.Reset(max(0, wait-time.Since(start)))
+			continue
 		}
-		timer.Reset(max(0, wait-time.Since(start)))
+		d.backoff = 0
+		timer.Reset(untilNextPoll(time.Now(), d.plan.poll))
 	}
+}
+
+// untilNextPoll is the wait from now to the next multiple of period on the
+// clock. Devices with the same period then poll at the same instants, and
+// their samples, submitted through the ingest's pooled view, share one
+// commit: at most one per period for all of them, where polls at their own
+// phases would fill every second.
+func untilNextPoll(now time.Time, period time.Duration) time.Duration {
+	if period <= 0 {
+		return 0
+	}
+	return period - time.Duration(now.UnixNano()%int64(period))
 }
 
 // pollOnce runs one poll and books its outcome. Events are told after

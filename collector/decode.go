@@ -144,6 +144,7 @@ func decodeArray[T any](dec *jsontext.Decoder, v *T, reset func(), each func(i i
 	if _, err := dec.ReadToken(); err != nil {
 		return 0, decodeErr(err, 0, 0, v)
 	}
+	fast := fastPathOf(v)
 	i := 0
 	for dec.PeekKind() != ']' {
 		if dec.PeekKind() == 0 {
@@ -154,7 +155,7 @@ func decodeArray[T any](dec *jsontext.Decoder, v *T, reset func(), each func(i i
 			return i, decodeErr(err, i, 0, v)
 		}
 		reset()
-		if err := json.UnmarshalDecode(dec, v, strictOptions); err != nil {
+		if err := fast.unmarshalDecode(dec, v); err != nil {
 			return i + 1, inElement(decodeErr(err, i, 0, v), i)
 		}
 		if ie := each(i, v); ie != nil {
@@ -216,6 +217,7 @@ func decodeNDJSON[T any](r io.Reader, maxLine int, v *T, reset func(), each func
 	rec := &readRecorder{r: r}
 	sc := bufio.NewScanner(rec)
 	sc.Buffer(make([]byte, 0, 64<<10), maxLine)
+	fast := fastPathOf(v)
 	i, line := 0, 0
 	fail := func(err error) (int, error) {
 		var mbe *limitError
@@ -231,7 +233,7 @@ func decodeNDJSON[T any](r io.Reader, maxLine int, v *T, reset func(), each func
 			continue
 		}
 		reset()
-		if err := json.Unmarshal(b, v, strictOptions); err != nil {
+		if err := fast.unmarshal(b, v); err != nil {
 			if isTrailingValue(b) {
 				ie := inputErrRule(i, "", RuleSyntax, "more than one JSON value on the line: NDJSON takes one object per line")
 				ie.Line = line

@@ -259,14 +259,15 @@ func (s *readingScanner) counts(b []byte, i int, r *RawReading) (int, bool) {
 		if !ok {
 			return 0, false
 		}
-		if _, dup := m[string(key)]; dup {
-			return 0, false
-		}
 		var c Count
 		if err := c.UnmarshalJSON(lit); err != nil {
 			return 0, false
 		}
-		m[s.intern(key)] = c
+		// A key given twice replaces its entry instead of adding one.
+		n := len(m)
+		if m[s.intern(key)] = c; len(m) == n {
+			return 0, false
+		}
 		i = skipWS(b, j)
 		if i >= len(b) {
 			return 0, false
@@ -303,23 +304,37 @@ func scanString(b []byte, i int) ([]byte, int, bool) {
 	if i >= len(b) || b[i] != '"' {
 		return nil, 0, false
 	}
-	ascii := true
-	for j := i + 1; j < len(b); j++ {
+	j := i + 1
+	for j < len(b) && plainByte[b[j]] {
+		j++
+	}
+	if j < len(b) && b[j] == '"' {
+		return b[i+1 : j], j + 1, true
+	}
+	// Rarer: non-ASCII text, checked as the decoder checks it.
+	for ; j < len(b); j++ {
 		switch c := b[j]; {
 		case c == '"':
 			v := b[i+1 : j]
-			if !ascii && !utf8.Valid(v) {
+			if !utf8.Valid(v) {
 				return nil, 0, false
 			}
 			return v, j + 1, true
 		case c == '\\' || c < 0x20:
 			return nil, 0, false
-		case c >= utf8.RuneSelf:
-			ascii = false
 		}
 	}
 	return nil, 0, false
 }
+
+// plainByte marks the bytes a string may hold as they are: printable
+// ASCII but for the quote and the backslash.
+var plainByte = func() (t [256]bool) {
+	for c := 0x20; c < utf8.RuneSelf; c++ {
+		t[c] = c != '"' && c != '\\'
+	}
+	return t
+}()
 
 // scanNumber scans a number of JSON's grammar starting at b[i] and returns
 // its text and the index after it. What follows is left to the caller,

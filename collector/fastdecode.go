@@ -231,7 +231,8 @@ func (s *readingScanner) object(b []byte, r *RawReading) (int, bool) {
 }
 
 // counts scans the counts object starting at b[i] into r.Counts, which is
-// empty or nil, and returns the index after it. Only numbers are taken as
+// empty or nil (a second counts object is refused by the caller anyway),
+// and returns the index after it. Only numbers are taken as
 // values; each goes through Count's own decoding, as with the decoder.
 func (s *readingScanner) counts(b []byte, i int, r *RawReading) (int, bool) {
 	if i >= len(b) || b[i] != '{' {

@@ -647,15 +647,14 @@ func (l *liveLocation) view(now time.Time, from window, limits []SizeLimit) Loca
 	}
 	l.prune(now)
 	// The window of the regime in force, without readings taken in
-	// maintenance.
-	in := make([]sample, 0, len(l.samples))
-	for _, s := range l.samples {
-		if from.holds(s.t) {
-			in = append(in, s)
+	// maintenance. Walked in place: a copy of the window for every view
+	// was nine tenths of the judge's allocation.
+	for i := range l.samples {
+		if from.holds(l.samples[i].t) {
+			lv.Samples++
 		}
 	}
-	lv.Samples = len(in)
-	if len(in) == 0 {
+	if lv.Samples == 0 {
 		return lv
 	}
 	lv.MeanPerM3 = make(map[string]float64, len(spec.sizes))
@@ -664,8 +663,9 @@ func (l *liveLocation) view(now time.Time, from window, limits []SizeLimit) Loca
 	for i, size := range spec.sizes {
 		var sum float64
 		n := 0
-		for _, s := range in {
-			if !math.IsNaN(s.perM3[i]) {
+		for j := range l.samples {
+			s := &l.samples[j]
+			if from.holds(s.t) && !math.IsNaN(s.perM3[i]) {
 				sum += s.perM3[i]
 				n++
 			}

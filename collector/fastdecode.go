@@ -215,19 +215,29 @@ func (s *readingScanner) object(b []byte, r *RawReading) (int, bool) {
 			return 0, false
 		}
 		seen |= bit
-		i = skipWS(b, i)
-		if i >= len(b) {
-			return 0, false
+		next, end, ok := nextMember(b, i)
+		if !ok || end {
+			return next, ok
 		}
-		switch b[i] {
-		case ',':
-			i = skipWS(b, i+1)
-		case '}':
-			return i + 1, true
-		default:
-			return 0, false
-		}
+		i = next
 	}
+}
+
+// nextMember steps over the white space and the ',' or '}' after an
+// object's member at b[i]: next is where the next member starts, or, at
+// the object's end (end true), the index after its '}'.
+func nextMember(b []byte, i int) (next int, end, ok bool) {
+	i = skipWS(b, i)
+	if i >= len(b) {
+		return 0, false, false
+	}
+	switch b[i] {
+	case ',':
+		return skipWS(b, i+1), false, true
+	case '}':
+		return i + 1, true, true
+	}
+	return 0, false, false
 }
 
 // counts scans the counts object starting at b[i] into r.Counts, which is
@@ -269,18 +279,11 @@ func (s *readingScanner) counts(b []byte, i int, r *RawReading) (int, bool) {
 		if m[s.intern(key)] = c; len(m) == n {
 			return 0, false
 		}
-		i = skipWS(b, j)
-		if i >= len(b) {
-			return 0, false
+		next, end, ok := nextMember(b, j)
+		if !ok || end {
+			return next, ok
 		}
-		switch b[i] {
-		case ',':
-			i = skipWS(b, i+1)
-		case '}':
-			return i + 1, true
-		default:
-			return 0, false
-		}
+		i = next
 	}
 }
 

@@ -3,6 +3,7 @@ package store
 import (
 	"context"
 	"path/filepath"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -55,24 +56,12 @@ func scanAction(t *testing.T, s *Store, action string) []uint64 {
 	return got
 }
 
-func equalSeqs(a, b []uint64) bool {
-	if len(a) != len(b) {
-		return false
-	}
-	for i := range a {
-		if a[i] != b[i] {
-			return false
-		}
-	}
-	return true
-}
-
 // ScanAuditAction finds the entries of one action among the ingest
 // covers, in chain order, and refuses the store's own actions.
 func TestScanAuditAction(t *testing.T) {
 	dir, sigs := auditIndexStore(t)
 	s := openTest(t, dir, Options{NoSync: true})
-	if got := scanAction(t, s, "e-signature"); !equalSeqs(got, sigs) {
+	if got := scanAction(t, s, "e-signature"); !slices.Equal(got, sigs) {
 		t.Errorf("signatures %v, want %v", got, sigs)
 	}
 	if got := scanAction(t, s, "account-add"); len(got) != 1 {
@@ -103,7 +92,7 @@ func TestAuditIndexBuiltForOlderFile(t *testing.T) {
 		t.Fatalf("Verify of the file without its index: %v %v", problems, err)
 	}
 	s := openTest(t, dir, Options{NoSync: true})
-	if got := scanAction(t, s, "e-signature"); !equalSeqs(got, sigs) {
+	if got := scanAction(t, s, "e-signature"); !slices.Equal(got, sigs) {
 		t.Errorf("after the rebuild: signatures %v, want %v", got, sigs)
 	}
 	s.Close()

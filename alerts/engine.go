@@ -223,6 +223,19 @@ type engineZone struct {
 type counterSpec struct {
 	CounterRule
 	stale time.Duration
+	keys  []string // seriesKey at each of the zone's sizes, made at first use
+}
+
+// seriesKeys are the counter's series keys at its zone's sizes, made once
+// rather than for every reading. The engine's lock is held.
+func (c *counterSpec) seriesKeys(sizes []float64) []string {
+	if len(c.keys) != len(sizes) {
+		c.keys = make([]string, len(sizes))
+		for i, size := range sizes {
+			c.keys[i] = seriesKey(c.Zone, c.Location, size)
+		}
+	}
+	return c.keys
 }
 
 type sensorSpec struct {

@@ -98,12 +98,13 @@ func (e *Engine) judgeReading(t *txn, c *counterSpec, r *CounterReading) {
 	}
 	z := e.zones[c.Zone]
 	counting := e.countRuleApplies(z, sa.Limits)
+	keys := c.seriesKeys(z.sizes)
 	for i, size := range z.sizes {
 		val, ok := valueAt(&r.Observation, size)
 		if !ok || i >= len(limits) {
 			continue
 		}
-		k := seriesKey(c.Zone, c.Location, size)
+		k := keys[i]
 		s := e.series[k]
 		sz := size
 		tmpl := Alarm{Zone: c.Zone, Location: c.Location, Counter: c.ID, SizeUM: &sz, Value: val, Unit: unitPerM3}

@@ -48,11 +48,11 @@ func commitMarked[T any](ctx context.Context, xs []T, key func(*T) dupKey, commi
 }
 
 // coalescer gathers the samples of the small submissions that arrive
-// within a window (one Modbus poll of one device, one MQTT message) into
-// one commit. The store writes an audit entry and a head record per
-// commit, about 250 bytes: at one commit per sample, a DP sensor polled
-// every 10 s would add some 800 MB a year of records to a store that keeps
-// the sample itself in about a byte. Each caller still waits for the
+// within a window (one Modbus poll of one device) into one commit. The
+// store writes an audit entry (about 180 bytes, kept) and a head record
+// (about 80, until compaction) per commit: at one commit per sample, a DP
+// sensor polled every 10 s would add some 560 MB a year of audit entries
+// to a store that keeps the sample itself in about a byte. Each caller still waits for the
 // durable commit and gets its own samples' marks; a sample the window
 // repeats (same series and time, sent twice) is stored once and marked a
 // duplicate for the later caller.

@@ -67,10 +67,10 @@ type Ingest struct {
 // PooledIngest is an [Ingest] whose submissions are committed together
 // with the others that arrive within [IngestOptions.Coalesce]: what many
 // independent, small submitters should use, such as the Modbus poller's
-// one goroutine per device. The store writes an audit entry and a head
-// record per commit, about 250 bytes; at one commit per sample, a DP
-// sensor polled every 10 s would add some 800 MB a year to a store that
-// keeps the sample itself in about a byte. Each caller still returns only
+// one goroutine per device. The store writes an audit entry (about 180
+// bytes, kept) and a head record per commit; at one commit per sample, a
+// DP sensor polled every 10 s would add some 560 MB a year of audit
+// entries to a store that keeps the sample itself in about a byte. Each caller still returns only
 // once its samples are durable (up to the window later), gets the answer
 // for its own samples, and is refused alone when its input is invalid. A
 // single submitter that waits for each answer before the next gains

@@ -284,10 +284,11 @@ func (d *Daemon) startJudge() error {
 
 // submitWindow is how long the ingest gathers the submissions of the
 // Modbus poller (one goroutine per device) into one commit. Each commit
-// costs the store an audit entry and a head record (about 250 bytes
-// together); one per sample would make a DP sensor polled every 10 s cost
-// hundreds of megabytes a year. A second bounds the poller to one commit a
-// second for all its devices together, and delays a polled sample's
+// costs the store an audit entry (about 180 bytes, kept) and a head
+// record; one per sample would make a DP sensor polled every 10 s cost
+// some 560 MB a year. A second, with polls on multiples of their period,
+// bounds the poller to about one commit per poll period for all its
+// devices together, and delays a polled sample's
 // commit and judgement by at most that, against sample periods of 10 s to
 // a minute. HTTP requests, MQTT messages and the demo's simulator commit
 // as they come: they batch already, or submit one at a time and would

@@ -194,24 +194,32 @@ func compactCounter(tx *bolt.Tx, counter string) (moved, chunks int, err error) 
 	if err != nil {
 		return 0, 0, err
 	}
+	if err := dropMovedHead(tx.Bucket(bucketReadings), head, counter, headKeys); err != nil {
+		return 0, 0, err
+	}
+	return len(fresh), chunks, nil
+}
+
+// dropMovedHead deletes the head values of name that compaction moved
+// into chunks, and name's head bucket once it is empty. compactHook runs
+// first, so a test can fail the transaction between the two writes.
+func dropMovedHead(root, head *bolt.Bucket, name string, keys [][]byte) error {
 	if compactHook != nil {
-		if err := compactHook(counter); err != nil {
-			return 0, 0, err
+		if err := compactHook(name); err != nil {
+			return err
 		}
 	}
-	for _, k := range headKeys {
+	for _, k := range keys {
 		if err := head.Delete(k); err != nil {
-			return 0, 0, err
+			return err
 		}
 	}
 	if k, _ := head.Cursor().First(); k == nil {
 		// An empty nested bucket still takes a page; the next append
 		// creates it again.
-		if err := tx.Bucket(bucketReadings).DeleteBucket([]byte(counter)); err != nil {
-			return 0, 0, err
-		}
+		return root.DeleteBucket([]byte(name))
 	}
-	return len(fresh), chunks, nil
+	return nil
 }
 
 // chunksFrom decodes the chunks a compaction from time ns rewrites: every

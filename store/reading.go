@@ -305,15 +305,10 @@ func (s *Store) scanReadings(counter string, from, to time.Time, fn func(*readin
 		return err
 	}
 	defer s.exit()
-	if reason := checkName(counter); reason != "" {
-		return fmt.Errorf("%w: name %q: %s", ErrInvalid, counter, reason)
-	}
-	lo, hi, ok, err := keyRange(from, to)
+	loN, hiN, ok, err := seriesRange(counter, from, to)
 	if err != nil || !ok {
 		return err
 	}
-	loN, _ := keyNanos(lo)
-	hiN, _ := keyNanos(hi)
 	return s.view(func(tx *bolt.Tx, g *guard) error {
 		it := newReadingIter(tx, viewHead(tx, s.head), counter, loN, hiN)
 		for {

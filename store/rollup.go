@@ -235,15 +235,10 @@ func (s *Store) ScanRollups(counter string, step time.Duration, from, to time.Ti
 		return err
 	}
 	defer s.exit()
-	if reason := checkName(counter); reason != "" {
-		return fmt.Errorf("%w: name %q: %s", ErrInvalid, counter, reason)
-	}
-	lo, hi, ok, err := keyRange(from, to)
+	loN, hiN, ok, err := seriesRange(counter, from, to)
 	if err != nil || !ok {
 		return err
 	}
-	loN, _ := keyNanos(lo)
-	hiN, _ := keyNanos(hi)
 	return s.view(func(tx *bolt.Tx, g *guard) error {
 		emit := func(r Rollup) error { return g.call(func() error { return fn(r) }) }
 		hv := viewHead(tx, s.head)

@@ -354,22 +354,8 @@ func compactSamples[S, T any](tx *bolt.Tx, k *sampleKind[S, T], sensor string) (
 		}
 		chunks++
 	}
-	if compactHook != nil {
-		if err := compactHook(sensor); err != nil {
-			return 0, 0, err
-		}
-	}
-	for _, key := range headKeys {
-		if err := head.Delete(key); err != nil {
-			return 0, 0, err
-		}
-	}
-	if key, _ := head.Cursor().First(); key == nil {
-		// An empty nested bucket still takes a page; the next append
-		// creates it again.
-		if err := headRoot.DeleteBucket([]byte(sensor)); err != nil {
-			return 0, 0, err
-		}
+	if err := dropMovedHead(headRoot, head, sensor, headKeys); err != nil {
+		return 0, 0, err
 	}
 	return len(fresh), chunks, nil
 }
@@ -381,15 +367,10 @@ func scanSamples[S, T any](s *Store, k *sampleKind[S, T], sensor string, from, t
 		return err
 	}
 	defer s.exit()
-	if reason := checkName(sensor); reason != "" {
-		return fmt.Errorf("%w: name %q: %s", ErrInvalid, sensor, reason)
-	}
-	lo, hi, ok, err := keyRange(from, to)
+	loN, hiN, ok, err := seriesRange(sensor, from, to)
 	if err != nil || !ok {
 		return err
 	}
-	loN, _ := keyNanos(lo)
-	hiN, _ := keyNanos(hi)
 	return s.view(func(tx *bolt.Tx, g *guard) error {
 		it := newSampleIter(tx, k, sensor, loN, hiN)
 		for {

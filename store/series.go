@@ -77,6 +77,21 @@ func keyRange(from, to time.Time) (lo, hi []byte, ok bool, err error) {
 	return nanosKey(loN), nanosKey(hiN), true, nil
 }
 
+// seriesRange checks the name of the series a scan reads and turns
+// [from, to) into key times; ok is false when nothing can match.
+func seriesRange(name string, from, to time.Time) (lo, hi int64, ok bool, err error) {
+	if reason := checkName(name); reason != "" {
+		return 0, 0, false, fmt.Errorf("%w: name %q: %s", ErrInvalid, name, reason)
+	}
+	klo, khi, ok, err := keyRange(from, to)
+	if err != nil || !ok {
+		return 0, 0, false, err
+	}
+	lo, _ = keyNanos(klo)
+	hi, _ = keyNanos(khi)
+	return lo, hi, true, nil
+}
+
 // scanSeries streams the decoded values of kind/name with keys in [from, to).
 func scanSeries[T any](s *Store, kind []byte, name string, from, to time.Time,
 	decode func(name string, k, v []byte) (T, error), fn func(T) error) error {
@@ -84,13 +99,11 @@ func scanSeries[T any](s *Store, kind []byte, name string, from, to time.Time,
 		return err
 	}
 	defer s.exit()
-	if reason := checkName(name); reason != "" {
-		return fmt.Errorf("%w: name %q: %s", ErrInvalid, name, reason)
-	}
-	lo, hi, ok, err := keyRange(from, to)
+	loN, hiN, ok, err := seriesRange(name, from, to)
 	if err != nil || !ok {
 		return err
 	}
+	lo, hi := nanosKey(loN), nanosKey(hiN)
 	return s.view(func(tx *bolt.Tx, g *guard) error {
 		b := tx.Bucket(kind).Bucket([]byte(name))
 		if b == nil {

@@ -61,10 +61,11 @@ func HeartbeatOf(open []Alarm, now time.Time, every time.Duration) Heartbeat {
 	return hb
 }
 
-// RunHeartbeat sends a heartbeat to every one of hs every period (at once first) until ctx is done, built from the open alarms of
-// open. A failed beat is not retried: the next one follows a period later,
-// and a receiver misses beats only while something is wrong. It sends
-// nothing when ctx ends: the silence is the message.
+// RunHeartbeat sends a heartbeat to every one of hs every period (at once
+// first) until ctx is done, built from the open alarms of open. A failed
+// beat is not retried: the next one follows a period later, and a
+// receiver misses beats only while something is wrong. It sends nothing
+// when ctx ends: the silence is the message.
 func RunHeartbeat(ctx context.Context, hs []Heartbeater, every time.Duration, open func() []Alarm, now func() time.Time) {
 	if every <= 0 {
 		every = DefaultHeartbeat

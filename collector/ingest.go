@@ -70,11 +70,12 @@ type Ingest struct {
 // one goroutine per device. The store writes an audit entry (about 180
 // bytes, kept) and a head record per commit; at one commit per sample, a
 // DP sensor polled every 10 s would add some 560 MB a year of audit
-// entries to a store that keeps the sample itself in about a byte. Each caller still returns only
-// once its samples are durable (up to the window later), gets the answer
-// for its own samples, and is refused alone when its input is invalid. A
-// single submitter that waits for each answer before the next gains
-// nothing from it and would only wait: it should use the Ingest itself.
+// entries to a store that keeps the sample itself in about a byte. Each
+// caller still returns only once its samples are durable (up to the
+// window later), gets the answer for its own samples, and is refused
+// alone when its input is invalid. A single submitter that waits for each
+// answer before the next gains nothing from it and would only wait: it
+// should use the Ingest itself.
 type PooledIngest struct{ in *Ingest }
 
 // Pooled returns the ingest's pooled view.
@@ -126,8 +127,9 @@ func NewIngest(reg *Registry, sink Sink, opt IngestOptions) *Ingest {
 // OnReadings registers f to run after every durable commit of readings
 // (the alarm engine and the live zone state subscribe). f gets the
 // readings the commit stored, in the order sent: no duplicate, whether
-// repeated within the request or of a stored reading. Observers run in the submitting goroutine before the sender is
-// answered, so they must be quick, and must not modify the readings.
+// repeated within the request or of a stored reading. Observers run in
+// the submitting goroutine before the sender is answered, so they must be
+// quick, and must not modify the readings.
 // Register observers before serving.
 func (in *Ingest) OnReadings(f func([]Reading)) { in.onRead = append(in.onRead, f) }
 

@@ -231,9 +231,15 @@ func (s *Store) ScanAudit(from, to uint64, fn func(AuditEntry) error) error {
 	if to != 0 && from > to {
 		return fmt.Errorf("%w: audit range from #%d is after to #%d", ErrInvalid, from, to)
 	}
+	return s.scanAudit(func(*bolt.Tx) uint64 { return from }, to, fn)
+}
+
+// scanAudit is ScanAudit with the first entry found in its own read
+// transaction; the caller has entered the store.
+func (s *Store) scanAudit(start func(*bolt.Tx) uint64, to uint64, fn func(AuditEntry) error) error {
 	return s.view(func(tx *bolt.Tx, g *guard) error {
 		c := tx.Bucket(bucketAudit).Cursor()
-		for k, v := c.Seek(seqKey(from)); k != nil; k, v = c.Next() {
+		for k, v := c.Seek(seqKey(start(tx))); k != nil; k, v = c.Next() {
 			if n, _ := keySeq(k); to != 0 && n > to {
 				return nil
 			}

@@ -233,16 +233,8 @@ func (s *Store) ScanAuditSince(since time.Time, fn func(AuditEntry) error) error
 	if err := s.enter(); err != nil {
 		return err
 	}
-	var from uint64
-	err := s.view(func(tx *bolt.Tx, _ *guard) error {
-		from = auditStartFor(tx.Bucket(bucketAuditHours), since)
-		return nil
-	})
-	s.exit()
-	if err != nil {
-		return err
-	}
-	return s.ScanAudit(from, 0, fn)
+	defer s.exit()
+	return s.scanAudit(func(tx *bolt.Tx) uint64 { return auditStartFor(tx.Bucket(bucketAuditHours), since) }, 0, fn)
 }
 
 // auditStartFor is the entry of the last hour key at or before since; 0
